@@ -1,0 +1,124 @@
+"""Input checks shared by every entry point.
+
+Built on scikit-learn's validation utilities so that messages and behaviour match what
+users of scikit-learn estimators already know: the parameter or column is named, with
+what was expected and ``Got ...`` for what was received.
+"""
+
+from __future__ import annotations
+
+import numbers
+
+import numpy as np
+from sklearn.utils._param_validation import validate_parameter_constraints
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+__all__ = [
+    "check_fit_data",
+    "check_predict_data",
+    "check_level",
+    "validate_params",
+    "as_float_array_1d",
+    "preserve_fitted_state",
+]
+
+
+def validate_params(estimator) -> None:
+    """Check ``estimator.get_params()`` against its ``_parameter_constraints`` table.
+
+    Raises ``ValueError``/``TypeError`` naming the parameter, the allowed values and the
+    value received.
+    """
+    validate_parameter_constraints(
+        estimator._parameter_constraints,
+        estimator.get_params(deep=False),
+        caller_name=type(estimator).__name__,
+    )
+
+
+def check_fit_data(estimator, X, y, *, min_samples: int = 2):
+    """Return ``(X, y)`` as float64 arrays after checking them for fitting.
+
+    Sets ``n_features_in_`` and, for named columns, ``feature_names_in_`` on the
+    estimator (scikit-learn convention). Rejects NaN/inf, strings, wrong shapes, fewer
+    than ``min_samples`` rows and a ``y`` whose length differs from ``X``'s.
+    """
+    if y is None:
+        raise ValueError(
+            f"{type(estimator).__name__} requires y to be passed, but the target y is None."
+        )
+    X, y = validate_data(
+        estimator,
+        X,
+        y,
+        reset=True,
+        dtype=np.float64,
+        ensure_min_samples=min_samples,
+        y_numeric=True,
+        multi_output=False,
+    )
+    return np.ascontiguousarray(X), np.ascontiguousarray(y, dtype=np.float64)
+
+
+def check_predict_data(estimator, X):
+    """Return ``X`` as a float64 array checked against the fitted estimator.
+
+    Checks the estimator is fitted, that ``X`` has ``n_features_in_`` columns and, for
+    named columns, the same names in the same order as at fit time.
+    """
+    check_is_fitted(estimator)
+    X = validate_data(estimator, X, reset=False, dtype=np.float64)
+    return np.ascontiguousarray(X)
+
+
+def check_level(level) -> float:
+    """Return ``level`` as a float after checking it lies strictly between 0 and 1."""
+    if (
+        isinstance(level, bool)
+        or not isinstance(level, numbers.Real)
+        or not np.isfinite(level)
+        or not 0.0 < float(level) < 1.0
+    ):
+        raise ValueError(
+            f"The 'level' parameter must be a float in the open interval (0, 1), "
+            f"for example 0.95. Got {level!r} instead."
+        )
+    return float(level)
+
+
+def as_float_array_1d(name: str, value, length: int | None = None) -> np.ndarray:
+    """Return ``value`` as a finite 1-d float array, checking its length if given."""
+    arr = np.atleast_1d(np.asarray(value, dtype=np.float64))
+    if arr.ndim != 1:
+        raise ValueError(f"The '{name}' parameter must be 1-dimensional. Got shape {arr.shape}.")
+    if length is not None and arr.shape[0] != length:
+        raise ValueError(
+            f"The '{name}' parameter must have {length} entries (one per column). "
+            f"Got {arr.shape[0]} instead."
+        )
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"The '{name}' parameter must be finite. Got {value!r} instead.")
+    return arr
+
+
+class preserve_fitted_state:
+    """Context manager: on an exception, restore the estimator's fitted attributes.
+
+    scikit-learn's ``validate_data(reset=True)`` writes ``n_features_in_`` and
+    ``feature_names_in_`` before later checks can fail; this undoes such partial writes so
+    that a failed ``fit`` leaves an earlier fitted model exactly as it was.
+    """
+
+    def __init__(self, estimator):
+        self.estimator = estimator
+
+    def __enter__(self):
+        self._saved = dict(vars(self.estimator))
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is not None:
+            state = vars(self.estimator)
+            state.clear()
+            state.update(self._saved)
+        return False

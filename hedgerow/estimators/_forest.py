@@ -1,0 +1,305 @@
+"""The honest forest regressor and the machinery every forest estimator shares."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from numbers import Integral, Real
+
+import numpy as np
+from joblib import effective_n_jobs
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.utils import check_random_state
+from sklearn.utils._param_validation import Interval, RealNotInt, StrOptions
+from sklearn.utils.validation import check_is_fitted
+
+from hedgerow._validation import (
+    check_fit_data,
+    check_predict_data,
+    preserve_fitted_state,
+    validate_params,
+)
+from hedgerow.forest import RULE_MEAN, grow_forest, plan_samples, subsample_size
+from hedgerow.inference import little_bags_variance, normal_interval
+
+__all__ = ["HonestForestRegressor", "resolve_trees_per_bag"]
+
+# Bags much larger than this gain little (VARIANCE-NOTES: any l within a factor two of the
+# optimum 1 + W/V costs at most ~15% extra variance, and W/V was 33-66 here).
+_MAX_AUTO_BAG = 32
+
+
+def resolve_trees_per_bag(trees_per_bag, n_estimators: int, subsample_rate: float) -> int:
+    """Return the bag size in trees.
+
+    ``"auto"``: the largest divisor of ``n_estimators`` that is at most 32 and leaves at
+    least two bags; 1 (no variance) when there is none (``n_estimators`` of 1, or a prime
+    above 32) or when ``subsample_rate`` exceeds 0.5 (a tree could not draw its rows from
+    a half-sample). Bags of 2 are avoided on purpose: single honest trees are tens of times
+    noisier than the forest, and the between-minus-within difference of bags of 2 drowns in
+    that noise.
+    """
+    if trees_per_bag != "auto":
+        return int(trees_per_bag)
+    if subsample_rate > 0.5 or n_estimators < 2:
+        return 1
+    for size in range(min(_MAX_AUTO_BAG, n_estimators // 2), 1, -1):
+        if n_estimators % size == 0:
+            return size
+    return 1
+
+
+class _ForestBase(RegressorMixin, BaseEstimator):
+    """Fitting, forest weights, out-of-bag and little-bags plumbing shared by the forests."""
+
+    _parameter_constraints: dict = {
+        "n_estimators": [Interval(Integral, 1, None, closed="left")],
+        "subsample_rate": [Interval(Real, 0.0, 1.0, closed="right")],
+        "trees_per_bag": [StrOptions({"auto"}), Interval(Integral, 1, None, closed="left")],
+        "honest": ["boolean"],
+        "min_samples_leaf": [Interval(Integral, 1, None, closed="left")],
+        "max_features": [
+            None,
+            Interval(Integral, 1, None, closed="left"),
+            Interval(RealNotInt, 0.0, 1.0, closed="right"),
+        ],
+        "max_depth": [None, Interval(Integral, 1, None, closed="left")],
+        "random_state": ["random_state"],
+        "n_jobs": [None, Integral],
+    }
+
+    # -- fitting -------------------------------------------------------------------------
+    def _check_forest_params(self, n: int, d: int):
+        """Return (trees_per_bag, max_features, subsample size) after cross-checks."""
+        validate_params(self)
+        l = resolve_trees_per_bag(self.trees_per_bag, self.n_estimators, self.subsample_rate)
+        if self.trees_per_bag != "auto":
+            if self.n_estimators % l != 0:
+                raise ValueError(
+                    f"The 'trees_per_bag' parameter must divide n_estimators="
+                    f"{self.n_estimators} (trees come in whole bags). Got {l!r} instead."
+                )
+            if l >= 2 and self.subsample_rate > 0.5:
+                raise ValueError(
+                    f"The 'subsample_rate' parameter must be at most 0.5 when "
+                    f"trees_per_bag >= 2 (each tree draws from its bag's half-sample). "
+                    f"Got {self.subsample_rate!r} instead (trees_per_bag={l})."
+                )
+        if self.max_features is None:
+            mtry = min(d, math.ceil(math.sqrt(d)) + 20)
+        elif isinstance(self.max_features, Integral):
+            if self.max_features > d:
+                raise ValueError(
+                    f"The 'max_features' parameter must be at most the number of columns "
+                    f"({d}). Got {self.max_features!r} instead."
+                )
+            mtry = int(self.max_features)
+        else:
+            mtry = max(1, int(self.max_features * d))
+        s = subsample_size(n, self.subsample_rate, l)
+        n_grow = s // 2 if self.honest else s
+        n_fill = s - n_grow if self.honest else s
+        if min(n_grow, n_fill) < self.min_samples_leaf:
+            raise ValueError(
+                f"Too few rows for the leaf constraint: with n={n} rows, "
+                f"subsample_rate={self.subsample_rate}, trees_per_bag={l} and "
+                f"honest={self.honest}, a tree has {n_grow} rows to place splits and "
+                f"{n_fill} to fill leaves, but 'min_samples_leaf' is "
+                f"{self.min_samples_leaf}; each part needs at least min_samples_leaf rows. "
+                f"Use more rows, a larger subsample_rate or a smaller min_samples_leaf."
+            )
+        return l, mtry, s
+
+    def _n_threads(self) -> int:
+        return max(1, effective_n_jobs(self.n_jobs))
+
+    def _grow(self, X, y, *, rule=RULE_MEAN, Z=None, split_penalty=0.0, progress=None):
+        """Validate, then return (forest, trees_per_bag, max_features, subsample size)."""
+        n, d = X.shape
+        l, mtry, s = self._check_forest_params(n, d)
+        seed = int(check_random_state(self.random_state).randint(0, 2**31 - 1))
+        plan = plan_samples(n, self.n_estimators, l, self.subsample_rate, self.honest, seed)
+        forest = grow_forest(
+            X, y, plan, min_samples_leaf=self.min_samples_leaf, max_features=mtry,
+            max_depth=self.max_depth, rule=rule, Z=Z, ridge_penalty=split_penalty,
+            n_jobs=self._n_threads(), progress=progress,
+        )
+        return forest, l, mtry, s
+
+    def _set_forest_state(self, X, y, forest, l, mtry, s):
+        self.forest_ = forest
+        self.X_train_ = X
+        self.y_train_ = y
+        self.trees_per_bag_ = l
+        self.max_features_ = mtry
+        self.subsample_size_ = s
+        self.leaf_values_ = forest.leaf_means(y)
+        self._oob_leaves = None
+
+    # -- shared queries ------------------------------------------------------------------
+    def _leaves(self, X):
+        return self.forest_.apply(X, n_jobs=self._n_threads())
+
+    def _oob_parts(self):
+        """Return (leaves of the training rows, usable mask) for out-of-bag work (cached)."""
+        if self._oob_leaves is None:
+            leaves = self._leaves(self.X_train_)
+            usable = ~self.forest_.inbag(np.arange(self.X_train_.shape[0]))
+            self._oob_leaves = (leaves, usable)
+        return self._oob_leaves
+
+    def _warn_unusable(self, n_used, what: str):
+        bad = n_used == 0
+        if np.any(bad):
+            warnings.warn(
+                f"{int(bad.sum())} of {bad.size} {what} have no usable tree (every tree "
+                f"drew them); their prediction is NaN. Use more trees or a smaller "
+                f"subsample_rate.",
+                RuntimeWarning,
+                stacklevel=3,
+            )
+        return bad
+
+    def _require_bags(self):
+        if self.trees_per_bag_ < 2:
+            raise ValueError(
+                f"A standard error needs trees grouped in little bags, but this forest has "
+                f"trees_per_bag={self.trees_per_bag_} (set trees_per_bag to an integer >= 2 "
+                f"that divides n_estimators, or 'auto' with subsample_rate <= 0.5 and "
+                f"n_estimators with a divisor between 2 and 32). Got "
+                f"trees_per_bag={self.trees_per_bag!r}, n_estimators={self.n_estimators!r}, "
+                f"subsample_rate={self.subsample_rate!r}."
+            )
+
+    def neighbour_weights(self, X):
+        """Return the forest weights as a CSR matrix (m × n_train); rows sum to 1.
+
+        Entry (q, i) is alpha_i(x_q) = mean over trees of 1{i in leaf} / |leaf| (fill rows
+        of the honest trees only).
+        """
+        X = check_predict_data(self, X)
+        W, _ = self.forest_.weights(self._leaves(X), n_jobs=self._n_threads())
+        return W
+
+    def oob_neighbour_weights(self):
+        """Return the out-of-bag forest weights of the training rows (CSR, n × n).
+
+        Row i uses only the trees whose subsample did not contain row i, so its own value
+        gets weight 0. Rows with no such tree are all-zero (and warned about).
+        """
+        check_is_fitted(self)
+        leaves, usable = self._oob_parts()
+        W, n_used = self.forest_.weights(leaves, usable, n_jobs=self._n_threads())
+        self._warn_unusable(n_used, "training rows (out-of-bag)")
+        return W
+
+    def predict_interval(self, X, level=0.95):
+        """Return ``(lower, upper)`` pointwise normal confidence intervals at ``level``."""
+        mean, std = self.predict(X, return_std=True)
+        return normal_interval(mean, std, level)
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = False
+        return tags
+
+
+class HonestForestRegressor(_ForestBase):
+    """Honest subsampled regression forest: a local average under forest weights.
+
+    Parameters
+    ----------
+    n_estimators : int, default=2000
+        Number of trees.
+    subsample_rate : float in (0, 1], default=0.5
+        Share of the n rows one tree draws without replacement (from its bag's half-sample
+        when ``trees_per_bag >= 2``, hence then at most 0.5).
+    trees_per_bag : int or "auto", default="auto"
+        Trees that share one half-sample (little bags, for variance). 1 turns variance off.
+        "auto": the largest divisor of ``n_estimators`` up to 32 leaving at least two bags.
+    honest : bool, default=True
+        Split every tree's rows in two: one half places the splits, the other fills leaves.
+    min_samples_leaf : int, default=5
+        Each child of a split keeps at least this many rows of each half.
+    max_features : int, float or None, default=None
+        Columns drawn at each node; None means min(d, ceil(sqrt(d)) + 20).
+    max_depth : int or None, default=None
+    random_state : int, RandomState or None
+    n_jobs : int or None
+        Threads for growing and querying; results do not depend on it.
+
+    Attributes
+    ----------
+    forest_ : ForestArrays
+    trees_per_bag_, max_features_, subsample_size_ : resolved settings.
+    n_features_in_, feature_names_in_ : scikit-learn conventions.
+    """
+
+    def __init__(
+        self,
+        n_estimators=2000,
+        *,
+        subsample_rate=0.5,
+        trees_per_bag="auto",
+        honest=True,
+        min_samples_leaf=5,
+        max_features=None,
+        max_depth=None,
+        random_state=None,
+        n_jobs=None,
+    ):
+        self.n_estimators = n_estimators
+        self.subsample_rate = subsample_rate
+        self.trees_per_bag = trees_per_bag
+        self.honest = honest
+        self.min_samples_leaf = min_samples_leaf
+        self.max_features = max_features
+        self.max_depth = max_depth
+        self.random_state = random_state
+        self.n_jobs = n_jobs
+
+    def fit(self, X, y, *, progress=None):
+        """Grow the forest on ``(X, y)`` and return ``self``.
+
+        ``progress``, if given, is called with the number of trees finished so far.
+        """
+        with preserve_fitted_state(self):
+            validate_params(self)
+            X, y = check_fit_data(self, X, y)
+            forest, l, mtry, s = self._grow(X, y, progress=progress)
+        self._set_forest_state(X, y, forest, l, mtry, s)
+        return self
+
+    def _tree_predictions(self, leaves, usable=None):
+        psi = self.leaf_values_[leaves]
+        if usable is not None:
+            psi = np.where(usable, psi, np.nan)
+        return psi
+
+    def _predict_from_leaves(self, leaves, usable, return_std):
+        psi = self._tree_predictions(leaves, usable)
+        with np.errstate(invalid="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            mean = np.nanmean(psi, axis=1) if usable is not None else psi.mean(axis=1)
+        if not return_std:
+            return mean
+        self._require_bags()
+        var = little_bags_variance(psi, self.trees_per_bag_)
+        return mean, var.std
+
+    def predict(self, X, return_std=False):
+        """Return forest predictions (and their little-bags standard errors)."""
+        X = check_predict_data(self, X)
+        if return_std:
+            check_is_fitted(self)
+            self._require_bags()
+        return self._predict_from_leaves(self._leaves(X), None, return_std)
+
+    def oob_predict(self, return_std=False):
+        """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
+        check_is_fitted(self)
+        if return_std:
+            self._require_bags()
+        leaves, usable = self._oob_parts()
+        self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
+        return self._predict_from_leaves(leaves, usable, return_std)

@@ -1,0 +1,180 @@
+"""Subsampling plan, parallel growth of many trees, assembly into ``ForestArrays``.
+
+Sampling (little bags): trees come in bags of ``trees_per_bag``. With bags of two or more,
+each bag draws a half-sample (``n // 2`` rows without replacement) and each of its trees
+draws ``subsample_size`` rows without replacement from that half-sample; with bags of one,
+each tree draws directly from all rows. An honest tree splits its rows at random into a
+grow part (``s // 2`` rows, places the splits) and a fill part (the rest, fills leaves).
+
+Every random draw is made up front from per-bag generators spawned from one seed, and each
+tree's feature draws use a seed of its own, so a forest depends on ``random_state`` only,
+never on ``n_jobs`` or on the order in which threads finish.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor, wait
+from dataclasses import dataclass
+
+import numpy as np
+
+from hedgerow.forest._grow import RULE_MEAN, grow_tree, presort
+from hedgerow.forest._storage import ForestArrays
+
+__all__ = ["TreePlan", "plan_samples", "grow_forest", "subsample_size"]
+
+
+@dataclass(frozen=True)
+class TreePlan:
+    """The rows, roles and seed of every tree of a forest, drawn before any growth."""
+
+    sample_rows: list  # per tree: int64 global row ids
+    grow_masks: list  # per tree: bool, rows that place splits
+    fill_masks: list  # per tree: bool, rows that fill leaves
+    seeds: np.ndarray  # per tree: seed of its feature draws
+    trees_per_bag: int
+
+
+def subsample_size(n: int, subsample_rate: float, trees_per_bag: int) -> int:
+    """Return the number of rows one tree draws (from the half-sample when bagged)."""
+    pool = n // 2 if trees_per_bag >= 2 else n
+    return int(min(pool, max(1, np.floor(subsample_rate * n + 1e-9))))
+
+
+def plan_samples(
+    n: int,
+    n_estimators: int,
+    trees_per_bag: int,
+    subsample_rate: float,
+    honest: bool,
+    seed: int,
+) -> TreePlan:
+    """Return the sampling plan of a forest (see the module docstring)."""
+    s = subsample_size(n, subsample_rate, trees_per_bag)
+    n_bags = n_estimators // trees_per_bag
+    bag_seqs = np.random.SeedSequence(seed).spawn(n_bags)
+    rows, grows, fills = [], [], []
+    seeds = np.empty(n_estimators, dtype=np.int64)
+    t = 0
+    for seq in bag_seqs:
+        rng = np.random.default_rng(seq)
+        pool = rng.choice(n, size=n // 2, replace=False) if trees_per_bag >= 2 else None
+        for _ in range(trees_per_bag):
+            if pool is None:
+                r = rng.choice(n, size=s, replace=False) if s < n else rng.permutation(n)
+            else:
+                r = pool[rng.choice(pool.shape[0], size=s, replace=False)]
+            grow = np.ones(s, dtype=np.bool_)
+            if honest:
+                # rng.choice returns rows in random order: the first half places splits
+                grow[s // 2:] = False
+                fill = ~grow
+            else:
+                fill = grow.copy()
+            rows.append(r.astype(np.int64))
+            grows.append(grow)
+            fills.append(fill)
+            seeds[t] = rng.integers(0, 2**31 - 1)
+            t += 1
+    return TreePlan(rows, grows, fills, seeds, trees_per_bag)
+
+
+def _grow_range(args):
+    (a, b, X, y, Z, order, plan, msl, mtry, max_depth, rule, lam) = args
+    out = []
+    for t in range(a, b):
+        out.append(
+            grow_tree(
+                X, y, Z, order, plan.sample_rows[t], plan.grow_masks[t], plan.fill_masks[t],
+                msl, mtry, max_depth, rule, lam, int(plan.seeds[t]),
+            )
+        )
+    return out
+
+
+def grow_forest(
+    X: np.ndarray,
+    y: np.ndarray,
+    plan: TreePlan,
+    *,
+    min_samples_leaf: int,
+    max_features: int,
+    max_depth: int | None = None,
+    rule: int = RULE_MEAN,
+    Z: np.ndarray | None = None,
+    ridge_penalty: float = 0.0,
+    n_jobs: int = 1,
+    progress=None,
+    chunk: int = 16,
+) -> ForestArrays:
+    """Return the forest grown from ``plan``, trees in parallel threads (numba nogil).
+
+    ``progress`` is called with the number of trees finished so far. A
+    ``KeyboardInterrupt`` cancels the trees not yet started and propagates.
+    """
+    X = np.ascontiguousarray(X, dtype=np.float64)
+    y = np.ascontiguousarray(y, dtype=np.float64)
+    Z = np.zeros((X.shape[0], 0)) if Z is None else np.ascontiguousarray(Z, dtype=np.float64)
+    order = presort(X)
+    B = len(plan.sample_rows)
+    md = -1 if max_depth is None else int(max_depth)
+    ranges = [(a, min(B, a + chunk)) for a in range(0, B, chunk)]
+    args = [
+        (a, b, X, y, Z, order, plan, int(min_samples_leaf), int(max_features), md, int(rule),
+         float(ridge_penalty))
+        for a, b in ranges
+    ]
+    results = [None] * len(ranges)
+    done_trees = 0
+    if n_jobs <= 1:
+        for i, arg in enumerate(args):
+            results[i] = _grow_range(arg)
+            done_trees += arg[1] - arg[0]
+            if progress is not None:
+                progress(done_trees)
+    else:
+        pool = ThreadPoolExecutor(max_workers=n_jobs)
+        futures = {pool.submit(_grow_range, arg): i for i, arg in enumerate(args)}
+        try:
+            pending = set(futures)
+            while pending:
+                finished, pending = wait(pending, timeout=0.2, return_when="FIRST_COMPLETED")
+                for f in finished:
+                    i = futures[f]
+                    results[i] = f.result()
+                    done_trees += ranges[i][1] - ranges[i][0]
+                if finished and progress is not None:
+                    progress(done_trees)
+        except BaseException:
+            for f in futures:
+                f.cancel()
+            raise
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+    trees = [tree for part in results for tree in part]
+    return assemble(trees, plan, X.shape[0])
+
+
+def assemble(trees: list, plan: TreePlan, n_train: int) -> ForestArrays:
+    """Return ``ForestArrays`` from per-tree ``grow_tree`` outputs."""
+    n_nodes = np.array([t[0].shape[0] for t in trees], dtype=np.int64)
+    n_leaves = np.array([t[4].shape[0] - 1 for t in trees], dtype=np.int64)
+    node_start = np.concatenate([[0], np.cumsum(n_nodes)]).astype(np.int64)
+    leaf_start = np.concatenate([[0], np.cumsum(n_leaves)]).astype(np.int64)
+    leaf_sizes = np.concatenate([np.diff(t[4]) for t in trees])
+    leaf_ptr = np.concatenate([[0], np.cumsum(leaf_sizes)]).astype(np.int64)
+    sample_sizes = np.array([r.shape[0] for r in plan.sample_rows], dtype=np.int64)
+    return ForestArrays(
+        feature=np.concatenate([t[0] for t in trees]),
+        threshold=np.concatenate([t[1] for t in trees]),
+        left=np.concatenate([t[2] for t in trees]),
+        right=np.concatenate([t[3] for t in trees]),
+        node_start=node_start,
+        leaf_ptr=leaf_ptr,
+        leaf_rows=np.concatenate([t[5] for t in trees]).astype(np.int32),
+        leaf_start=leaf_start,
+        sample_ptr=np.concatenate([[0], np.cumsum(sample_sizes)]).astype(np.int64),
+        sample_rows=np.concatenate(plan.sample_rows).astype(np.int32),
+        n_train=n_train,
+        trees_per_bag=plan.trees_per_bag,
+    )

@@ -1,0 +1,359 @@
+"""Compiled growth of one regression tree on presorted, order-kept row lists.
+
+A tree sees a subsample of the training rows. Each subsample row carries two roles:
+*grow* rows choose the splits (they enter the squared-error criterion), *fill* rows
+populate the leaves. An honest tree has disjoint roles; a classical tree gives every row
+both. A split is taken only if each child keeps at least ``min_samples_leaf`` rows of each
+role.
+
+Rows are kept, for every feature, in one array sorted by that feature. A node is a
+contiguous segment ``[start, end)`` of every feature's array (the same rows, ordered by
+each feature); a split partitions each segment stably into left then right, so no node
+ever sorts. The whole forest sorts once (``presort``).
+
+The split criterion is pluggable through ``rule``: before searching a node, the grow rows'
+working response is computed by ``_node_response``; ``RULE_MEAN`` uses the response
+itself (CART), ``RULE_RIDGE_RESIDUAL`` uses the residuals of a ridge regression of the
+response on the correction columns fitted on the node's grow rows. Adding a rule means
+adding a branch there.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+RULE_MEAN = 0
+RULE_RIDGE_RESIDUAL = 1
+
+# Two feature values closer than this are treated as tied (scikit-learn's
+# FEATURE_THRESHOLD, so that a classical tree reproduces DecisionTreeRegressor's splits).
+_FEATURE_THRESHOLD = 1e-7
+_EPS = np.finfo(np.float64).eps
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _node_response(rule, rows, yl, zl, ridge_penalty, resp):
+    """Write the working response of the node's grow rows ``rows`` into ``resp``."""
+    if rule == RULE_MEAN:
+        for r in rows:
+            resp[r] = yl[r]
+        return
+    # RULE_RIDGE_RESIDUAL: minimise mean (y - a - z'b)^2 + lam |b|^2 over the node's grow
+    # rows (z standardised columns, intercept unpenalised) and keep the residuals.
+    k = zl.shape[1]
+    G = np.zeros((k + 1, k + 1))
+    rhs = np.zeros(k + 1)
+    cnt = rows.shape[0]
+    for r in rows:
+        G[0, 0] += 1.0
+        rhs[0] += yl[r]
+        for a in range(k):
+            za = zl[r, a]
+            G[0, a + 1] += za
+            rhs[a + 1] += za * yl[r]
+            for b in range(a, k):
+                G[a + 1, b + 1] += za * zl[r, b]
+    for a in range(k + 1):
+        for b in range(a):
+            G[a, b] = G[b, a]
+    for a in range(k + 1):
+        for b in range(k + 1):
+            G[a, b] /= cnt
+        rhs[a] /= cnt
+    for a in range(1, k + 1):
+        G[a, a] += ridge_penalty
+    # A tiny diagonal keeps the system solvable in nodes where a column is constant.
+    for a in range(k + 1):
+        G[a, a] += 1e-12
+    coef = np.linalg.solve(G, rhs)
+    for r in rows:
+        fit = coef[0]
+        for a in range(k):
+            fit += coef[a + 1] * zl[r, a]
+        resp[r] = yl[r] - fit
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def presort(X):
+    """Return, per column, the row indices of ``X`` sorted by that column (stable)."""
+    n, d = X.shape
+    out = np.empty((d, n), dtype=np.int32)
+    for j in range(d):
+        out[j, :] = np.argsort(X[:, j], kind="mergesort").astype(np.int32)
+    return out
+
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _local_lists(global_order, sample_rows, mask, X):
+    """Per-feature sorted local ids and values of the subsample rows selected by ``mask``."""
+    d, n = global_order.shape
+    m = 0
+    for i in range(mask.shape[0]):
+        if mask[i]:
+            m += 1
+    local = np.full(n, -1, dtype=np.int64)
+    rows = np.empty(m, dtype=np.int64)
+    c = 0
+    for i in range(mask.shape[0]):
+        if mask[i]:
+            local[sample_rows[i]] = c
+            rows[c] = sample_rows[i]
+            c += 1
+    order = np.empty((d, m), dtype=np.int32)
+    vals = np.empty((d, m))
+    for j in range(d):
+        c = 0
+        for t in range(n):
+            g = global_order[j, t]
+            li = local[g]
+            if li >= 0:
+                order[j, c] = li
+                vals[j, c] = X[g, j]
+                c += 1
+    return rows, order, vals
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _partition(order, vals, start, end, goes_left, buf, vbuf):
+    """Stably move the rows with ``goes_left`` to the front of every feature's segment."""
+    d = order.shape[0]
+    for j in range(d):
+        ordj = order[j]
+        valj = vals[j]
+        a = start
+        b = 0
+        # branch-free: write each row to both places, advance one cursor
+        for p in range(start, end):
+            r = ordj[p]
+            v = valj[p]
+            g = goes_left[r]
+            ordj[a] = r
+            valj[a] = v
+            buf[b] = r
+            vbuf[b] = v
+            a += g
+            b += 1 - g
+        for t in range(b):
+            ordj[a + t] = buf[t]
+            valj[a + t] = vbuf[t]
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def grow_tree(
+    X,
+    y,
+    Z,
+    global_order,
+    sample_rows,
+    grow_mask,
+    fill_mask,
+    min_samples_leaf,
+    max_features,
+    max_depth,
+    rule,
+    ridge_penalty,
+    seed,
+):
+    """Return the flat arrays of one tree grown on ``sample_rows``.
+
+    Parameters
+    ----------
+    X : (n, d) float64 training features; y : (n,) response; Z : (n, k) standardised
+        correction columns (used by the ridge-residual rule only).
+    global_order : (d, n) int32 from ``presort(X)``.
+    sample_rows : (s,) int64 global row ids of the tree's subsample.
+    grow_mask, fill_mask : (s,) bool roles of the subsample rows (may overlap).
+    min_samples_leaf, max_features, max_depth (-1 for none), rule, ridge_penalty.
+    seed : seeds this thread's generator, so the tree depends on the seed alone.
+
+    Returns
+    -------
+    feature (int32, -1 at leaves), threshold (float64), left, right (int32, child node
+    ids; at a leaf ``left`` holds the leaf id), leaf_ptr (int64), leaf_rows (int32, global
+    fill-row ids of each leaf, CSR by leaf id).
+
+    Grow rows and fill rows are kept in separate per-feature sorted lists, so a node's
+    role counts are segment lengths and the scans have no role branches.
+    """
+    np.random.seed(seed)
+    d = X.shape[1]
+    g_rows, g_order, g_vals = _local_lists(global_order, sample_rows, grow_mask, X)
+    f_rows, f_order, f_vals = _local_lists(global_order, sample_rows, fill_mask, X)
+    n_grow = g_rows.shape[0]
+    n_fill = f_rows.shape[0]
+    yl = np.empty(n_grow)
+    kz = Z.shape[1]
+    zl = np.empty((n_grow, kz))
+    for i in range(n_grow):
+        yl[i] = y[g_rows[i]]
+        for a in range(kz):
+            zl[i, a] = Z[g_rows[i], a]
+
+    # at most one leaf per min_samples_leaf rows of the scarcer role
+    max_leaves = max(1, min(n_grow, n_fill) // max(1, min_samples_leaf))
+    max_nodes = 2 * max_leaves + 1
+    feature = np.full(max_nodes, -1, dtype=np.int32)
+    threshold = np.zeros(max_nodes)
+    left = np.full(max_nodes, -1, dtype=np.int32)
+    right = np.full(max_nodes, -1, dtype=np.int32)
+    leaf_ptr = np.zeros(max_leaves + 1, dtype=np.int64)
+    leaf_rows = np.empty(n_fill, dtype=np.int32)
+
+    resp = np.zeros(n_grow)
+    g_left = np.zeros(n_grow, dtype=np.int64)
+    f_left = np.zeros(n_fill, dtype=np.int64)
+    g_buf = np.empty(n_grow, dtype=np.int32)
+    g_vbuf = np.empty(n_grow)
+    f_buf = np.empty(n_fill, dtype=np.int32)
+    f_vbuf = np.empty(n_fill)
+    feats = np.arange(d)
+
+    # explicit stack of (node id, grow segment, fill segment, depth)
+    st = np.empty((max_nodes, 6), dtype=np.int64)
+    st[0, 0] = 0
+    st[0, 1] = 0
+    st[0, 2] = n_grow
+    st[0, 3] = 0
+    st[0, 4] = n_fill
+    st[0, 5] = 0
+    top = 1
+    n_nodes = 1
+    n_leaves = 0
+    n_leaf_rows = 0
+    msl = min_samples_leaf
+
+    while top > 0:
+        top -= 1
+        node = st[top, 0]
+        gs = st[top, 1]
+        ge = st[top, 2]
+        fs = st[top, 3]
+        fe = st[top, 4]
+        depth = st[top, 5]
+        g_cnt = ge - gs
+        f_cnt = fe - fs
+
+        best_feat = -1
+        best_thr = 0.0
+        best_gl = 0
+        best_fl = 0
+        splittable = (
+            g_cnt >= 2 * msl and f_cnt >= 2 * msl and g_cnt >= 2
+            and (max_depth < 0 or depth < max_depth)
+        )
+        if splittable:
+            _node_response(rule, g_order[0, gs:ge], yl, zl, ridge_penalty, resp)
+            tot = 0.0
+            tot2 = 0.0
+            for p in range(gs, ge):
+                v = resp[g_order[0, p]]
+                tot += v
+                tot2 += v * v
+            impurity = tot2 / g_cnt - (tot / g_cnt) ** 2
+            if impurity <= _EPS:
+                splittable = False
+        if splittable:
+            best_proxy = -np.inf
+            # draw features without replacement until max_features non-constant ones
+            # have been searched (constant features do not count)
+            n_drawn = 0
+            n_visited = 0
+            while n_drawn < d and n_visited < max_features:
+                jpos = n_drawn + np.random.randint(d - n_drawn)
+                tmp = feats[n_drawn]
+                feats[n_drawn] = feats[jpos]
+                feats[jpos] = tmp
+                f = feats[n_drawn]
+                n_drawn += 1
+                go = g_order[f]
+                gv = g_vals[f]
+                fv = f_vals[f]
+                # the segment is sorted by this feature: constant iff its ends tie
+                if gv[ge - 1] <= gv[gs] + _FEATURE_THRESHOLD:
+                    continue
+                n_visited += 1
+                q = fs  # fill rows with value <= threshold: [fs, q)
+                # candidate between grow positions p-1 and p: left = [gs, p)
+                sum_l = 0.0
+                for p in range(gs + 1, ge):
+                    sum_l += resp[go[p - 1]]
+                    gl = p - gs
+                    if gl < msl:
+                        continue
+                    if ge - p < msl:
+                        break
+                    u = gv[p - 1]
+                    v = gv[p]
+                    if v <= u + _FEATURE_THRESHOLD:
+                        continue
+                    thr = u / 2.0 + v / 2.0
+                    if thr == v or thr == np.inf or thr == -np.inf:
+                        thr = u
+                    while q < fe and fv[q] <= thr:
+                        q += 1
+                    fl = q - fs
+                    if fl < msl:
+                        continue
+                    if fe - q < msl:
+                        # fill counts on the left only grow from here on
+                        break
+                    gr = g_cnt - gl
+                    sum_r = tot - sum_l
+                    proxy = sum_l * sum_l / gl + sum_r * sum_r / gr
+                    if proxy > best_proxy:
+                        best_proxy = proxy
+                        best_feat = f
+                        best_thr = thr
+                        best_gl = gl
+                        best_fl = fl
+        if best_feat < 0:
+            leaf_id = n_leaves
+            n_leaves += 1
+            left[node] = leaf_id
+            for p in range(fs, fe):
+                leaf_rows[n_leaf_rows] = f_rows[f_order[0, p]]
+                n_leaf_rows += 1
+            leaf_ptr[leaf_id + 1] = n_leaf_rows
+            continue
+        # mark sides from the best feature's sorted lists, then partition every feature
+        go = g_order[best_feat]
+        for p in range(gs, ge):
+            g_left[go[p]] = 1 if p < gs + best_gl else 0
+        fo = f_order[best_feat]
+        for p in range(fs, fe):
+            f_left[fo[p]] = 1 if p < fs + best_fl else 0
+        _partition(g_order, g_vals, gs, ge, g_left, g_buf, g_vbuf)
+        _partition(f_order, f_vals, fs, fe, f_left, f_buf, f_vbuf)
+        feature[node] = best_feat
+        threshold[node] = best_thr
+        lnode = n_nodes
+        rnode = n_nodes + 1
+        n_nodes += 2
+        left[node] = lnode
+        right[node] = rnode
+        # push right first so the left subtree is numbered first (depth-first order)
+        st[top, 0] = rnode
+        st[top, 1] = gs + best_gl
+        st[top, 2] = ge
+        st[top, 3] = fs + best_fl
+        st[top, 4] = fe
+        st[top, 5] = depth + 1
+        top += 1
+        st[top, 0] = lnode
+        st[top, 1] = gs
+        st[top, 2] = gs + best_gl
+        st[top, 3] = fs
+        st[top, 4] = fs + best_fl
+        st[top, 5] = depth + 1
+        top += 1
+
+    return (
+        feature[:n_nodes].copy(),
+        threshold[:n_nodes].copy(),
+        left[:n_nodes].copy(),
+        right[:n_nodes].copy(),
+        leaf_ptr[: n_leaves + 1].copy(),
+        leaf_rows[:n_leaf_rows].copy(),
+    )

@@ -1,0 +1,220 @@
+"""Compact storage of a fitted forest and the compiled queries on it.
+
+A forest of B trees is a handful of flat arrays: the nodes of all trees concatenated
+(``feature``, ``threshold``, ``left``, ``right`` with per-tree offsets ``node_start``), and
+the honest (fill) rows of every leaf as one CSR structure (``leaf_ptr``, ``leaf_rows``,
+leaves numbered globally with per-tree offsets ``leaf_start``). The rows each tree drew
+(its whole subsample) are kept as CSR too (``sample_ptr``, ``sample_rows``) for out-of-bag
+work.
+
+Forest weights of a query x: alpha_i(x) = (1 / B_x) * sum over usable trees t of
+1{i in L_t(x)} / |L_t(x)|, with L_t(x) the fill rows of x's leaf in tree t and B_x the
+number of usable trees (for out-of-bag queries, the trees that did not draw the row).
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+from numba import njit
+
+__all__ = ["ForestArrays"]
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _apply_chunk(X, feature, threshold, left, right, node_start, leaf_start):
+    # tree-major: one tree's nodes stay in cache while every query descends it
+    m = X.shape[0]
+    B = node_start.shape[0] - 1
+    out = np.empty((B, m), dtype=np.int32)
+    for t in range(B):
+        off = node_start[t]
+        ls = leaf_start[t]
+        for i in range(m):
+            node = off
+            while feature[node] >= 0:
+                if X[i, feature[node]] <= threshold[node]:
+                    node = off + left[node]
+                else:
+                    node = off + right[node]
+            out[t, i] = ls + left[node]
+    return out.T.copy()
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _weights_chunk(leaves, usable, leaf_ptr, leaf_rows, n):
+    """CSR pieces (indptr, indices, data, n_used) of the forest weights of a query chunk.
+
+    ``usable`` is (m, B) bool, or (0, 0) meaning every tree is usable.
+    """
+    m, B = leaves.shape
+    all_usable = usable.shape[0] == 0
+    acc = np.zeros(n)
+    touched = np.empty(n, dtype=np.int64)
+    cap = max(16, m * 64)
+    indices = np.empty(cap, dtype=np.int32)
+    data = np.empty(cap)
+    indptr = np.zeros(m + 1, dtype=np.int64)
+    n_used = np.zeros(m, dtype=np.int64)
+    nnz = 0
+    for i in range(m):
+        n_t = 0
+        used = 0
+        for t in range(B):
+            if not all_usable and not usable[i, t]:
+                continue
+            leaf = leaves[i, t]
+            a = leaf_ptr[leaf]
+            b = leaf_ptr[leaf + 1]
+            if b <= a:
+                continue
+            used += 1
+            w = 1.0 / (b - a)
+            for p in range(a, b):
+                r = leaf_rows[p]
+                if acc[r] == 0.0:
+                    touched[n_t] = r
+                    n_t += 1
+                acc[r] += w
+        n_used[i] = used
+        if nnz + n_t > cap:
+            new_cap = max(2 * cap, nnz + n_t)
+            ni = np.empty(new_cap, dtype=np.int32)
+            nd = np.empty(new_cap)
+            ni[:nnz] = indices[:nnz]
+            nd[:nnz] = data[:nnz]
+            indices = ni
+            data = nd
+            cap = new_cap
+        rows = np.sort(touched[:n_t])
+        for q in range(n_t):
+            r = rows[q]
+            indices[nnz + q] = r
+            data[nnz + q] = acc[r] / used
+            acc[r] = 0.0
+        nnz += n_t
+        indptr[i + 1] = nnz
+    return indptr, indices[:nnz].copy(), data[:nnz].copy(), n_used
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _inbag_chunk(rows, sample_ptr, sample_rows, n):
+    """(len(rows), B) bool: did tree t draw training row rows[i]."""
+    B = sample_ptr.shape[0] - 1
+    pos = np.full(n, -1, dtype=np.int64)
+    for i in range(rows.shape[0]):
+        pos[rows[i]] = i
+    out = np.zeros((rows.shape[0], B), dtype=np.bool_)
+    for t in range(B):
+        for p in range(sample_ptr[t], sample_ptr[t + 1]):
+            i = pos[sample_rows[p]]
+            if i >= 0:
+                out[i, t] = True
+    return out
+
+
+def _chunks(m: int, n_jobs: int, size: int = 512):
+    step = max(1, min(size, -(-m // max(1, n_jobs))))
+    return [(a, min(m, a + step)) for a in range(0, m, step)]
+
+
+def _map(fn, pieces, n_jobs):
+    if n_jobs <= 1 or len(pieces) <= 1:
+        return [fn(p) for p in pieces]
+    with ThreadPoolExecutor(max_workers=n_jobs) as pool:
+        return list(pool.map(fn, pieces))
+
+
+@dataclass(frozen=True, eq=False)
+class ForestArrays:
+    """The flat arrays of a fitted forest (see the module docstring)."""
+
+    feature: np.ndarray
+    threshold: np.ndarray
+    left: np.ndarray
+    right: np.ndarray
+    node_start: np.ndarray
+    leaf_ptr: np.ndarray
+    leaf_rows: np.ndarray
+    leaf_start: np.ndarray
+    sample_ptr: np.ndarray
+    sample_rows: np.ndarray
+    n_train: int
+    trees_per_bag: int
+
+    @property
+    def n_trees(self) -> int:
+        return self.node_start.shape[0] - 1
+
+    @property
+    def nbytes(self) -> int:
+        return sum(
+            getattr(self, f).nbytes
+            for f in (
+                "feature", "threshold", "left", "right", "node_start", "leaf_ptr",
+                "leaf_rows", "leaf_start", "sample_ptr", "sample_rows",
+            )
+        )
+
+    def apply(self, X: np.ndarray, n_jobs: int = 1) -> np.ndarray:
+        """Return the (m, B) int32 matrix of global leaf ids of every query in every tree."""
+        X = np.ascontiguousarray(X, dtype=np.float64)
+        pieces = _chunks(X.shape[0], n_jobs, size=2048)
+        parts = _map(
+            lambda ab: _apply_chunk(
+                X[ab[0]:ab[1]], self.feature, self.threshold, self.left, self.right,
+                self.node_start, self.leaf_start,
+            ),
+            pieces,
+            n_jobs,
+        )
+        if not parts:
+            return np.empty((0, self.n_trees), dtype=np.int32)
+        return np.concatenate(parts, axis=0)
+
+    def inbag(self, rows: np.ndarray) -> np.ndarray:
+        """Return the (len(rows), B) bool matrix: True where tree t drew training row i."""
+        return _inbag_chunk(
+            np.asarray(rows, dtype=np.int64), self.sample_ptr, self.sample_rows, self.n_train
+        )
+
+    def weights(self, leaves: np.ndarray, usable: np.ndarray | None = None, n_jobs: int = 1):
+        """Return (CSR weights m × n_train, number of usable trees per query)."""
+        m = leaves.shape[0]
+        empty = np.zeros((0, 0), dtype=np.bool_)
+        pieces = _chunks(m, n_jobs)
+
+        def run(ab):
+            a, b = ab
+            u = empty if usable is None else np.ascontiguousarray(usable[a:b])
+            return _weights_chunk(
+                np.ascontiguousarray(leaves[a:b]), u, self.leaf_ptr, self.leaf_rows,
+                self.n_train,
+            )
+
+        parts = _map(run, pieces, n_jobs)
+        if not parts:
+            return sp.csr_matrix((0, self.n_train)), np.zeros(0, dtype=np.int64)
+        offsets = np.cumsum([0] + [p[1].shape[0] for p in parts])
+        indptr = np.concatenate(
+            [np.zeros(1, dtype=np.int64)] + [p[0][1:] + off for p, off in zip(parts, offsets)]
+        )
+        indices = np.concatenate([p[1] for p in parts])
+        data = np.concatenate([p[2] for p in parts])
+        n_used = np.concatenate([p[3] for p in parts])
+        W = sp.csr_matrix((data, indices, indptr), shape=(m, self.n_train))
+        W.has_sorted_indices = True
+        return W, n_used
+
+    def leaf_means(self, y: np.ndarray) -> np.ndarray:
+        """Return the mean of ``y`` over the fill rows of every leaf (NaN for empty leaves)."""
+        sizes = np.diff(self.leaf_ptr)
+        sums = np.zeros(sizes.shape[0])
+        nonempty = sizes > 0
+        if self.leaf_rows.size:
+            sums[nonempty] = np.add.reduceat(y[self.leaf_rows], self.leaf_ptr[:-1][nonempty])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(nonempty, sums / np.maximum(sizes, 1), np.nan)

@@ -1,0 +1,163 @@
+"""Variance of forest predictions by the bootstrap of little bags, never negative.
+
+Trees come in bags g = 1..G that share one half-sample. Let psi_gj(x) be tree j of bag g's
+(linearised) prediction at x, psibar_g the bag mean over its k_g usable trees, s_g^2 the
+bag's own sample variance of its trees (ddof=1) and psibar the mean of the bag means.
+Then (Sexton & Laake 2009; Athey, Tibshirani & Wager 2019, Sec. 4)
+
+    u_g   = G / (G - 1) * (psibar_g - psibar)^2  -  s_g^2 / k_g
+    V_hat = mean_g u_g
+
+is unbiased for the variance V of the forest prediction (between-bag spread minus the
+part of it that within-bag tree noise explains). V_hat can be negative: single honest
+trees are tens of times noisier than the forest, so the difference is noisy. Rather than
+clamping at zero (which biases intervals both ways), V_hat is treated as an observation
+of V with standard error tau_hat = sqrt(var_g(u_g) / G) (central limit theorem over bags)
+and replaced by the posterior mean of V under a flat prior on V >= 0, the mean of a
+normal truncated at 0:
+
+    V_tilde = V_hat + tau_hat * phi(t) / Phi(t),   t = V_hat / tau_hat,
+
+computed through log phi - log Phi for stability. V_tilde > 0 always and V_tilde -> V_hat
+when V_hat >> tau_hat.
+
+For a local linear forest the tree predictions are linearised with the forest-level Gram
+matrix held fixed: with a(x), b(x) the forest's local intercept and slopes, z_i(x) the
+standardised correction columns of row i centred at x, M(x) the penalised weighted Gram
+matrix of the forest and c(x) the first row of M(x)^-1,
+
+    rho_i(x)  = c(x) . [1, z_i(x)] * (y_i - a(x) - z_i(x)' b(x))
+    psi_t(x)  = a(x) + mean over the fill rows i of x's leaf in tree t of rho_i(x),
+
+so that the forest prediction is (up to the ridge term) the mean of the psi_t. With no
+correction columns (the plain honest forest) c = [1] and psi_t(x) is the tree's leaf mean.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+from scipy.special import log_ndtr
+
+__all__ = ["LittleBagsVariance", "little_bags_variance", "linearised_tree_predictions"]
+
+
+@dataclass(frozen=True)
+class LittleBagsVariance:
+    """Per-query variance of a forest prediction and what went into it."""
+
+    variance: np.ndarray  # V_tilde, > 0
+    raw: np.ndarray  # V_hat, can be negative
+    tau: np.ndarray  # standard error of V_hat
+    n_bags: np.ndarray  # bags with at least two usable trees
+
+    @property
+    def std(self) -> np.ndarray:
+        return np.sqrt(self.variance)
+
+    @property
+    def raw_nonpositive(self) -> np.ndarray:
+        """True where the unbiased estimate was <= 0 (a plain clamp would have floored it)."""
+        return self.raw <= 0
+
+
+def truncated_normal_mean(v_hat: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Return the mean of N(v_hat, tau^2) truncated to [0, inf) (the module docstring)."""
+    v_hat = np.asarray(v_hat, dtype=np.float64)
+    tau = np.asarray(tau, dtype=np.float64)
+    out = np.maximum(v_hat, 0.0).astype(np.float64)
+    ok = tau > 0
+    t = v_hat[ok] / tau[ok]
+    log_phi = -0.5 * t * t - 0.5 * np.log(2.0 * np.pi)
+    out[ok] = v_hat[ok] + tau[ok] * np.exp(log_phi - log_ndtr(t))
+    return out
+
+
+def little_bags_variance(psi: np.ndarray, trees_per_bag: int) -> LittleBagsVariance:
+    """Return the little-bags variance of the mean of ``psi`` along axis 1.
+
+    Parameters
+    ----------
+    psi : (m, B) per-tree predictions, NaN where a tree is unusable for a query (for
+        example a tree that drew the row, out-of-bag). Trees ``g*l .. g*l + l - 1`` form
+        bag g (``l = trees_per_bag``). Bags with fewer than two usable trees are left out.
+    trees_per_bag : int >= 2.
+    """
+    psi = np.asarray(psi, dtype=np.float64)
+    m, B = psi.shape
+    G = B // trees_per_bag
+    P = psi[:, : G * trees_per_bag].reshape(m, G, trees_per_bag)
+    ok = ~np.isnan(P)
+    k = ok.sum(axis=2)
+    usable_bag = k >= 2
+    Pz = np.where(ok, P, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        bag_mean = Pz.sum(axis=2) / k
+        within = (np.where(ok, P - bag_mean[:, :, None], 0.0) ** 2).sum(axis=2) / (k - 1)
+    Gx = usable_bag.sum(axis=1)
+    bag_mean = np.where(usable_bag, bag_mean, 0.0)
+    within = np.where(usable_bag, within, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        grand = bag_mean.sum(axis=1) / Gx
+        dev2 = np.where(usable_bag, (bag_mean - grand[:, None]) ** 2, 0.0)
+        u = Gx[:, None] / (Gx[:, None] - 1.0) * dev2 - within / np.maximum(k, 1)
+        u = np.where(usable_bag, u, 0.0)
+        raw = u.sum(axis=1) / Gx
+        var_u = np.where(usable_bag, (u - raw[:, None]) ** 2, 0.0).sum(axis=1) / (Gx - 1.0)
+        tau = np.sqrt(var_u / Gx)
+    bad = Gx < 2
+    raw = np.where(bad, np.nan, raw)
+    tau = np.where(bad, np.nan, tau)
+    variance = np.full(m, np.nan)
+    good = ~bad
+    variance[good] = truncated_normal_mean(raw[good], tau[good])
+    return LittleBagsVariance(variance=variance, raw=raw, tau=tau, n_bags=Gx)
+
+
+@njit(cache=True, nogil=True)
+def _linearised_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coef, c0):
+    m, B = leaves.shape
+    k = Xc.shape[1]
+    all_usable = usable.shape[0] == 0
+    out = np.full((m, B), np.nan)
+    for i in range(m):
+        for t in range(B):
+            if not all_usable and not usable[i, t]:
+                continue
+            leaf = leaves[i, t]
+            a = leaf_ptr[leaf]
+            b = leaf_ptr[leaf + 1]
+            if b <= a:
+                continue
+            acc = 0.0
+            for p in range(a, b):
+                r = leaf_rows[p]
+                resid = y[r] - coef[i, 0]
+                lev = c0[i, 0]
+                for j in range(k):
+                    z = (Xc[r, j] - Qc[i, j]) / scale[j]
+                    resid -= coef[i, j + 1] * z
+                    lev += c0[i, j + 1] * z
+                acc += lev * resid
+            out[i, t] = coef[i, 0] + acc / (b - a)
+    return out
+
+
+def linearised_tree_predictions(
+    leaves, usable, forest, Xc, y, Qc, scale, coef, c0
+) -> np.ndarray:
+    """Return the (m, B) per-tree linearised predictions psi_t(x) (module docstring).
+
+    ``coef`` (m, k+1) holds the forest's local intercept and standardised slopes, ``c0``
+    (m, k+1) the first row of the inverse penalised Gram matrix; with k = 0 and c0 = 1
+    this is every tree's leaf mean. ``usable`` is (m, B) bool or None (all trees).
+    """
+    u = np.zeros((0, 0), dtype=np.bool_) if usable is None else np.ascontiguousarray(usable)
+    return _linearised_chunk(
+        np.ascontiguousarray(leaves), u, forest.leaf_ptr, forest.leaf_rows,
+        np.ascontiguousarray(Xc, dtype=np.float64), np.ascontiguousarray(y, dtype=np.float64),
+        np.ascontiguousarray(Qc, dtype=np.float64), np.ascontiguousarray(scale, dtype=np.float64),
+        np.ascontiguousarray(coef, dtype=np.float64), np.ascontiguousarray(c0, dtype=np.float64),
+    )

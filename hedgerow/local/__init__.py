@@ -1,0 +1,21 @@
+"""The batched weighted local-constant / local-linear ridge solve shared by all smoothers."""
+
+from hedgerow.local._solver import (
+    COLLINEARITY_RCOND,
+    LocalFit,
+    LocalMoments,
+    default_scale,
+    equivalent_kernel,
+    local_moments,
+    solve_local,
+)
+
+__all__ = [
+    "COLLINEARITY_RCOND",
+    "LocalFit",
+    "LocalMoments",
+    "default_scale",
+    "equivalent_kernel",
+    "local_moments",
+    "solve_local",
+]

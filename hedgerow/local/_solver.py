@@ -1,0 +1,421 @@
+"""The batched weighted local-constant / local-linear ridge solve.
+
+Every smoother in hedgerow is a sparse weighting of the training rows (an ``m x n``
+matrix ``W`` whose rows sum to one) combined with a local model fitted at each query.
+This module holds the one implementation of the local model:
+
+1. :func:`local_moments` reduces ``W`` and the training data to a few weighted moments
+   per query with sparse x dense products (no loop over queries);
+2. :func:`solve_local` turns the moments into a fit by solving one small
+   ``(k+1) x (k+1)`` system per query, batched; changing the ridge penalty re-runs only
+   this step;
+3. :func:`equivalent_kernel` gives the weights ``l_i(q)`` with ``fit.intercept = L @ y``,
+   which standard errors and hat-matrix diagonals need.
+
+Local model and penalty scaling
+-------------------------------
+For query ``q`` with weights ``w_i`` (``sum_i w_i = 1``) and standardised correction
+columns ``z_i = (x_i - q) / scale``, the degree-1 fit minimises::
+
+    sum_i w_i (y_i - a - z_i^T b)^2 + lam * ||b||^2
+
+with the intercept ``a`` unpenalised. With uniform weights ``1/n`` this is ridge
+regression with penalty ``n * lam`` on the standardised columns. If a row of ``W`` sums
+to ``s0 != 1`` the penalty is applied as ``lam * s0``, so that the fit depends on the
+row only through its normalised weights.
+
+Fallback rule
+-------------
+A query whose degree-1 system is numerically singular -- the weighted spread of a
+correction column is at round-off level, or the columns are collinear within the
+neighbourhood (reciprocal condition number of the local correlation matrix below
+:data:`COLLINEARITY_RCOND`) -- falls back to the local constant fit (the weighted mean
+of ``y``, slopes zero) and is flagged in :attr:`LocalFit.fallback`. A query whose row of
+``W`` has zero total weight has no estimate: its intercept and slopes are NaN and a
+``RuntimeWarning`` states how many such queries there were.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+__all__ = [
+    "COLLINEARITY_RCOND",
+    "LocalFit",
+    "LocalMoments",
+    "default_scale",
+    "equivalent_kernel",
+    "local_moments",
+    "solve_local",
+]
+
+#: Reciprocal condition number of the local correlation matrix of the correction columns
+#: below which a degree-1 system counts as singular and falls back to degree 0.
+COLLINEARITY_RCOND = 1e-10
+
+# Margin over machine epsilon for the round-off floor of algebraically centred variances.
+_ROUNDOFF_MARGIN = 1e3
+
+
+@dataclass(frozen=True)
+class LocalMoments:
+    """Weighted moments of the training data at each query, for a local fit.
+
+    All moments use ``z_i = (x_i - q) / scale`` for the correction columns of training
+    row ``i`` and query ``q``.
+
+    Attributes
+    ----------
+    degree : int
+        0 (local constant) or 1 (local linear).
+    scale : ndarray of shape (k,)
+        Column scales used to standardise the correction columns; the ridge penalty acts
+        on slopes per unit of ``scale``.
+    s0 : ndarray of shape (m,)
+        ``sum_i w_i``.
+    s1 : ndarray of shape (m, k)
+        ``sum_i w_i z_i``.
+    s2 : ndarray of shape (m, k, k)
+        ``sum_i w_i z_i z_i^T``.
+    t0 : ndarray of shape (m,)
+        ``sum_i w_i y_i``.
+    t1 : ndarray of shape (m, k)
+        ``sum_i w_i z_i y_i``.
+    roundoff : ndarray of shape (m, k)
+        Size of the terms cancelled when ``s2`` was centred at the query, times machine
+        epsilon; a weighted variance below it is numerically zero.
+
+    For ``degree=0``, ``s1``, ``t1`` and ``roundoff`` have shape ``(m, 0)`` and ``s2``
+    ``(m, 0, 0)``.
+    """
+
+    degree: int
+    scale: np.ndarray
+    s0: np.ndarray
+    s1: np.ndarray
+    s2: np.ndarray
+    t0: np.ndarray
+    t1: np.ndarray
+    roundoff: np.ndarray
+
+    @property
+    def n_queries(self) -> int:
+        """Return the number of queries ``m``."""
+        return self.s0.shape[0]
+
+
+@dataclass(frozen=True)
+class LocalFit:
+    """Local fits at each query, as returned by :func:`solve_local`.
+
+    Attributes
+    ----------
+    intercept : ndarray of shape (m,)
+        The prediction at each query.
+    slopes : ndarray of shape (m, k)
+        Slopes in the original units of the correction columns (``(m, 0)`` for degree 0).
+    slopes_std : ndarray of shape (m, k)
+        Slopes per standardised unit (per unit of ``scale``).
+    gram_inv : ndarray of shape (m, k+1, k+1)
+        Inverse of the penalised weighted Gram matrix
+        ``M = sum_i w_i [1, z_i][1, z_i]^T + lam * s0 * diag(0, 1, ..., 1)``. For fallback
+        queries it is the degree-0 inverse padded with zeros, ``diag(1/s0, 0, ..., 0)``.
+    fallback : ndarray of shape (m,), bool
+        Queries whose degree-1 system was singular and which fell back to the weighted
+        mean (see the module notes).
+    ridge_penalty : float
+        The penalty ``lam`` used.
+    """
+
+    intercept: np.ndarray
+    slopes: np.ndarray
+    slopes_std: np.ndarray
+    gram_inv: np.ndarray
+    fallback: np.ndarray
+    ridge_penalty: float
+
+
+def default_scale(X_c) -> np.ndarray:
+    """Return the column standard deviations of ``X_c`` (ddof=0), 1.0 for constant columns."""
+    X_c = np.asarray(X_c, dtype=np.float64)
+    scale = X_c.std(axis=0) if X_c.shape[0] else np.ones(X_c.shape[1])
+    # A constant column carries no local slope; any positive scale keeps z finite.
+    return np.where(scale > 0.0, scale, 1.0)
+
+
+def _pair_indices(k: int):
+    return np.triu_indices(k)
+
+
+def local_moments(W, X_c, y, Q_c, *, degree: int, scale=None) -> LocalMoments:
+    """Return the weighted moments of ``(X_c, y)`` at each query under the weights ``W``.
+
+    Parameters
+    ----------
+    W : scipy.sparse matrix of shape (m, n)
+        Weights of the training rows for each query (CSR preferred; rows normally sum to
+        one). A dense ndarray is accepted too.
+    X_c : array-like of shape (n, k)
+        Correction columns of the training rows (ignored for ``degree=0``).
+    y : array-like of shape (n,)
+        Training responses.
+    Q_c : array-like of shape (m, k)
+        Correction columns of the queries.
+    degree : {0, 1}
+        Local constant or local linear.
+    scale : array-like of shape (k,), optional
+        Column scales for standardising; default :func:`default_scale` of ``X_c``.
+
+    Returns
+    -------
+    LocalMoments
+
+    Notes
+    -----
+    The moments are computed as ``W @ [1, x, x x^T, y, x y]`` (one sparse x dense
+    product) and then centred at each query algebraically. To limit cancellation the
+    columns are first centred at their training mean and divided by ``scale``.
+    """
+    if degree not in (0, 1):
+        raise ValueError(f"The 'degree' parameter must be 0 or 1. Got {degree!r} instead.")
+    if not sp.issparse(W):
+        W = np.asarray(W, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64).ravel()
+    m, n = W.shape
+    if y.shape[0] != n:
+        raise ValueError(
+            f"The 'y' parameter must have one entry per column of W ({n}). "
+            f"Got {y.shape[0]} instead."
+        )
+    if degree == 0:
+        B = np.stack([np.ones(n), y], axis=1)
+        R = np.asarray(W @ B)
+        empty = np.zeros((m, 0))
+        return LocalMoments(
+            degree=0,
+            scale=np.ones(0),
+            s0=R[:, 0].copy(),
+            s1=empty,
+            s2=np.zeros((m, 0, 0)),
+            t0=R[:, 1].copy(),
+            t1=empty.copy(),
+            roundoff=empty.copy(),
+        )
+
+    X_c = np.asarray(X_c, dtype=np.float64)
+    Q_c = np.asarray(Q_c, dtype=np.float64)
+    if X_c.ndim != 2 or X_c.shape[0] != n:
+        raise ValueError(
+            f"The 'X_c' parameter must be a 2-d array with {n} rows (one per column of W). "
+            f"Got shape {X_c.shape} instead."
+        )
+    k = X_c.shape[1]
+    if Q_c.ndim != 2 or Q_c.shape != (m, k):
+        raise ValueError(
+            f"The 'Q_c' parameter must have shape ({m}, {k}) (one row per row of W). "
+            f"Got shape {Q_c.shape} instead."
+        )
+    scale = default_scale(X_c) if scale is None else np.asarray(scale, dtype=np.float64)
+    if scale.shape != (k,) or not np.all(np.isfinite(scale)) or np.any(scale <= 0):
+        raise ValueError(
+            f"The 'scale' parameter must hold {k} positive finite values (one per "
+            f"correction column). Got {scale!r} instead."
+        )
+    centre = X_c.mean(axis=0) if n else np.zeros(k)
+    Xs = (X_c - centre) / scale
+    Qs = (Q_c - centre) / scale
+    iu, ju = _pair_indices(k)
+    B = np.concatenate(
+        [np.ones((n, 1)), Xs, Xs[:, iu] * Xs[:, ju], y[:, None], Xs * y[:, None]], axis=1
+    )
+    R = np.asarray(W @ B)
+    p = len(iu)
+    s0 = R[:, 0]
+    mx = R[:, 1 : 1 + k]
+    mxx_flat = R[:, 1 + k : 1 + k + p]
+    t0 = R[:, 1 + k + p]
+    mxy = R[:, 2 + k + p :]
+
+    mxx = np.empty((m, k, k))
+    mxx[:, iu, ju] = mxx_flat
+    mxx[:, ju, iu] = mxx_flat
+    s1 = mx - s0[:, None] * Qs
+    # sum w (x - q)(x - q)^T = sum w x x^T - (sum w x) q^T - q (sum w x)^T + s0 q q^T
+    s2 = (
+        mxx
+        - mx[:, :, None] * Qs[:, None, :]
+        - Qs[:, :, None] * mx[:, None, :]
+        + s0[:, None, None] * Qs[:, :, None] * Qs[:, None, :]
+    )
+    t1 = mxy - t0[:, None] * Qs
+    diag = np.arange(k)
+    roundoff = (
+        _ROUNDOFF_MARGIN
+        * np.finfo(np.float64).eps
+        * (np.abs(mxx[:, diag, diag]) + np.abs(s0)[:, None] * Qs**2)
+    )
+    return LocalMoments(
+        degree=1, scale=scale, s0=s0, s1=s1, s2=s2, t0=t0, t1=t1, roundoff=roundoff
+    )
+
+
+def _check_penalty(ridge_penalty) -> float:
+    try:
+        lam = float(ridge_penalty)
+    except (TypeError, ValueError):
+        lam = np.nan
+    if isinstance(ridge_penalty, bool) or not np.isfinite(lam) or lam < 0.0:
+        raise ValueError(
+            "The 'ridge_penalty' parameter must be a finite float >= 0. "
+            f"Got {ridge_penalty!r} instead."
+        )
+    return lam
+
+
+def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
+    """Return the local fits at every query from precomputed moments.
+
+    Parameters
+    ----------
+    moments : LocalMoments
+        From :func:`local_moments`.
+    ridge_penalty : float, default=0.0
+        Penalty ``lam >= 0`` on the standardised slopes (intercept unpenalised); see the
+        module notes for its scaling. Ignored for degree 0.
+
+    Returns
+    -------
+    LocalFit
+
+    Notes
+    -----
+    Only the small per-query systems are solved (batched), so calling this again with
+    another penalty costs ``O(m k^3)`` and does not touch the training data. The slope
+    block is solved through its Schur complement
+    ``S = s2 - s1 s1^T / s0 + lam s0 I`` (the weighted local covariance, penalised),
+    which is better conditioned than the full Gram matrix.
+    """
+    lam = _check_penalty(ridge_penalty)
+    s0 = moments.s0
+    m = s0.shape[0]
+    k = moments.s1.shape[1]
+    empty = ~(s0 > 0.0)
+    n_empty = int(empty.sum())
+    if n_empty:
+        warnings.warn(
+            f"{n_empty} of {m} queries have zero total weight; their predictions are NaN.",
+            RuntimeWarning,
+            stacklevel=2,
+        )
+    safe_s0 = np.where(empty, 1.0, s0)
+    mean = moments.t0 / safe_s0
+
+    if moments.degree == 0 or k == 0:
+        intercept = np.where(empty, np.nan, mean)
+        gram_inv = np.where(empty, np.nan, 1.0 / safe_s0)[:, None, None]
+        slopes = np.zeros((m, k))
+        slopes[empty] = np.nan
+        return LocalFit(
+            intercept=intercept,
+            slopes=slopes,
+            slopes_std=slopes.copy(),
+            gram_inv=gram_inv,
+            fallback=np.zeros(m, dtype=bool),
+            ridge_penalty=lam,
+        )
+
+    s1, t1 = moments.s1, moments.t1
+    eye = np.eye(k)
+    S = (
+        moments.s2
+        - s1[:, :, None] * s1[:, None, :] / safe_s0[:, None, None]
+        + (lam * safe_s0)[:, None, None] * eye
+    )
+    S = 0.5 * (S + np.swapaxes(S, 1, 2))
+    dS = np.diagonal(S, axis1=1, axis2=2)
+    degenerate = np.any(dS <= moments.roundoff, axis=1) | empty
+    if k > 1:
+        d = np.sqrt(np.where(dS > 0, dS, 1.0))
+        C = S / d[:, :, None] / d[:, None, :]
+        ev = np.linalg.eigvalsh(np.where(degenerate[:, None, None], eye, C))
+        degenerate |= ev[:, 0] <= COLLINEARITY_RCOND * ev[:, -1]
+    S_ok = np.where(degenerate[:, None, None], eye, S)
+
+    r = t1 - s1 * mean[:, None]
+    rhs = np.concatenate([r[:, :, None], s1[:, :, None], np.broadcast_to(eye, (m, k, k))], 2)
+    sol = np.linalg.solve(S_ok, rhs)
+    b = sol[:, :, 0]
+    Sinv_s1 = sol[:, :, 1]
+    Sinv = sol[:, :, 2:]
+    a = mean - np.einsum("mk,mk->m", s1, b) / safe_s0
+
+    gram_inv = np.empty((m, k + 1, k + 1))
+    gram_inv[:, 0, 0] = 1.0 / safe_s0 + np.einsum("mk,mk->m", s1, Sinv_s1) / safe_s0**2
+    gram_inv[:, 0, 1:] = -Sinv_s1 / safe_s0[:, None]
+    gram_inv[:, 1:, 0] = gram_inv[:, 0, 1:]
+    gram_inv[:, 1:, 1:] = Sinv
+
+    fallback = degenerate & ~empty
+    a = np.where(degenerate, mean, a)
+    b[degenerate] = 0.0
+    gram_inv[degenerate] = 0.0
+    gram_inv[degenerate, 0, 0] = 1.0 / safe_s0[degenerate]
+    a[empty] = np.nan
+    b[empty] = np.nan
+    gram_inv[empty] = np.nan
+    return LocalFit(
+        intercept=a,
+        slopes=b / moments.scale,
+        slopes_std=b,
+        gram_inv=gram_inv,
+        fallback=fallback,
+        ridge_penalty=lam,
+    )
+
+
+def equivalent_kernel(W, X_c, Q_c, fit: LocalFit, scale=None) -> sp.csr_matrix:
+    """Return the equivalent-kernel weights ``L`` (CSR, ``W``'s sparsity) of a local fit.
+
+    ``L[q, i] = e_1^T M_q^{-1} w_i(q) [1, z_i(q)]``, so that ``L @ y`` reproduces
+    ``fit.intercept``. For degree 1 at ``ridge_penalty=0`` every non-empty row sums to
+    one (the fit reproduces constants); for degree 0 ``L`` is ``W`` with rows normalised.
+    Rows of ``W`` with zero total weight are empty.
+
+    Parameters
+    ----------
+    W : scipy.sparse matrix of shape (m, n)
+        The weights passed to :func:`local_moments`.
+    X_c : array-like of shape (n, k)
+        Correction columns of the training rows.
+    Q_c : array-like of shape (m, k)
+        Correction columns of the queries.
+    fit : LocalFit
+        From :func:`solve_local` on the moments of ``(W, X_c, Q_c)``.
+    scale : array-like of shape (k,), optional
+        The scale used in :func:`local_moments` (``moments.scale``); default
+        :func:`default_scale` of ``X_c``.
+
+    Returns
+    -------
+    scipy.sparse.csr_matrix of shape (m, n)
+    """
+    W = sp.csr_matrix(W, dtype=np.float64)
+    W.sum_duplicates()
+    m, n = W.shape
+    rows = np.repeat(np.arange(m), np.diff(W.indptr))
+    g = fit.gram_inv[:, 0, :]
+    data = W.data * g[rows, 0]
+    k = g.shape[1] - 1
+    if k:
+        X_c = np.asarray(X_c, dtype=np.float64)
+        Q_c = np.asarray(Q_c, dtype=np.float64)
+        scale = default_scale(X_c) if scale is None else np.asarray(scale, dtype=np.float64)
+        Z = (X_c[W.indices] - Q_c[rows]) / scale
+        data = data + W.data * np.einsum("ik,ik->i", g[rows, 1:], Z)
+    data = np.where(np.isnan(data), 0.0, data)
+    L = sp.csr_matrix((data, W.indices.copy(), W.indptr.copy()), shape=(m, n))
+    return L
