@@ -1,6 +1,6 @@
 """hedgerow: interactive smoothing diagnostics for forest-based regression."""
 
-from hedgerow.estimators import HonestForestRegressor
+from hedgerow.estimators import HonestForestRegressor, LocalLinearForestRegressor
 
-__all__ = ["HonestForestRegressor"]
+__all__ = ["HonestForestRegressor", "LocalLinearForestRegressor"]
 __version__ = "0.1.0.dev0"

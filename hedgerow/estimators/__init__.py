@@ -1,5 +1,6 @@
 """The four estimators, all with the scikit-learn API."""
 
 from hedgerow.estimators._forest import HonestForestRegressor
+from hedgerow.estimators._local_linear_forest import LocalLinearForestRegressor
 
-__all__ = ["HonestForestRegressor"]
+__all__ = ["HonestForestRegressor", "LocalLinearForestRegressor"]

@@ -1,0 +1,351 @@
+"""The local linear forest: forest weights × a ridge-penalised local linear fit."""
+
+from __future__ import annotations
+
+import hashlib
+import warnings
+from collections import OrderedDict
+from numbers import Integral, Real
+
+import numpy as np
+from sklearn.linear_model import LassoCV
+from sklearn.utils._param_validation import StrOptions
+from sklearn.utils.validation import check_is_fitted
+
+from hedgerow._validation import (
+    check_fit_data,
+    check_predict_data,
+    preserve_fitted_state,
+    validate_params,
+)
+from hedgerow.estimators._forest import _ForestBase
+from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL
+from hedgerow.inference import linearised_tree_predictions, little_bags_variance
+from hedgerow.local import default_scale, local_moments, solve_local
+
+__all__ = ["LocalLinearForestRegressor", "RIDGE_GRID", "SPLIT_PENALTY_AUTO"]
+
+#: Penalties tried by ``ridge_penalty="auto"`` (on standardised slopes; see the solver).
+RIDGE_GRID = (0.0, 1e-4, 3e-4, 1e-3, 3e-3, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0)
+
+#: Penalty of the ridge fits inside the split rule when ``ridge_penalty="auto"``: the
+#: automatic choice needs the trees first, and node-level fits on few rows need some
+#: shrinkage whatever the final penalty.
+SPLIT_PENALTY_AUTO = 0.1
+
+_CACHE_SIZE = 4
+
+
+def _check_finite_penalty(value):
+    if isinstance(value, str):
+        return
+    if isinstance(value, bool) or not isinstance(value, Real) or not np.isfinite(value):
+        raise ValueError(
+            f"The 'ridge_penalty' parameter must be 'auto' or a finite float >= 0. "
+            f"Got {value!r} instead."
+        )
+
+
+class LocalLinearForestRegressor(_ForestBase):
+    """Local linear forest: honest forest weights in a ridge-penalised local linear fit.
+
+    At a query x the prediction is the intercept a(x) of
+
+        min_{a, b}  sum_i alpha_i(x) (y_i - a - z_i(x)' b)^2 + lambda ||b||^2,
+
+    with alpha_i(x) the forest weights (rows sum to 1), z_i(x) the correction columns of
+    row i minus those of x, divided by the training standard deviation of each column
+    (so lambda acts on standardised slopes), and the intercept unpenalised.
+
+    Parameters
+    ----------
+    n_estimators, subsample_rate, trees_per_bag, honest, min_samples_leaf, max_features,
+    max_depth, random_state, n_jobs
+        As in :class:`HonestForestRegressor`.
+    ridge_penalty : float >= 0 or "auto", default="auto"
+        lambda above. "auto" picks it from ``RIDGE_GRID`` by out-of-bag squared error,
+        re-solving cached out-of-bag moments (no refit).
+    correction_features : "auto", None or list, default="auto"
+        Columns entering the local line. "auto": lasso screening (``LassoCV`` on
+        standardised columns, 5 folds) keeps the columns with non-zero coefficients, at
+        least the one most correlated with y. None: all columns. A list of column indices
+        or, for DataFrame input, column names.
+    split_rule : {"ridge_residual", "mean"}, default="ridge_residual"
+        "ridge_residual": each node is split by CART on the residuals of a ridge fit of y
+        on the correction columns in that node (penalty ``ridge_penalty``, or
+        ``SPLIT_PENALTY_AUTO`` when that is "auto"). "mean": plain CART on y.
+
+    Attributes
+    ----------
+    correction_features_ : ndarray of int
+        Indices of the correction columns.
+    ridge_penalty_ : float
+        The penalty in use.
+    ridge_path_ : dict or None
+        With "auto": ``{"ridge_penalty": grid, "oob_mse": errors}``.
+    correction_scale_ : ndarray
+        Standard deviations standardising the correction columns.
+
+    Notes
+    -----
+    Standard errors: little bags on per-tree linearised predictions with the forest-level
+    Gram matrix held fixed (see ``hedgerow.inference._little_bags``):
+    psi_t(x) = a(x) + mean over the fill rows i of x's leaf in tree t of
+    c(x)'[1, z_i(x)] (y_i - a(x) - z_i(x)' b(x)), c(x) the first row of the inverse
+    penalised Gram matrix.
+    """
+
+    _parameter_constraints: dict = {
+        **_ForestBase._parameter_constraints,
+        "ridge_penalty": [StrOptions({"auto"}), Real],
+        "correction_features": [StrOptions({"auto"}), None, "array-like"],
+        "split_rule": [StrOptions({"ridge_residual", "mean"})],
+    }
+
+    def __init__(
+        self,
+        n_estimators=2000,
+        *,
+        subsample_rate=0.5,
+        trees_per_bag="auto",
+        honest=True,
+        min_samples_leaf=5,
+        max_features=None,
+        max_depth=None,
+        ridge_penalty="auto",
+        correction_features="auto",
+        split_rule="ridge_residual",
+        random_state=None,
+        n_jobs=None,
+    ):
+        self.n_estimators = n_estimators
+        self.subsample_rate = subsample_rate
+        self.trees_per_bag = trees_per_bag
+        self.honest = honest
+        self.min_samples_leaf = min_samples_leaf
+        self.max_features = max_features
+        self.max_depth = max_depth
+        self.ridge_penalty = ridge_penalty
+        self.correction_features = correction_features
+        self.split_rule = split_rule
+        self.random_state = random_state
+        self.n_jobs = n_jobs
+
+    # -- fitting -------------------------------------------------------------------------
+    def _resolve_correction_features(self, X, y) -> np.ndarray:
+        d = X.shape[1]
+        spec = self.correction_features
+        if isinstance(spec, str):  # "auto": lasso screening
+            scale = default_scale(X)
+            Xs = (X - X.mean(axis=0)) / scale
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                lasso = LassoCV(cv=min(5, X.shape[0]), random_state=0)
+                lasso.fit(Xs, y)
+            keep = np.flatnonzero(np.abs(lasso.coef_) > 1e-10)
+            if keep.size == 0:
+                yc = y - y.mean()
+                corr = np.abs(Xs.T @ yc)
+                keep = np.array([int(np.argmax(corr))])
+            return keep.astype(np.int64)
+        if spec is None:
+            return np.arange(d, dtype=np.int64)
+        items = list(np.asarray(spec, dtype=object).ravel())
+        if len(items) == 0:
+            raise ValueError(
+                "The 'correction_features' parameter must name at least one column. "
+                "Got an empty list instead."
+            )
+        names = getattr(self, "feature_names_in_", None)
+        out = []
+        for item in items:
+            if isinstance(item, str):
+                if names is None:
+                    raise ValueError(
+                        f"The 'correction_features' parameter holds the column name "
+                        f"{item!r}, but X has no column names (pass a DataFrame or use "
+                        f"column indices)."
+                    )
+                where = np.flatnonzero(names == item)
+                if where.size == 0:
+                    raise ValueError(
+                        f"The 'correction_features' parameter must list columns of X; "
+                        f"known columns are {list(names)}. Got unknown name {item!r}."
+                    )
+                out.append(int(where[0]))
+            elif isinstance(item, Integral | np.integer) and not isinstance(item, bool):
+                if not -d <= int(item) < d:
+                    raise ValueError(
+                        f"The 'correction_features' parameter must hold column indices in "
+                        f"[0, {d}). Got {item!r} instead."
+                    )
+                out.append(int(item) % d)
+            else:
+                raise TypeError(
+                    f"The 'correction_features' parameter must be 'auto', None, or a list of "
+                    f"column indices or names. Got element {item!r} instead."
+                )
+        return np.array(sorted(set(out)), dtype=np.int64)
+
+    def fit(self, X, y, *, progress=None):
+        """Grow the forest, choose the correction columns and penalty; return ``self``."""
+        with preserve_fitted_state(self):
+            validate_params(self)
+            _check_finite_penalty(self.ridge_penalty)
+            if not isinstance(self.ridge_penalty, str) and self.ridge_penalty < 0:
+                raise ValueError(
+                    f"The 'ridge_penalty' parameter must be 'auto' or a finite float >= 0. "
+                    f"Got {self.ridge_penalty!r} instead."
+                )
+            X, y = check_fit_data(self, X, y)
+            cols = self._resolve_correction_features(X, y)
+            Xc = np.ascontiguousarray(X[:, cols])
+            scale = default_scale(Xc)
+            Z = (Xc - Xc.mean(axis=0)) / scale
+            auto = isinstance(self.ridge_penalty, str)
+            split_penalty = SPLIT_PENALTY_AUTO if auto else float(self.ridge_penalty)
+            rule = RULE_RIDGE_RESIDUAL if self.split_rule == "ridge_residual" else RULE_MEAN
+            forest, l, mtry, s = self._grow(
+                X, y, rule=rule, Z=Z, split_penalty=split_penalty, progress=progress
+            )
+        self._set_forest_state(X, y, forest, l, mtry, s)
+        self.correction_features_ = cols
+        self.correction_scale_ = scale
+        self._Xc = Xc
+        self._cache = OrderedDict()
+        self._oob_moments = None
+        if auto:
+            grid = np.array(RIDGE_GRID)
+            mse = self.ridge_path(grid)
+            self.ridge_path_ = {"ridge_penalty": grid, "oob_mse": mse}
+            self.ridge_penalty_ = float(grid[int(np.nanargmin(mse))])
+        else:
+            self.ridge_path_ = None
+            self.ridge_penalty_ = float(self.ridge_penalty)
+        return self
+
+    # -- cached pieces -------------------------------------------------------------------
+    def _query_state(self, X):
+        """Return (leaves, W, moments) of the queries X, cached by the bytes of X."""
+        key = hashlib.blake2b(np.ascontiguousarray(X).view(np.uint8), digest_size=16).digest()
+        key = (key, X.shape)
+        hit = self._cache.get(key)
+        if hit is not None:
+            self._cache.move_to_end(key)
+            return hit
+        leaves = self._leaves(X)
+        W, _ = self.forest_.weights(leaves, n_jobs=self._n_threads())
+        mom = local_moments(
+            W, self._Xc, self.y_train_, X[:, self.correction_features_], degree=1,
+            scale=self.correction_scale_,
+        )
+        state = (leaves, W, mom)
+        self._cache[key] = state
+        while len(self._cache) > _CACHE_SIZE:
+            self._cache.popitem(last=False)
+        return state
+
+    def _oob_state(self):
+        if self._oob_moments is None:
+            leaves, usable = self._oob_parts()
+            W, n_used = self.forest_.weights(leaves, usable, n_jobs=self._n_threads())
+            mom = local_moments(
+                W, self._Xc, self.y_train_, self._Xc, degree=1, scale=self.correction_scale_
+            )
+            self._oob_moments = (leaves, usable, W, n_used, mom)
+        return self._oob_moments
+
+    def _penalty(self, ridge_penalty):
+        if ridge_penalty is None:
+            return self.ridge_penalty_
+        _check_finite_penalty(ridge_penalty)
+        if isinstance(ridge_penalty, str) or ridge_penalty < 0:
+            raise ValueError(
+                f"The 'ridge_penalty' argument must be a finite float >= 0. "
+                f"Got {ridge_penalty!r} instead."
+            )
+        return float(ridge_penalty)
+
+    def _solve(self, mom, lam):
+        with warnings.catch_warnings():
+            # zero-weight rows are reported by the caller, once
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return solve_local(mom, lam)
+
+    def _std(self, leaves, usable, Qc, fit):
+        self._require_bags()
+        coef = np.column_stack([fit.intercept, fit.slopes_std])
+        c0 = fit.gram_inv[:, 0, :]
+        psi = linearised_tree_predictions(
+            leaves, usable, self.forest_, self._Xc, self.y_train_, Qc,
+            self.correction_scale_, np.nan_to_num(coef), np.nan_to_num(c0),
+        )
+        return little_bags_variance(psi, self.trees_per_bag_)
+
+    # -- public --------------------------------------------------------------------------
+    def ridge_path(self, ridge_penalties) -> np.ndarray:
+        """Return out-of-bag mean squared error for each penalty (cached moments, no refit)."""
+        check_is_fitted(self)
+        _, _, _, n_used, mom = self._oob_state()
+        ok = n_used > 0
+        out = []
+        for lam in np.atleast_1d(ridge_penalties):
+            fit = self._solve(mom, self._penalty(float(lam)))
+            out.append(float(np.mean((fit.intercept[ok] - self.y_train_[ok]) ** 2)))
+        return np.array(out)
+
+    def predict(self, X, return_std=False, *, ridge_penalty=None):
+        """Return predictions (and little-bags standard errors) at the rows of X.
+
+        ``ridge_penalty`` overrides the fitted penalty for this call; the weighted moments
+        of X are cached, so another penalty re-solves only the small local systems.
+        """
+        X = check_predict_data(self, X)
+        lam = self._penalty(ridge_penalty)
+        if return_std:
+            self._require_bags()
+        leaves, _, mom = self._query_state(X)
+        fit = self._solve(mom, lam)
+        if not return_std:
+            return fit.intercept
+        var = self._std(leaves, None, X[:, self.correction_features_], fit)
+        return fit.intercept, var.std
+
+    def local_fit(self, X, *, ridge_penalty=None):
+        """Return the solver's ``LocalFit`` (intercept, slopes, Gram inverse) at X."""
+        X = check_predict_data(self, X)
+        _, _, mom = self._query_state(X)
+        return self._solve(mom, self._penalty(ridge_penalty))
+
+    def local_slopes(self, X, *, ridge_penalty=None):
+        """Return the local slopes (m × k) in original units of ``correction_features_``."""
+        return self.local_fit(X, ridge_penalty=ridge_penalty).slopes
+
+    def predict_variance(self, X, *, ridge_penalty=None):
+        """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
+        X = check_predict_data(self, X)
+        leaves, _, mom = self._query_state(X)
+        fit = self._solve(mom, self._penalty(ridge_penalty))
+        return self._std(leaves, None, X[:, self.correction_features_], fit)
+
+    def oob_predict(self, return_std=False, *, ridge_penalty=None):
+        """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
+        check_is_fitted(self)
+        lam = self._penalty(ridge_penalty)
+        if return_std:
+            self._require_bags()
+        leaves, usable, _, n_used, mom = self._oob_state()
+        self._warn_unusable(n_used, "training rows (out-of-bag)")
+        fit = self._solve(mom, lam)
+        if not return_std:
+            return fit.intercept
+        var = self._std(leaves, usable, self._Xc, fit)
+        return fit.intercept, var.std
+
+    def __getstate__(self):
+        state = dict(vars(self))
+        state["_cache"] = OrderedDict()
+        state["_oob_moments"] = None
+        state.pop("_oob_leaves", None)
+        state["_oob_leaves"] = None
+        return state
