@@ -15,7 +15,9 @@ from sklearn.utils import check_random_state
 __all__ = ["load_orchard_demo", "make_softplus_design", "softplus_truth"]
 
 
-def load_orchard_demo(n_samples: int = 800, random_state: int = 7) -> tuple[pd.DataFrame, pd.Series]:
+def load_orchard_demo(
+    n_samples: int = 800, random_state: int = 7
+) -> tuple[pd.DataFrame, pd.Series]:
     """Return ``(X, y)``: an invented hillside-orchard yield table for demos.
 
     Columns: ``slope_deg`` (terrain slope), ``sun_hours`` (daily sunshine),

@@ -295,6 +295,14 @@ class HonestForestRegressor(_ForestBase):
             self._require_bags()
         return self._predict_from_leaves(self._leaves(X), None, return_std)
 
+    def predict_variance(self, X):
+        """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
+        X = check_predict_data(self, X)
+        self._require_bags()
+        return little_bags_variance(
+            self._tree_predictions(self._leaves(X)), self.trees_per_bag_
+        )
+
     def oob_predict(self, return_std=False):
         """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
         check_is_fitted(self)

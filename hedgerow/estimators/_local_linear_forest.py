@@ -8,7 +8,7 @@ from collections import OrderedDict
 from numbers import Integral, Real
 
 import numpy as np
-from sklearn.linear_model import LassoCV
+from sklearn.linear_model import Lasso, LassoCV
 from sklearn.utils._param_validation import StrOptions
 from sklearn.utils.validation import check_is_fitted
 
@@ -46,6 +46,35 @@ def _check_finite_penalty(value):
         )
 
 
+def _lasso_screen(Xs, y) -> np.ndarray:
+    """Return the columns whose linear or quadratic lasso term is non-zero (1-s.e. penalty).
+
+    ``LassoCV`` (5 folds) gives the cross-validated error path; the penalty used is the
+    largest one whose mean error is within one standard error of the minimum (the
+    one-standard-error rule, Hastie, Tibshirani & Friedman 2009, Sec. 7.10). The
+    error-minimising penalty is tuned for prediction and keeps many noise columns, and
+    every noise column in the local line costs variance and edge bias.
+    """
+    d = Xs.shape[1]
+    # linear and centred quadratic terms: a column whose effect is curved but not
+    # monotone (a valley) has no linear association, yet a local line in it still helps
+    sq = Xs**2
+    sq = sq - sq.mean(axis=0)
+    sd = sq.std(axis=0)
+    basis = np.hstack([Xs, sq / np.where(sd > 0, sd, 1.0)])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        cv = LassoCV(cv=min(5, Xs.shape[0]), random_state=0).fit(basis, y)
+        mean = cv.mse_path_.mean(axis=1)
+        se = cv.mse_path_.std(axis=1, ddof=1) / np.sqrt(cv.mse_path_.shape[1])
+        best = int(np.argmin(mean))
+        ok = np.flatnonzero(mean <= mean[best] + se[best])
+        alpha = float(np.max(cv.alphas_[ok]))
+        coef = Lasso(alpha=alpha).fit(basis, y).coef_
+    hit = np.abs(coef) > 1e-10
+    return np.flatnonzero(hit[:d] | hit[d:])
+
+
 class LocalLinearForestRegressor(_ForestBase):
     """Local linear forest: honest forest weights in a ridge-penalised local linear fit.
 
@@ -66,10 +95,11 @@ class LocalLinearForestRegressor(_ForestBase):
         lambda above. "auto" picks it from ``RIDGE_GRID`` by out-of-bag squared error,
         re-solving cached out-of-bag moments (no refit).
     correction_features : "auto", None or list, default="auto"
-        Columns entering the local line. "auto": lasso screening (``LassoCV`` on
-        standardised columns, 5 folds) keeps the columns with non-zero coefficients, at
-        least the one most correlated with y. None: all columns. A list of column indices
-        or, for DataFrame input, column names.
+        Columns entering the local line. "auto": lasso screening on standardised
+        columns and their centred squares (``LassoCV``, 5 folds, penalty by the
+        one-standard-error rule) keeps a column if its linear or quadratic term is
+        non-zero, at least the one most correlated with y. None: all columns. A list of
+        column indices or, for DataFrame input, column names.
     split_rule : {"ridge_residual", "mean"}, default="ridge_residual"
         "ridge_residual": each node is split by CART on the residuals of a ridge fit of y
         on the correction columns in that node (penalty ``ridge_penalty``, or
@@ -138,11 +168,7 @@ class LocalLinearForestRegressor(_ForestBase):
         if isinstance(spec, str):  # "auto": lasso screening
             scale = default_scale(X)
             Xs = (X - X.mean(axis=0)) / scale
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                lasso = LassoCV(cv=min(5, X.shape[0]), random_state=0)
-                lasso.fit(Xs, y)
-            keep = np.flatnonzero(np.abs(lasso.coef_) > 1e-10)
+            keep = _lasso_screen(Xs, y)
             if keep.size == 0:
                 yc = y - y.mean()
                 corr = np.abs(Xs.T @ yc)
@@ -324,6 +350,7 @@ class LocalLinearForestRegressor(_ForestBase):
     def predict_variance(self, X, *, ridge_penalty=None):
         """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
         X = check_predict_data(self, X)
+        self._require_bags()
         leaves, _, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
         return self._std(leaves, None, X[:, self.correction_features_], fit)

@@ -177,7 +177,7 @@ def grow_tree(
     Grow rows and fill rows are kept in separate per-feature sorted lists, so a node's
     role counts are segment lengths and the scans have no role branches.
     """
-    np.random.seed(seed)
+    np.random.seed(seed)  # noqa: NPY002 (numba: per-thread legacy generator)
     d = X.shape[1]
     g_rows, g_order, g_vals = _local_lists(global_order, sample_rows, grow_mask, X)
     f_rows, f_order, f_vals = _local_lists(global_order, sample_rows, fill_mask, X)
@@ -261,7 +261,7 @@ def grow_tree(
             n_drawn = 0
             n_visited = 0
             while n_drawn < d and n_visited < max_features:
-                jpos = n_drawn + np.random.randint(d - n_drawn)
+                jpos = n_drawn + np.random.randint(d - n_drawn)  # noqa: NPY002
                 tmp = feats[n_drawn]
                 feats[n_drawn] = feats[jpos]
                 feats[jpos] = tmp

@@ -200,7 +200,8 @@ class ForestArrays:
             return sp.csr_matrix((0, self.n_train)), np.zeros(0, dtype=np.int64)
         offsets = np.cumsum([0] + [p[1].shape[0] for p in parts])
         indptr = np.concatenate(
-            [np.zeros(1, dtype=np.int64)] + [p[0][1:] + off for p, off in zip(parts, offsets)]
+            [np.zeros(1, dtype=np.int64)]
+            + [p[0][1:] + off for p, off in zip(parts, offsets[:-1], strict=True)]
         )
         indices = np.concatenate([p[1] for p in parts])
         data = np.concatenate([p[2] for p in parts])
