@@ -298,13 +298,14 @@ class LocalLinearForestRegressor(_ForestBase):
             warnings.simplefilter("ignore", RuntimeWarning)
             return solve_local(mom, lam)
 
-    def _std(self, leaves, usable, Qc, fit):
+    def _std(self, leaves, usable, W, Qc, fit):
         self._require_bags()
         coef = np.column_stack([fit.intercept, fit.slopes_std])
         c0 = fit.gram_inv[:, 0, :]
         psi = linearised_tree_predictions(
             leaves, usable, self.forest_, self._Xc, self.y_train_, Qc,
-            self.correction_scale_, np.nan_to_num(coef), np.nan_to_num(c0),
+            self.correction_scale_, np.nan_to_num(coef), np.nan_to_num(c0), W,
+            n_jobs=self._n_threads(),
         )
         return little_bags_variance(psi, self.trees_per_bag_)
 
@@ -330,11 +331,11 @@ class LocalLinearForestRegressor(_ForestBase):
         lam = self._penalty(ridge_penalty)
         if return_std:
             self._require_bags()
-        leaves, _, mom = self._query_state(X)
+        leaves, W, mom = self._query_state(X)
         fit = self._solve(mom, lam)
         if not return_std:
             return fit.intercept
-        var = self._std(leaves, None, X[:, self.correction_features_], fit)
+        var = self._std(leaves, None, W, X[:, self.correction_features_], fit)
         return fit.intercept, var.std
 
     def local_fit(self, X, *, ridge_penalty=None):
@@ -351,9 +352,9 @@ class LocalLinearForestRegressor(_ForestBase):
         """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
         X = check_predict_data(self, X)
         self._require_bags()
-        leaves, _, mom = self._query_state(X)
+        leaves, W, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
-        return self._std(leaves, None, X[:, self.correction_features_], fit)
+        return self._std(leaves, None, W, X[:, self.correction_features_], fit)
 
     def oob_predict(self, return_std=False, *, ridge_penalty=None):
         """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
@@ -361,12 +362,12 @@ class LocalLinearForestRegressor(_ForestBase):
         lam = self._penalty(ridge_penalty)
         if return_std:
             self._require_bags()
-        leaves, usable, _, n_used, mom = self._oob_state()
+        leaves, usable, W, n_used, mom = self._oob_state()
         self._warn_unusable(n_used, "training rows (out-of-bag)")
         fit = self._solve(mom, lam)
         if not return_std:
             return fit.intercept
-        var = self._std(leaves, usable, self._Xc, fit)
+        var = self._std(leaves, usable, W, self._Xc, fit)
         return fit.intercept, var.std
 
     def __getstate__(self):

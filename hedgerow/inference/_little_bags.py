@@ -116,13 +116,41 @@ def little_bags_variance(psi: np.ndarray, trees_per_bag: int) -> LittleBagsVaria
     return LittleBagsVariance(variance=variance, raw=raw, tau=tau, n_bags=Gx)
 
 
-@njit(cache=True, nogil=True)
-def _linearised_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coef, c0):
+@njit(cache=True, nogil=True, error_model="numpy")
+def _linearised_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coef, c0,
+                      w_ptr, w_idx, n):
+    """Per-tree linearised predictions of a query chunk.
+
+    rho_i(x) is computed once per query for the rows of its weight row (``w_ptr``,
+    ``w_idx``: CSR support of the forest weights, a superset of every usable leaf's rows),
+    then averaged over each tree's leaf.
+    """
     m, B = leaves.shape
     k = Xc.shape[1]
     all_usable = usable.shape[0] == 0
     out = np.full((m, B), np.nan)
+    rho = np.zeros(n)
+    al = np.empty(k)
+    be = np.empty(k)
     for i in range(m):
+        # lev_r = c0 . [1, z_r], resid_r = y_r - a - b . z_r with z_r = (x_r - q) / scale,
+        # expanded so that each row costs 2k multiply-adds
+        lev0 = c0[i, 0]
+        res0 = -coef[i, 0]
+        for j in range(k):
+            al[j] = c0[i, j + 1] / scale[j]
+            be[j] = coef[i, j + 1] / scale[j]
+            lev0 -= al[j] * Qc[i, j]
+            res0 += be[j] * Qc[i, j]
+        for p in range(w_ptr[i], w_ptr[i + 1]):
+            r = w_idx[p]
+            lev = lev0
+            res = res0 + y[r]
+            for j in range(k):
+                x = Xc[r, j]
+                lev += al[j] * x
+                res -= be[j] * x
+            rho[r] = lev * res
         for t in range(B):
             if not all_usable and not usable[i, t]:
                 continue
@@ -133,31 +161,43 @@ def _linearised_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coe
                 continue
             acc = 0.0
             for p in range(a, b):
-                r = leaf_rows[p]
-                resid = y[r] - coef[i, 0]
-                lev = c0[i, 0]
-                for j in range(k):
-                    z = (Xc[r, j] - Qc[i, j]) / scale[j]
-                    resid -= coef[i, j + 1] * z
-                    lev += c0[i, j + 1] * z
-                acc += lev * resid
+                acc += rho[leaf_rows[p]]
             out[i, t] = coef[i, 0] + acc / (b - a)
     return out
 
 
 def linearised_tree_predictions(
-    leaves, usable, forest, Xc, y, Qc, scale, coef, c0
+    leaves, usable, forest, Xc, y, Qc, scale, coef, c0, W, n_jobs=1
 ) -> np.ndarray:
     """Return the (m, B) per-tree linearised predictions psi_t(x) (module docstring).
 
     ``coef`` (m, k+1) holds the forest's local intercept and standardised slopes, ``c0``
     (m, k+1) the first row of the inverse penalised Gram matrix; with k = 0 and c0 = 1
-    this is every tree's leaf mean. ``usable`` is (m, B) bool or None (all trees).
+    this is every tree's leaf mean. ``usable`` is (m, B) bool or None (all trees); ``W``
+    the CSR forest weights of the queries under the same usable trees.
     """
-    u = np.zeros((0, 0), dtype=np.bool_) if usable is None else np.ascontiguousarray(usable)
-    return _linearised_chunk(
-        np.ascontiguousarray(leaves), u, forest.leaf_ptr, forest.leaf_rows,
-        np.ascontiguousarray(Xc, dtype=np.float64), np.ascontiguousarray(y, dtype=np.float64),
-        np.ascontiguousarray(Qc, dtype=np.float64), np.ascontiguousarray(scale, dtype=np.float64),
-        np.ascontiguousarray(coef, dtype=np.float64), np.ascontiguousarray(c0, dtype=np.float64),
-    )
+    from hedgerow.forest._storage import _chunks, _map
+
+    u_all = np.zeros((0, 0), dtype=np.bool_)
+    Xc = np.ascontiguousarray(Xc, dtype=np.float64)
+    y = np.ascontiguousarray(y, dtype=np.float64)
+    Qc = np.ascontiguousarray(Qc, dtype=np.float64)
+    scale = np.ascontiguousarray(scale, dtype=np.float64)
+    coef = np.ascontiguousarray(coef, dtype=np.float64)
+    c0 = np.ascontiguousarray(c0, dtype=np.float64)
+    W = W.tocsr()
+
+    def run(ab):
+        lo, hi = ab
+        u = u_all if usable is None else np.ascontiguousarray(usable[lo:hi])
+        sub = W[lo:hi]
+        return _linearised_chunk(
+            np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, forest.leaf_rows, Xc, y,
+            Qc[lo:hi], scale, coef[lo:hi], c0[lo:hi], sub.indptr.astype(np.int64),
+            sub.indices.astype(np.int64), forest.n_train,
+        )
+
+    parts = _map(run, _chunks(leaves.shape[0], n_jobs), n_jobs)
+    if not parts:
+        return np.empty((0, leaves.shape[1]))
+    return np.concatenate(parts, axis=0)
