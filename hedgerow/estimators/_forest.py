@@ -193,6 +193,43 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         self._warn_unusable(n_used, "training rows (out-of-bag)")
         return W
 
+    def _tree_predictions(self, leaves, usable=None):
+        psi = self.leaf_values_[leaves]
+        if usable is not None:
+            psi = np.where(usable, psi, np.nan)
+        return psi
+
+    def _predict_from_leaves(self, leaves, usable, return_std):
+        psi = self._tree_predictions(leaves, usable)
+        with np.errstate(invalid="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            mean = np.nanmean(psi, axis=1) if usable is not None else psi.mean(axis=1)
+        if not return_std:
+            return mean
+        self._require_bags()
+        var = little_bags_variance(psi, self.trees_per_bag_)
+        return mean, var.std
+
+    def oob_local_average(self, return_std=False):
+        """Return the out-of-bag forest-weighted mean of y at the training rows."""
+        check_is_fitted(self)
+        if return_std:
+            self._require_bags()
+        leaves, usable = self._oob_parts()
+        self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
+        return self._predict_from_leaves(leaves, usable, return_std)
+
+    def local_average(self, X, return_std=False):
+        """Return the forest-weighted mean of y at X (the honest forest's prediction).
+
+        For a local linear forest this is the local-constant fit on the *same* trees and
+        weights, the comparison that isolates what the local line adds.
+        """
+        X = check_predict_data(self, X)
+        if return_std:
+            self._require_bags()
+        return self._predict_from_leaves(self._leaves(X), None, return_std)
+
     def predict_interval(self, X, level=0.95):
         """Return ``(lower, upper)`` pointwise normal confidence intervals at ``level``."""
         mean, std = self.predict(X, return_std=True)
@@ -270,30 +307,9 @@ class HonestForestRegressor(_ForestBase):
         self._set_forest_state(X, y, forest, l, mtry, s)
         return self
 
-    def _tree_predictions(self, leaves, usable=None):
-        psi = self.leaf_values_[leaves]
-        if usable is not None:
-            psi = np.where(usable, psi, np.nan)
-        return psi
-
-    def _predict_from_leaves(self, leaves, usable, return_std):
-        psi = self._tree_predictions(leaves, usable)
-        with np.errstate(invalid="ignore"), warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            mean = np.nanmean(psi, axis=1) if usable is not None else psi.mean(axis=1)
-        if not return_std:
-            return mean
-        self._require_bags()
-        var = little_bags_variance(psi, self.trees_per_bag_)
-        return mean, var.std
-
     def predict(self, X, return_std=False):
         """Return forest predictions (and their little-bags standard errors)."""
-        X = check_predict_data(self, X)
-        if return_std:
-            check_is_fitted(self)
-            self._require_bags()
-        return self._predict_from_leaves(self._leaves(X), None, return_std)
+        return self.local_average(X, return_std=return_std)
 
     def predict_variance(self, X):
         """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
@@ -305,9 +321,4 @@ class HonestForestRegressor(_ForestBase):
 
     def oob_predict(self, return_std=False):
         """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
-        check_is_fitted(self)
-        if return_std:
-            self._require_bags()
-        leaves, usable = self._oob_parts()
-        self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
-        return self._predict_from_leaves(leaves, usable, return_std)
+        return self.oob_local_average(return_std=return_std)

@@ -348,6 +348,28 @@ class LocalLinearForestRegressor(_ForestBase):
         """Return the local slopes (m × k) in original units of ``correction_features_``."""
         return self.local_fit(X, ridge_penalty=ridge_penalty).slopes
 
+    def slope_std(self, X, *, ridge_penalty=None):
+        """Return little-bags standard errors of the local slopes (m × k, original units).
+
+        Same linearisation as the prediction's, with row j+1 of the inverse Gram matrix
+        in place of the first row.
+        """
+        X = check_predict_data(self, X)
+        self._require_bags()
+        leaves, W, mom = self._query_state(X)
+        fit = self._solve(mom, self._penalty(ridge_penalty))
+        coef = np.nan_to_num(np.column_stack([fit.intercept, fit.slopes_std]))
+        Qc = X[:, self.correction_features_]
+        out = np.empty_like(fit.slopes)
+        for j in range(out.shape[1]):
+            psi = linearised_tree_predictions(
+                leaves, None, self.forest_, self._Xc, self.y_train_, Qc,
+                self.correction_scale_, coef, np.nan_to_num(fit.gram_inv[:, j + 1, :]), W,
+                n_jobs=self._n_threads(),
+            )
+            out[:, j] = little_bags_variance(psi, self.trees_per_bag_).std
+        return out / self.correction_scale_
+
     def predict_variance(self, X, *, ridge_penalty=None):
         """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
         X = check_predict_data(self, X)
