@@ -1,0 +1,282 @@
+"""Classical kernel smoothers: Nadaraya--Watson and local linear regression.
+
+Both are a kernel weighting of the training rows (:func:`hedgerow.kernels.kernel_weights`)
+times a local model (:mod:`hedgerow.local`), the same two pieces the forests use, so their
+neighbour weights, predictions and standard errors are directly comparable.
+"""
+
+from __future__ import annotations
+
+from numbers import Real
+
+import numpy as np
+from scipy.stats import norm
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.utils._param_validation import Interval, StrOptions
+
+from hedgerow._validation import (
+    as_float_array_1d,
+    check_fit_data,
+    check_level,
+    check_predict_data,
+    validate_params,
+)
+from hedgerow.kernels import (
+    KERNELS,
+    kernel_weights,
+    select_bandwidth_cv,
+    silverman_bandwidth,
+)
+from hedgerow.local import default_scale, equivalent_kernel, local_moments, solve_local
+
+__all__ = ["LocalLinearRegressor", "NadarayaWatsonRegressor"]
+
+# Set by check_fit_data; restored if a fit fails so that a failed fit changes nothing.
+_INPUT_ATTRS = ("n_features_in_", "feature_names_in_")
+
+
+class _KernelSmoother(RegressorMixin, BaseEstimator):
+    """Shared implementation; subclasses set the local polynomial degree."""
+
+    _degree = 0
+
+    _parameter_constraints: dict = {
+        "bandwidth": [
+            StrOptions({"cv", "silverman"}),
+            Interval(Real, 0, None, closed="neither"),
+            "array-like",
+        ],
+        "kernel": [StrOptions(set(KERNELS))],
+    }
+
+    def __init__(self, bandwidth="cv", kernel="gaussian"):
+        self.bandwidth = bandwidth
+        self.kernel = kernel
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.input_tags.allow_nan = False
+        tags.input_tags.sparse = False
+        return tags
+
+    def _resolve_bandwidth(self, X, y, scale):
+        """Return ``(bandwidth in the units of X, CVCurve or None)``."""
+        bw = self.bandwidth
+        d = X.shape[1]
+        if isinstance(bw, str):
+            if bw == "silverman":
+                return silverman_bandwidth(X), None
+            curve = select_bandwidth_cv(X, y, kernel=self.kernel, degree=self._degree)
+            return curve.bandwidth.copy(), curve
+        if isinstance(bw, bool | np.bool_):
+            raise ValueError(
+                "The 'bandwidth' parameter must be 'cv', 'silverman', a positive float or "
+                f"{d} positive floats (one per column). Got {bw!r} instead."
+            )
+        if np.ndim(bw) == 0:
+            values = np.full(d, float(bw))
+        else:
+            try:
+                values = as_float_array_1d("bandwidth", bw, length=d)
+            except (TypeError, ValueError) as exc:
+                if "entries" in str(exc) or "finite" in str(exc):
+                    raise
+                raise ValueError(
+                    "The 'bandwidth' parameter must be 'cv', 'silverman', a positive float "
+                    f"or {d} positive floats (one per column). Got {bw!r} instead."
+                ) from exc
+        if not np.all(values > 0):
+            raise ValueError(
+                "The 'bandwidth' parameter must be positive (in standard deviations of each "
+                f"column). Got {bw!r} instead."
+            )
+        return values * scale, None
+
+    def fit(self, X, y):
+        """Return the fitted estimator after choosing the bandwidths.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+
+        Returns
+        -------
+        self
+        """
+        validate_params(self)
+        saved = {a: self.__dict__[a] for a in _INPUT_ATTRS if a in self.__dict__}
+        try:
+            X, y = check_fit_data(self, X, y)
+            scale = default_scale(X)
+            bandwidth, curve = self._resolve_bandwidth(X, y, scale)
+        except BaseException:
+            for a in _INPUT_ATTRS:
+                self.__dict__.pop(a, None)
+            self.__dict__.update(saved)
+            raise
+        self.X_train_ = X
+        self.y_train_ = y
+        self.scale_ = scale
+        self.bandwidth_ = bandwidth
+        self.cv_curve_ = curve
+        # Filled on the first request for standard errors (see _training_variance).
+        self._variance_cache = {}
+        return self
+
+    def _local_fit(self, X):
+        W = kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel)
+        moments = local_moments(
+            W, self.X_train_, self.y_train_, X, degree=self._degree, scale=self.scale_
+        )
+        return W, solve_local(moments, 0.0)
+
+    def _training_variance(self):
+        """Return sigma^2(x_i) at the training rows: smoothed squared residuals."""
+        if "sigma2" not in self._variance_cache:
+            X = self.X_train_
+            W, fit = self._local_fit(X)
+            resid2 = (self.y_train_ - fit.intercept) ** 2
+            self._variance_cache["sigma2"] = np.asarray(W @ resid2).ravel()
+        return self._variance_cache["sigma2"]
+
+    def neighbour_weights(self, X):
+        """Return the kernel weights of the training rows for each row of ``X``.
+
+        Parameters
+        ----------
+        X : array-like of shape (m, n_features)
+
+        Returns
+        -------
+        scipy.sparse.csr_matrix of shape (m, n_train)
+            Non-negative entries, rows summing to one (empty for a query with no training
+            row inside a compact kernel's support). Gaussian weights below
+            ``hedgerow.kernels.GAUSSIAN_TRUNCATION`` of their row's maximum are dropped.
+        """
+        X = check_predict_data(self, X)
+        return kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel)
+
+    def predict(self, X, return_std=False):
+        """Return the smoother's estimate of E[y | x] (and its standard error).
+
+        Parameters
+        ----------
+        X : array-like of shape (m, n_features)
+        return_std : bool, default=False
+            Also return the standard error of each estimate.
+
+        Returns
+        -------
+        mean : ndarray of shape (m,)
+            NaN (with a ``RuntimeWarning``) where a compact kernel covers no training row.
+        std : ndarray of shape (m,)
+            Only if ``return_std``. The conditional-variance sandwich of a linear
+            smoother, ``Var yhat(x) = sum_i l_i(x)^2 sigma^2(x_i)``, with ``l`` the
+            equivalent kernel and ``sigma^2(x_i)`` the squared residuals smoothed with the
+            same weights (Fan & Gijbels 1996, ch. 4). It ignores smoothing bias.
+        """
+        X = check_predict_data(self, X)
+        W, fit = self._local_fit(X)
+        if not return_std:
+            return fit.intercept
+        L = equivalent_kernel(W, self.X_train_, X, fit, self.scale_)
+        var = np.asarray(L.multiply(L) @ self._training_variance()).ravel()
+        std = np.sqrt(np.maximum(var, 0.0))
+        std[np.isnan(fit.intercept)] = np.nan
+        return fit.intercept, std
+
+    def predict_interval(self, X, level=0.95):
+        """Return normal-theory confidence limits for E[y | x].
+
+        The interval is ``mean -/+ z * std`` with ``std`` from ``predict(X,
+        return_std=True)``. It is an interval for the smoother's mean and ignores
+        smoothing bias, so it undercovers where the bias is large (for example
+        Nadaraya--Watson near the edges of the data).
+
+        Parameters
+        ----------
+        X : array-like of shape (m, n_features)
+        level : float, default=0.95
+            Nominal coverage, in (0, 1).
+
+        Returns
+        -------
+        lower, upper : ndarray of shape (m,)
+        """
+        level = check_level(level)
+        mean, std = self.predict(X, return_std=True)
+        z = norm.ppf(0.5 + 0.5 * level)
+        return mean - z * std, mean + z * std
+
+
+_PARAMS_DOC = """
+    Parameters
+    ----------
+    bandwidth : {"cv", "silverman"}, float or array-like of shape (n_features,), \
+default="cv"
+        A float (or one float per column) is a bandwidth in standard deviations of each
+        column (ddof=0; a constant column counts as 1). ``"silverman"`` is Silverman's
+        rule of thumb per column. ``"cv"`` minimises the leave-one-out squared error with
+        one bandwidth per column (log grid of common factors, then coordinate-wise
+        refinement; see :func:`hedgerow.kernels.select_bandwidth_cv`).
+    kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
+        Product kernel over the columns.
+
+    Attributes
+    ----------
+    bandwidth_ : ndarray of shape (n_features,)
+        The bandwidth of each column in the column's own units.
+    scale_ : ndarray of shape (n_features,)
+        Column standard deviations used to express ``bandwidth`` in original units.
+    cv_curve_ : hedgerow.kernels.CVCurve or None
+        The bandwidth search (grid, path, leave-one-out errors) when ``bandwidth="cv"``,
+        otherwise None.
+    X_train_ : ndarray of shape (n_samples, n_features)
+    y_train_ : ndarray of shape (n_samples,)
+    n_features_in_ : int
+    feature_names_in_ : ndarray of str
+        Only when ``X`` had string column names.
+"""
+
+
+class NadarayaWatsonRegressor(_KernelSmoother):
+    """Nadaraya--Watson (local constant) kernel regression.
+
+    The estimate at ``x`` is the kernel-weighted mean of the training responses
+    (Nadaraya 1964; Watson 1964). Its bias near the edges of the data is of order ``h``
+    (Fan & Gijbels 1996), which local linear regression removes.
+    """
+
+    _degree = 0
+
+
+class LocalLinearRegressor(_KernelSmoother):
+    """Local linear kernel regression.
+
+    The estimate at ``x`` is the intercept of a kernel-weighted least-squares line
+    centred at ``x``; its slopes are available from :meth:`local_slopes`.
+    """
+
+    _degree = 1
+
+    def local_slopes(self, X):
+        """Return the local slopes at each row of ``X``, in the units of the columns.
+
+        Parameters
+        ----------
+        X : array-like of shape (m, n_features)
+
+        Returns
+        -------
+        ndarray of shape (m, n_features)
+            ``d yhat / d x_j`` of the local line at each query (zero where the local
+            design was singular and the fit fell back to the weighted mean).
+        """
+        X = check_predict_data(self, X)
+        return self._local_fit(X)[1].slopes
+
+
+# One parameter section for both smoothers, kept in one place.
+NadarayaWatsonRegressor.__doc__ += _PARAMS_DOC
+LocalLinearRegressor.__doc__ += _PARAMS_DOC

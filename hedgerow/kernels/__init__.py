@@ -1,0 +1,29 @@
+"""Kernel functions, sparse kernel weight matrices and bandwidth rules."""
+
+from hedgerow.kernels._bandwidth import (
+    CV_GRID_FACTORS,
+    CV_REFINE_STEPS,
+    CVCurve,
+    loo_cv_error,
+    select_bandwidth_cv,
+    silverman_bandwidth,
+)
+from hedgerow.kernels._kernels import (
+    GAUSSIAN_TRUNCATION,
+    KERNELS,
+    kernel_profile,
+    kernel_weights,
+)
+
+__all__ = [
+    "CV_GRID_FACTORS",
+    "CV_REFINE_STEPS",
+    "CVCurve",
+    "GAUSSIAN_TRUNCATION",
+    "KERNELS",
+    "kernel_profile",
+    "kernel_weights",
+    "loo_cv_error",
+    "select_bandwidth_cv",
+    "silverman_bandwidth",
+]
