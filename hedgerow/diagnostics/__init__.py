@@ -1,0 +1,33 @@
+"""Diagnostics as plain functions returning frozen reports (``to_frame``, ``_repr_html_``).
+
+- ``probe``: neighbour weights, local line and every method's prediction at one point.
+- ``slices``: predictions along one column (or partial dependence).
+- ``edges``: held-out residuals by edge depth and the edge-bias sign pattern.
+- ``verdict``: paired held-out errors and a plain-language conclusion.
+"""
+
+from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
+from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
+from hedgerow.diagnostics._probe import TOP_ROWS, MethodAtProbe, ProbeReport, probe
+from hedgerow.diagnostics._report import kish_ess
+from hedgerow.diagnostics._slices import SliceReport, slices
+from hedgerow.diagnostics._verdict import EDGE_BAND, Verdict, paired_relative_gain, verdict
+
+__all__ = [
+    "DEPTH_BANDS",
+    "EDGE_BAND",
+    "EdgeProfile",
+    "MethodAtProbe",
+    "ProbeReport",
+    "SliceReport",
+    "TOP_ROWS",
+    "Verdict",
+    "edge_depth",
+    "edges",
+    "held_out_predictions",
+    "kish_ess",
+    "paired_relative_gain",
+    "probe",
+    "slices",
+    "verdict",
+]

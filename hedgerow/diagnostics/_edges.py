@@ -1,0 +1,124 @@
+"""Edge profile: held-out residuals by how close rows sit to the edge of the data."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy.stats import t as student_t
+
+from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
+from hedgerow.diagnostics._report import ReportMixin
+from hedgerow.diagnostics._slices import method_label
+
+__all__ = ["EdgeProfile", "edges", "DEPTH_BANDS"]
+
+#: Band edges of edge depth: outer 5%, 5-10%, 10-25%, interior.
+DEPTH_BANDS = (0.0, 0.05, 0.10, 0.25, 0.5 + 1e-12)
+
+
+def _mean_ci(v, level=0.95):
+    v = v[np.isfinite(v)]
+    n = v.size
+    if n == 0:
+        return np.nan, np.nan, np.nan, 0
+    m = float(v.mean())
+    if n < 2:
+        return m, np.nan, np.nan, n
+    half = student_t.ppf(0.5 + level / 2, n - 1) * v.std(ddof=1) / np.sqrt(n)
+    return m, m - half, m + half, n
+
+
+@dataclass(frozen=True)
+class EdgeProfile(ReportMixin):
+    """Held-out residuals per edge-depth band and method, and the edge-bias sign pattern.
+
+    ``bands``: method, band, n, mean_residual (y - held-out prediction), lower, upper
+    (t interval), rmse. ``bend``: per method, the mean over edge-band rows (depth < 0.10)
+    of residual × side × sign(local slope) with its interval: positive means predictions
+    bend toward the interior at the edges (at an upper edge of a rising signal the fit is
+    too low), the signature of a forest's edge bias. ``depth``, ``side``, ``column``: per
+    row. ``residuals``: per row and method.
+    """
+
+    depth: np.ndarray
+    column: np.ndarray
+    side: np.ndarray
+    residuals: pd.DataFrame
+    bands: pd.DataFrame
+    bend: pd.DataFrame
+    _title = "edges"
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.bands.copy()
+
+    def _notes(self):
+        out = []
+        for _, r in self.bend.iterrows():
+            out.append(f"{r['method']}: inward-bend score {r['bend']:.3g} "
+                       f"(95% CI {r['lower']:.3g} to {r['upper']:.3g}) in the outer 10%")
+        return out
+
+
+def edges(models, X=None, y=None, *, columns=None, slope_model=None, level=0.95) -> EdgeProfile:
+    """Return the ``EdgeProfile`` of fitted models on their training rows.
+
+    Parameters
+    ----------
+    models : a fitted model, a list or a dict name -> model, all fitted on the same rows.
+    X, y : the training rows (default: the first model's ``X_train_`` / ``y_train_``).
+    columns : columns defining edge depth (default: the local linear forest's correction
+        columns when one is given, else all).
+    slope_model : model whose ``local_slopes`` sign the local trend (default: the first
+        model that has ``local_slopes``); slopes are taken at each row in its edge column.
+    """
+    if isinstance(models, dict):
+        pairs = list(models.items())
+    elif hasattr(models, "predict"):
+        pairs = [(method_label(models), models)]
+    else:
+        pairs = [(method_label(m), m) for m in models]
+    first = pairs[0][1]
+    X = np.asarray(first.X_train_ if X is None else X, dtype=np.float64)
+    y = np.asarray(first.y_train_ if y is None else y, dtype=np.float64).ravel()
+    if columns is None:
+        for _, m in pairs:
+            if hasattr(m, "correction_features_"):
+                columns = m.correction_features_
+                break
+    depth, column, side = edge_depth(X, columns)
+    res = {name: y - held_out_predictions(m) for name, m in pairs}
+    residuals = pd.DataFrame(res)
+    band_idx = np.digitize(depth, DEPTH_BANDS[1:-1])
+    labels = [f"{DEPTH_BANDS[b]:.2f}-{min(DEPTH_BANDS[b + 1], 0.5):.2f}"
+              for b in range(len(DEPTH_BANDS) - 1)]
+    rows = []
+    for name in residuals:
+        r = residuals[name].to_numpy()
+        for b, lab in enumerate(labels):
+            sel = band_idx == b
+            m, lo, hi, n = _mean_ci(r[sel], level)
+            rmse = float(np.sqrt(np.nanmean(r[sel] ** 2))) if n else np.nan
+            rows.append({"method": name, "band": lab, "n": n, "mean_residual": m,
+                         "lower": lo, "upper": hi, "rmse": rmse})
+    bands = pd.DataFrame(rows)
+    if slope_model is None:
+        slope_model = next((m for _, m in pairs if hasattr(m, "local_slopes")), None)
+    edge = depth < 0.10
+    bend_rows = []
+    if slope_model is not None and np.any(edge):
+        slopes = np.asarray(slope_model.local_slopes(X[edge]))
+        if hasattr(slope_model, "correction_features_"):
+            pos = {c: i for i, c in enumerate(slope_model.correction_features_)}
+            idx = np.array([pos.get(c, -1) for c in column[edge]])
+        else:
+            idx = column[edge]
+        sgn = np.where(idx >= 0, np.sign(slopes[np.arange(idx.size), np.maximum(idx, 0)]), 0)
+        for name in residuals:
+            score = residuals[name].to_numpy()[edge] * side[edge] * sgn
+            m, lo, hi, n = _mean_ci(score[sgn != 0], level)
+            bend_rows.append({"method": name, "bend": m, "lower": lo, "upper": hi, "n": n})
+    bend = pd.DataFrame(bend_rows, columns=["method", "bend", "lower", "upper", "n"])
+    return EdgeProfile(depth=depth, column=column, side=side, residuals=residuals,
+                       bands=bands, bend=bend)

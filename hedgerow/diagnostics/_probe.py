@@ -1,0 +1,181 @@
+"""What the forest does at one query point (the probe)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from hedgerow.diagnostics._report import ReportMixin, check_probe_point, kish_ess
+from hedgerow.inference import normal_interval
+
+__all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS"]
+
+#: Rows counted in ``ProbeReport.top_share``.
+TOP_ROWS = 10
+
+
+@dataclass(frozen=True)
+class MethodAtProbe:
+    """One method's answer at the probe: prediction, interval, local slope, weights."""
+
+    name: str
+    prediction: float
+    lower: float
+    upper: float
+    slopes: np.ndarray  # over ProbeReport.slope_columns; NaN where the method has none
+    slope_se: np.ndarray
+    weights: sp.csr_matrix  # 1 × n
+    ess: float
+
+
+@dataclass(frozen=True)
+class ProbeReport(ReportMixin):
+    """Neighbour weights, local line and every method's prediction at one probe point.
+
+    Attributes
+    ----------
+    x : (d,) the probe point. feature_names : column names.
+    weights : 1 × n CSR forest weights of the probe.
+    ess : Kish effective sample size (sum w)^2 / sum w^2 of the forest weights.
+    top_share : share of the weight held by the ``TOP_ROWS`` heaviest rows.
+    neighbour_offset : (d,) weighted mean of X_i - x per column, in training standard
+        deviations: near 0 for a balanced neighbourhood, far from 0 for a lopsided one
+        (the edge problem: neighbours all on one side of the probe).
+    neighbour_spread : (d,) weighted mean |X_i - x| per column, same units.
+    slope_columns : indices of the columns the local line uses.
+    methods : the local linear forest, the honest local average on the same trees and
+        each comparison smoother, in that order.
+    level : interval level.
+    """
+
+    x: np.ndarray
+    feature_names: tuple
+    weights: sp.csr_matrix
+    ess: float
+    top_share: float
+    neighbour_offset: np.ndarray
+    neighbour_spread: np.ndarray
+    slope_columns: np.ndarray
+    methods: tuple = field(default_factory=tuple)
+    level: float = 0.95
+    _title = "probe"
+
+    def method(self, name: str) -> MethodAtProbe:
+        """Return the entry of the method called ``name``."""
+        for m in self.methods:
+            if m.name == name:
+                return m
+        raise KeyError(f"No method {name!r}; known: {[m.name for m in self.methods]}.")
+
+    def to_frame(self) -> pd.DataFrame:
+        rows = []
+        for m in self.methods:
+            row = {"method": m.name, "prediction": m.prediction, "lower": m.lower,
+                   "upper": m.upper, "ess": m.ess}
+            for j, c in enumerate(self.slope_columns):
+                row[f"slope[{self.feature_names[c]}]"] = m.slopes[j]
+                row[f"slope_se[{self.feature_names[c]}]"] = m.slope_se[j]
+            rows.append(row)
+        return pd.DataFrame(rows).set_index("method")
+
+    def neighbourhood_frame(self) -> pd.DataFrame:
+        """Return per-column probe value, neighbour offset and spread."""
+        return pd.DataFrame(
+            {"probe": self.x, "neighbour_offset_sd": self.neighbour_offset,
+             "neighbour_spread_sd": self.neighbour_spread},
+            index=list(self.feature_names),
+        )
+
+    def _notes(self):
+        return [f"effective sample size {self.ess:.1f}; top {TOP_ROWS} rows hold "
+                f"{100 * self.top_share:.0f}% of the weight; {100 * self.level:.0f}% intervals"]
+
+
+def _feature_names(model):
+    names = getattr(model, "feature_names_in_", None)
+    if names is None:
+        return tuple(f"x{j}" for j in range(model.n_features_in_))
+    return tuple(str(n) for n in names)
+
+
+def _method_entry(name, w, pred, std, slopes, slope_se, level):
+    if std is None or not np.isfinite(std):
+        lo = hi = np.nan
+    else:
+        lo, hi = normal_interval(pred, std, level)
+    w = sp.csr_matrix(w)
+    return MethodAtProbe(
+        name=name, prediction=float(pred), lower=float(lo), upper=float(hi),
+        slopes=np.asarray(slopes, dtype=float), slope_se=np.asarray(slope_se, dtype=float),
+        weights=w, ess=kish_ess(w.data),
+    )
+
+
+def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
+    """Return the ``ProbeReport`` of a fitted forest at the point ``x``.
+
+    Parameters
+    ----------
+    model : fitted LocalLinearForestRegressor (local line, plus the local average on the
+        same trees) or HonestForestRegressor (local average only).
+    x : array-like or pandas Series of length d.
+    compare : fitted smoothers (NadarayaWatsonRegressor, LocalLinearRegressor) fitted on
+        the same data; each adds its prediction, interval, local slope and kernel weights.
+    level : interval level in (0, 1).
+    """
+    from hedgerow.estimators import LocalLinearForestRegressor
+
+    xq = check_probe_point(model, x)
+    names = _feature_names(model)
+    bags = getattr(model, "trees_per_bag_", 1) >= 2
+    W = model.neighbour_weights(xq)
+    w = W.toarray().ravel()
+    X = model.X_train_
+    sd = X.std(axis=0)
+    sd = np.where(sd > 0, sd, 1.0)
+    diff = (X - xq) / sd
+    offset = w @ diff
+    spread = w @ np.abs(diff)
+    top = float(np.sort(W.data)[::-1][:TOP_ROWS].sum())
+    is_llf = isinstance(model, LocalLinearForestRegressor)
+    cols = model.correction_features_ if is_llf else np.arange(0)
+    k = cols.size
+    methods = []
+    if is_llf:
+        fit = model.local_fit(xq)
+        if bags:
+            _, std = model.predict(xq, return_std=True)
+            std = float(std[0])
+            slope_se = model.slope_std(xq)[0]
+        else:
+            std, slope_se = None, np.full(k, np.nan)
+        methods.append(_method_entry(
+            "local linear forest", W, fit.intercept[0], std, fit.slopes[0], slope_se, level
+        ))
+    avg = model.local_average(xq, return_std=bags)
+    mean, std = (avg[0][0], float(avg[1][0])) if bags else (avg[0], None)
+    methods.append(_method_entry(
+        "honest forest (same trees)", W, mean, std, np.full(k, np.nan), np.full(k, np.nan),
+        level,
+    ))
+    for smoother in compare:
+        pred, sstd = smoother.predict(xq, return_std=True)
+        if hasattr(smoother, "local_slopes"):
+            slopes = np.asarray(smoother.local_slopes(xq))[0][cols]
+        else:
+            slopes = np.full(k, np.nan)
+        label = {"NadarayaWatsonRegressor": "Nadaraya-Watson",
+                 "LocalLinearRegressor": "local linear (kernel)"}.get(
+            type(smoother).__name__, type(smoother).__name__)
+        methods.append(_method_entry(
+            label, smoother.neighbour_weights(xq), pred[0], float(sstd[0]), slopes,
+            np.full(k, np.nan), level,
+        ))
+    return ProbeReport(
+        x=xq[0], feature_names=names, weights=sp.csr_matrix(W), ess=kish_ess(W.data),
+        top_share=top, neighbour_offset=offset, neighbour_spread=spread,
+        slope_columns=np.asarray(cols), methods=tuple(methods), level=level,
+    )

@@ -1,0 +1,145 @@
+"""Each method's prediction along one column, the others held at the probe."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from hedgerow.diagnostics._report import ReportMixin, check_probe_point
+from hedgerow.inference import normal_interval
+
+__all__ = ["SliceReport", "slices", "method_label", "resolve_feature"]
+
+_LABELS = {
+    "LocalLinearForestRegressor": "local linear forest",
+    "HonestForestRegressor": "honest forest",
+    "NadarayaWatsonRegressor": "Nadaraya-Watson",
+    "LocalLinearRegressor": "local linear (kernel)",
+}
+
+
+def method_label(model) -> str:
+    """Return the display name of a fitted model."""
+    return _LABELS.get(type(model).__name__, type(model).__name__)
+
+
+def resolve_feature(model, feature) -> int:
+    """Return the column index of ``feature`` (an index or a fitted column name)."""
+    names = getattr(model, "feature_names_in_", None)
+    d = model.n_features_in_
+    if isinstance(feature, str):
+        if names is None or feature not in list(names):
+            known = list(names) if names is not None else f"indices 0..{d - 1}"
+            raise ValueError(
+                f"The 'feature' parameter must name a column the model was fitted on "
+                f"({known}). Got {feature!r} instead."
+            )
+        return int(list(names).index(feature))
+    if isinstance(feature, int | np.integer) and not isinstance(feature, bool):
+        if 0 <= int(feature) < d:
+            return int(feature)
+    raise ValueError(
+        f"The 'feature' parameter must be a column index in [0, {d}) or a column name. "
+        f"Got {feature!r} instead."
+    )
+
+
+def _as_models(models):
+    if isinstance(models, dict):
+        return list(models.items())
+    if hasattr(models, "predict"):
+        models = [models]
+    return [(method_label(m), m) for m in models]
+
+
+def _frame_like(model, X):
+    names = getattr(model, "feature_names_in_", None)
+    return pd.DataFrame(X, columns=list(names)) if names is not None else X
+
+
+@dataclass(frozen=True)
+class SliceReport(ReportMixin):
+    """Predictions along one column for several methods (long format in ``frame``).
+
+    ``frame`` columns: method, value (the grid), prediction, lower, upper. In the
+    averaged variant (``average=True``) prediction is the partial dependence, the mean
+    prediction over the background rows with the column set to the grid value, and
+    lower/upper are NaN: pointwise intervals do not average into an interval for the mean.
+    """
+
+    feature: str
+    feature_index: int
+    x: np.ndarray
+    average: bool
+    level: float
+    frame: pd.DataFrame
+    _title = "slices"
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.frame.copy()
+
+    def method(self, name: str) -> pd.DataFrame:
+        """Return the rows of one method."""
+        return self.frame[self.frame["method"] == name].reset_index(drop=True)
+
+
+def slices(models, x, feature, grid, *, average=False, background=None, level=0.95,
+           max_background=200, random_state=0) -> SliceReport:
+    """Return each model's prediction along ``feature`` with the other columns at ``x``.
+
+    Parameters
+    ----------
+    models : a fitted model, a list of them or a dict name -> model (same columns).
+    x : probe point (length d). feature : column index or name. grid : 1-d values.
+    average : if True, the partial-dependence variant over ``background`` rows (default:
+        up to ``max_background`` training rows of the first model).
+    level : interval level.
+    """
+    pairs = _as_models(models)
+    if not pairs:
+        raise ValueError("The 'models' parameter must hold at least one fitted model.")
+    first = pairs[0][1]
+    xq = check_probe_point(first, x)[0]
+    j = resolve_feature(first, feature)
+    grid = np.asarray(grid, dtype=np.float64).ravel()
+    if grid.size == 0:
+        raise ValueError("The 'grid' parameter must hold at least one value. Got an empty grid.")
+    if not np.all(np.isfinite(grid)):
+        raise ValueError("The 'grid' parameter must be finite.")
+    names = getattr(first, "feature_names_in_", None)
+    fname = str(names[j]) if names is not None else f"x{j}"
+    rows = []
+    if not average:
+        Q = np.repeat(xq[None, :], grid.size, axis=0)
+        Q[:, j] = grid
+        for name, model in pairs:
+            Qf = _frame_like(model, Q)
+            try:
+                pred, std = model.predict(Qf, return_std=True)
+                lo, hi = normal_interval(pred, std, level)
+            except ValueError:
+                pred = model.predict(Qf)
+                lo = hi = np.full(grid.size, np.nan)
+            rows.append(pd.DataFrame({"method": name, "value": grid, "prediction": pred,
+                                      "lower": lo, "upper": hi}))
+    else:
+        if background is None:
+            Xb = first.X_train_
+            if Xb.shape[0] > max_background:
+                rng = np.random.default_rng(random_state)
+                Xb = Xb[rng.choice(Xb.shape[0], max_background, replace=False)]
+        else:
+            Xb = np.asarray(background, dtype=np.float64)
+        nb = Xb.shape[0]
+        Q = np.tile(Xb, (grid.size, 1))
+        Q[:, j] = np.repeat(grid, nb)
+        for name, model in pairs:
+            pred = np.asarray(model.predict(_frame_like(model, Q))).reshape(grid.size, nb)
+            rows.append(pd.DataFrame({"method": name, "value": grid,
+                                      "prediction": pred.mean(axis=1),
+                                      "lower": np.nan, "upper": np.nan}))
+    frame = pd.concat(rows, ignore_index=True)
+    return SliceReport(feature=fname, feature_index=j, x=xq, average=bool(average),
+                       level=level, frame=frame)

@@ -1,0 +1,195 @@
+"""Diagnostics reports checked against direct computations."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from hedgerow import HonestForestRegressor, LocalLinearForestRegressor
+from hedgerow.datasets import make_softplus_design
+from hedgerow.diagnostics import (
+    edge_depth,
+    edges,
+    kish_ess,
+    paired_relative_gain,
+    probe,
+    slices,
+    verdict,
+)
+
+
+@pytest.fixture(scope="module")
+def data():
+    X, y, _ = make_softplus_design(500, n_features=4, random_state=11)
+    return X, y
+
+
+@pytest.fixture(scope="module")
+def llf(data):
+    X, y = data
+    return LocalLinearForestRegressor(n_estimators=100, random_state=1).fit(X, y)
+
+
+def test_probe_matches_direct_computation(data, llf):
+    X, y = data
+    x = np.array([0.95, 0.5, 0.5, 0.5])
+    rep = probe(llf, x)
+    w = llf.neighbour_weights(x[None, :]).toarray().ravel()
+    np.testing.assert_allclose(rep.weights.toarray().ravel(), w)
+    # Kish (1965): effective sample size (sum w)^2 / sum w^2
+    assert rep.ess == pytest.approx(w.sum() ** 2 / (w**2).sum(), rel=1e-12)
+    assert kish_ess(w) == pytest.approx(rep.ess, rel=1e-12)
+    assert rep.top_share == pytest.approx(np.sort(w)[::-1][:10].sum(), rel=1e-12)
+    sd = X.std(axis=0)
+    np.testing.assert_allclose(rep.neighbour_offset, w @ ((X - x) / sd), atol=1e-12)
+    # at the upper edge of X1 the neighbourhood lies below the probe: lopsided
+    assert rep.neighbour_offset[0] < 0
+    llf_row = rep.method("local linear forest")
+    assert llf_row.prediction == pytest.approx(llf.predict(x[None, :])[0], rel=1e-12)
+    lo, hi = llf.predict_interval(x[None, :])
+    assert llf_row.lower == pytest.approx(lo[0]) and llf_row.upper == pytest.approx(hi[0])
+    np.testing.assert_allclose(llf_row.slopes, llf.local_slopes(x[None, :])[0])
+    assert np.all(llf_row.slope_se > 0)
+    avg = rep.method("honest forest (same trees)")
+    assert avg.prediction == pytest.approx(w @ y, rel=1e-10)
+    frame = rep.to_frame()
+    assert list(frame.index) == ["local linear forest", "honest forest (same trees)"]
+    assert "<table" in rep._repr_html_()
+
+
+def test_probe_slope_se_matches_replication_spread():
+    # The slope standard error should be of the size of the slope's spread over
+    # independent training sets (seeded simulation; tolerance a factor of two).
+    x = np.array([[0.5, 0.5, 0.5]])
+    slopes, ses = [], []
+    for rep in range(8):
+        X, y, _ = make_softplus_design(600, n_features=3, random_state=40 + rep)
+        m = LocalLinearForestRegressor(n_estimators=200, random_state=rep,
+                                       correction_features=[0]).fit(X, y)
+        slopes.append(m.local_slopes(x)[0, 0])
+        ses.append(m.slope_std(x)[0, 0])
+    ratio = np.mean(ses) / np.std(slopes, ddof=1)
+    assert 0.5 < ratio < 2.0
+
+
+def test_slice_at_grid_point_equals_predict(data, llf):
+    X, _ = data
+    x = X[3]
+    grid = np.linspace(0.05, 0.95, 7)
+    hf = HonestForestRegressor(n_estimators=50, random_state=0).fit(*data)
+    rep = slices({"llf": llf, "hf": hf}, x, 0, grid)
+    for name, model in (("llf", llf), ("hf", hf)):
+        part = rep.method(name)
+        Q = np.repeat(x[None, :], grid.size, axis=0)
+        Q[:, 0] = grid
+        np.testing.assert_allclose(part["prediction"], model.predict(Q), atol=1e-12)
+        lo, hi = model.predict_interval(Q)
+        np.testing.assert_allclose(part["lower"], lo, atol=1e-12)
+
+
+def test_partial_dependence_is_mean_over_background(data, llf):
+    X, _ = data
+    grid = np.array([0.2, 0.8])
+    bg = X[:30]
+    rep = slices(llf, X[0], 0, grid, average=True, background=bg)
+    for g, val in zip(grid, rep.frame["prediction"], strict=True):
+        Q = bg.copy()
+        Q[:, 0] = g
+        assert val == pytest.approx(llf.predict(Q).mean(), rel=1e-12)
+    assert rep.frame["lower"].isna().all()
+
+
+def test_edge_depth_definition():
+    X = np.array([[0.0], [1.0], [2.0], [3.0], [4.0]])
+    depth, col, side = edge_depth(X)
+    # empirical CDF (rank - 1/2) / n, distance to the nearer end
+    np.testing.assert_allclose(depth, [0.1, 0.3, 0.5, 0.3, 0.1])
+    np.testing.assert_array_equal(side, [-1, -1, -1, 1, 1])
+    np.testing.assert_array_equal(col, 0)
+
+
+def test_edges_bands_match_residuals(data, llf):
+    X, y = data
+    prof = edges(llf)
+    r = y - llf.oob_predict()
+    depth, _, _ = edge_depth(X, llf.correction_features_)
+    sel = depth < 0.05
+    band = prof.bands[prof.bands["band"] == "0.00-0.05"].iloc[0]
+    assert band["n"] == np.isfinite(r[sel]).sum()
+    assert band["mean_residual"] == pytest.approx(np.nanmean(r[sel]), rel=1e-12)
+    assert band["lower"] < band["mean_residual"] < band["upper"]
+    assert set(prof.bend["method"]) == {"local linear forest"}
+
+
+def test_paired_gain_by_hand():
+    rng = np.random.default_rng(0)
+    a = rng.exponential(2.0, 400)
+    b = a * 0.8 + rng.exponential(0.1, 400)
+    g, lo, hi = paired_relative_gain(a, b)
+    R = b.mean() / a.mean()
+    u = b - R * a
+    se = u.std(ddof=1) / (np.sqrt(a.size) * a.mean())
+    assert g == pytest.approx(1 - R)
+    assert lo == pytest.approx(1 - R - 1.959963984540054 * se)
+    assert hi == pytest.approx(1 - R + 1.959963984540054 * se)
+
+
+def test_verdict_interval_from_its_own_rows(data, llf):
+    X, y = data
+    v = verdict(X, y, forest=llf, smoothers=None, baseline=False)
+    e = v.errors
+    g, lo, hi = paired_relative_gain(e["honest forest"], e["local linear forest"])
+    row = v.comparisons.loc["local linear forest"]
+    assert row["gain_all"] == pytest.approx(g) and row["lower_all"] == pytest.approx(lo)
+    edge = e["edge_depth"] < 0.10
+    g_e, _, _ = paired_relative_gain(e["honest forest"][edge], e["local linear forest"][edge])
+    assert row["gain_edge"] == pytest.approx(g_e)
+    assert isinstance(v.conclusion, str) and v.conclusion
+
+
+@pytest.mark.parametrize(
+    "x, match",
+    [
+        (np.array([0.5, 0.5]), "4 values"),
+        (np.array([0.5, np.nan, 0.5, 0.5]), "finite"),
+        (np.array([0.5, np.inf, 0.5, 0.5]), "finite"),
+    ],
+)
+def test_probe_bad_point(llf, x, match):
+    with pytest.raises(ValueError, match=match):
+        probe(llf, x)
+
+
+def test_slices_bad_input(data, llf):
+    X, y = data
+    with pytest.raises(ValueError, match="grid"):
+        slices(llf, X[0], 0, [])
+    with pytest.raises(ValueError, match="feature"):
+        slices(llf, X[0], 9, [0.5])
+    df = pd.DataFrame(X, columns=list("abcd"))
+    named = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(df, y)
+    with pytest.raises(ValueError, match="'feature'.*'zz'"):
+        slices(named, df.iloc[0], "zz", [0.5])
+    rep = slices(named, df.iloc[0], "b", [0.5])
+    assert rep.feature == "b"
+
+
+@pytest.mark.slow
+def test_verdict_on_softplus_design_says_correction_helps():
+    # Friedberg et al. (2021), eq. 1, n = 1000: a smooth signal with edge bias for a forest
+    X, y, _ = make_softplus_design(1000, random_state=21)
+    v = verdict(X, y, smoothers=None, random_state=0)
+    row = v.comparisons.loc["local linear forest"]
+    assert row["lower_all"] > 0, v.conclusion
+    assert row["gain_edge"] > row["gain_interior"]
+    assert v.conclusion.startswith("The local linear correction lowers held-out error")
+
+
+@pytest.mark.slow
+def test_verdict_on_step_truth_does_not_claim_help():
+    # A piecewise-constant truth (a step in X1): trees fit it exactly, a local line
+    # cannot improve it (common practice: forests suit step functions).
+    rng = np.random.default_rng(5)
+    X = rng.uniform(size=(1000, 5))
+    y = np.where(X[:, 0] > 0.5, 2.0, 0.0) + rng.normal(0, 1.0, 1000)
+    v = verdict(X, y, smoothers=None, random_state=0)
+    assert not v.conclusion.startswith("The local linear correction lowers"), v.conclusion
