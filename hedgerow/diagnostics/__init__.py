@@ -4,16 +4,24 @@
 - ``slices``: predictions along one column (or partial dependence).
 - ``edges``: held-out residuals by edge depth and the edge-bias sign pattern.
 - ``verdict``: paired held-out errors and a plain-language conclusion.
+- ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
+- ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
 """
 
+from hedgerow.diagnostics._coverage import CoverageReport, coverage_readout
 from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._probe import TOP_ROWS, MethodAtProbe, ProbeReport, probe
 from hedgerow.diagnostics._report import kish_ess
 from hedgerow.diagnostics._slices import SliceReport, slices
+from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
 from hedgerow.diagnostics._verdict import EDGE_BAND, Verdict, paired_relative_gain, verdict
 
 __all__ = [
+    "CoverageReport",
+    "TuningSurface",
+    "coverage_readout",
+    "tuning_surface",
     "DEPTH_BANDS",
     "EDGE_BAND",
     "EdgeProfile",

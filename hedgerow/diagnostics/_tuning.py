@@ -1,0 +1,117 @@
+"""Tuning surface over subsample rate × ridge penalty from out-of-bag quantities."""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from hedgerow._progress import progress_bar
+from hedgerow.diagnostics._report import ReportMixin
+from hedgerow.inference import normal_interval
+
+__all__ = ["TuningSurface", "tuning_surface"]
+
+
+@dataclass(frozen=True)
+class TuningSurface(ReportMixin):
+    """Out-of-bag RMSE and mean interval width for every (subsample rate, penalty) cell.
+
+    ``frame`` columns: subsample_rate, ridge_penalty, oob_rmse, mean_width (of the
+    out-of-bag ``level`` intervals), n_rows (rows with an out-of-bag prediction).
+    ``complete`` is False when the run was interrupted: ``frame`` then holds the cells
+    finished before the interruption. ``refit_seconds`` / ``total_seconds``: time spent
+    growing forests / in all.
+    """
+
+    frame: pd.DataFrame
+    complete: bool
+    refit_seconds: float
+    total_seconds: float
+    level: float
+    _title = "tuning surface"
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.frame.copy()
+
+    def best(self) -> pd.Series:
+        """Return the cell with the lowest out-of-bag RMSE."""
+        return self.frame.loc[self.frame["oob_rmse"].idxmin()]
+
+    def grid(self, value: str = "oob_rmse") -> pd.DataFrame:
+        """Return ``value`` as a subsample-rate × ridge-penalty table."""
+        return self.frame.pivot(index="subsample_rate", columns="ridge_penalty", values=value)
+
+    def _notes(self):
+        state = "" if self.complete else " (interrupted: partial surface)"
+        share = self.refit_seconds / self.total_seconds if self.total_seconds else 0.0
+        return [f"{len(self.frame)} cells in {self.total_seconds:.1f} s, {100 * share:.0f}% "
+                f"refitting{state}"]
+
+
+def _check_grid(name, values, low, high, closed_low):
+    arr = np.asarray(values, dtype=np.float64).ravel()
+    if arr.size == 0:
+        raise ValueError(f"The '{name}' parameter must hold at least one value. Got an empty "
+                         f"grid.")
+    bad = ~np.isfinite(arr) | (arr > high) | ((arr < low) if closed_low else (arr <= low))
+    if np.any(bad):
+        rng = f"[{low}, {high}]" if closed_low else f"({low}, {high}]"
+        raise ValueError(f"The '{name}' parameter must hold finite values in {rng}. "
+                         f"Got {arr[bad].tolist()!r}.")
+    return arr
+
+
+def tuning_surface(X, y, subsample_rates, ridge_penalties, *, level=0.95, progress=True,
+                   random_state=0, n_jobs=None, **forest_params) -> TuningSurface:
+    """Return the ``TuningSurface`` of a local linear forest over two axes.
+
+    Each subsample rate grows one forest (``LocalLinearForestRegressor(**forest_params)``
+    with that ``subsample_rate``); every ridge penalty is then solved from that forest's
+    cached out-of-bag moments, without refitting. A ``KeyboardInterrupt`` (Ctrl-C, kernel
+    interrupt) stops the run and returns the cells completed so far (``complete=False``).
+    """
+    from hedgerow.estimators import LocalLinearForestRegressor
+
+    rates = _check_grid("subsample_rates", subsample_rates, 0.0, 1.0, closed_low=False)
+    lams = _check_grid("ridge_penalties", ridge_penalties, 0.0, np.inf, closed_low=True)
+    t0 = time.perf_counter()
+    refit = 0.0
+    rows = []
+    complete = True
+    bar = progress_bar(rates.size * lams.size, "tuning surface", progress)
+    try:
+        for rate in rates:
+            t = time.perf_counter()
+            model = LocalLinearForestRegressor(
+                subsample_rate=float(rate), random_state=random_state, n_jobs=n_jobs,
+                **forest_params,
+            ).fit(X, y)
+            refit += time.perf_counter() - t
+            for lam in lams:
+                with np.errstate(invalid="ignore"), warnings.catch_warnings():
+                    # rows without out-of-bag trees are counted in n_rows instead
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    try:
+                        mean, std = model.oob_predict(return_std=True, ridge_penalty=lam)
+                        lo, hi = normal_interval(mean, std, level)
+                        width = float(np.nanmean(hi - lo))
+                    except ValueError:  # no little bags at this rate: no intervals
+                        mean = model.oob_predict(ridge_penalty=lam)
+                        width = np.nan
+                ok = np.isfinite(mean)
+                rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
+                rows.append({"subsample_rate": float(rate), "ridge_penalty": float(lam),
+                             "oob_rmse": rmse, "mean_width": width, "n_rows": int(ok.sum())})
+                bar.update(1)
+    except KeyboardInterrupt:
+        complete = False
+    finally:
+        bar.close()
+    frame = pd.DataFrame(rows, columns=["subsample_rate", "ridge_penalty", "oob_rmse",
+                                        "mean_width", "n_rows"])
+    return TuningSurface(frame=frame, complete=complete, refit_seconds=refit,
+                         total_seconds=time.perf_counter() - t0, level=level)
