@@ -79,7 +79,7 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             try:
                 values = as_float_array_1d("bandwidth", bw, length=d)
             except (TypeError, ValueError) as exc:
-                if "entries" in str(exc) or "finite" in str(exc):
+                if any(word in str(exc) for word in ("entries", "finite", "dimensional")):
                     raise
                 raise ValueError(
                     "The 'bandwidth' parameter must be 'cv', 'silverman', a positive float "

@@ -3,6 +3,7 @@
 from hedgerow.kernels._bandwidth import (
     CV_GRID_FACTORS,
     CV_REFINE_STEPS,
+    LOO_DIRECT_LEVERAGE,
     CVCurve,
     loo_cv_error,
     select_bandwidth_cv,
@@ -21,6 +22,7 @@ __all__ = [
     "CVCurve",
     "GAUSSIAN_TRUNCATION",
     "KERNELS",
+    "LOO_DIRECT_LEVERAGE",
     "kernel_profile",
     "kernel_weights",
     "loo_cv_error",

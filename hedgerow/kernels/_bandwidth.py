@@ -4,7 +4,9 @@ Cross-validation needs no refits: for any linear smoother whose fit at ``x_i`` i
 weighted (penalised) least-squares fit, deleting row ``i`` gives the leave-one-out value
 ``(yhat_i - L_ii y_i) / (1 - L_ii)``, where ``L_ii`` is the hat-matrix diagonal. For the
 local fits of :mod:`hedgerow.local`, ``L_ii = w_ii (M_i^{-1})_{00}`` because the
-correction column of row ``i`` is zero at its own query.
+correction column of row ``i`` is zero at its own query. Rows with a leverage near one
+are the exception: they are recomputed in one batch with the row left out of its own
+weights (see :data:`LOO_DIRECT_LEVERAGE`).
 """
 
 from __future__ import annotations
@@ -17,7 +19,15 @@ import numpy as np
 from hedgerow.kernels._kernels import kernel_weights
 from hedgerow.local import default_scale, local_moments, solve_local
 
-__all__ = ["CVCurve", "loo_cv_error", "select_bandwidth_cv", "silverman_bandwidth"]
+__all__ = [
+    "CV_GRID_FACTORS",
+    "CV_REFINE_STEPS",
+    "CVCurve",
+    "LOO_DIRECT_LEVERAGE",
+    "loo_cv_error",
+    "select_bandwidth_cv",
+    "silverman_bandwidth",
+]
 
 #: Multiples of the Silverman bandwidths tried in the first, common-factor stage of
 #: :func:`select_bandwidth_cv`.
@@ -60,17 +70,35 @@ def silverman_bandwidth(X) -> np.ndarray:
     return 0.9 * spread * n ** (-0.2)
 
 
+#: Rows whose hat-matrix diagonal exceeds this are left out of their own weights and
+#: refitted directly (one batch) instead of through the hat-matrix identity.
+LOO_DIRECT_LEVERAGE = 1.0 - 1e-4
+
+
 def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
+    """Return the leave-one-out residuals ``y_i - g_{-i}(x_i)`` (NaN where undefined).
+
+    Rows with leverage near one -- nearly alone in their neighbourhood -- are recomputed
+    with the row excluded from its own weights: there ``1 - L_ii`` carries few correct
+    digits, and Gaussian truncation against the row's own (self) weight may have dropped
+    all of its neighbours.
+    """
     W = kernel_weights(X, X, bandwidth, kernel)
     moments = local_moments(W, X, y, X, degree=degree, scale=scale)
     with warnings.catch_warnings():
-        # Every row carries its own weight, so no row is empty; silence regardless.
+        # Empty rows only arise in the direct refits; they are reported as NaN.
         warnings.simplefilter("ignore", RuntimeWarning)
         fit = solve_local(moments, 0.0)
-    leverage = W.diagonal() * fit.gram_inv[:, 0, 0]
-    # A leverage of one (a row alone in its neighbourhood) is reported as inf by callers.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return (y - fit.intercept) / (1.0 - leverage), leverage
+        leverage = W.diagonal() * fit.gram_inv[:, 0, 0]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            resid = (y - fit.intercept) / (1.0 - leverage)
+        direct = np.flatnonzero(~(leverage <= LOO_DIRECT_LEVERAGE))
+        if direct.size:
+            Xd = X[direct]
+            Wd = kernel_weights(X, Xd, bandwidth, kernel, exclude=direct)
+            fd = solve_local(local_moments(Wd, X, y, Xd, degree=degree, scale=scale), 0.0)
+            resid[direct] = y[direct] - fd.intercept
+    return resid
 
 
 def loo_cv_error(X, y, bandwidth, kernel: str = "gaussian", degree: int = 0) -> float:
@@ -92,13 +120,13 @@ def loo_cv_error(X, y, bandwidth, kernel: str = "gaussian", degree: int = 0) -> 
     Returns
     -------
     float
-        The error; ``inf`` when some row has no other row in its neighbourhood (its
-        leave-one-out fit is undefined) or its fit is non-finite.
+        The error; ``inf`` when some row has no other row inside a compact kernel's
+        support (its leave-one-out fit is undefined).
     """
     X = np.asarray(X, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64).ravel()
-    resid, leverage = _loo_residuals(X, y, bandwidth, kernel, degree, default_scale(X))
-    if not np.all(1.0 - leverage > 1e-10) or not np.all(np.isfinite(resid)):
+    resid = _loo_residuals(X, y, bandwidth, kernel, degree, default_scale(X))
+    if not np.all(np.isfinite(resid)):
         return np.inf
     return float(np.mean(resid**2))
 
@@ -167,8 +195,8 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0) -> CVCu
     def evaluate(h, record=True):
         key = tuple(np.round(np.log(h), 12))
         if key not in seen:
-            resid, leverage = _loo_residuals(X, y, h, kernel, degree, scale)
-            ok = np.all(1.0 - leverage > 1e-10) and np.all(np.isfinite(resid))
+            resid = _loo_residuals(X, y, h, kernel, degree, scale)
+            ok = np.all(np.isfinite(resid))
             seen[key] = float(np.mean(resid**2)) if ok else np.inf
             if record:
                 path_h.append(h.copy())

@@ -100,7 +100,7 @@ def _compact(Xs, Qs, i, j, d, code):
     return v
 
 
-def _csr_weights_py(Xs, Qs, code, log_cut, normalize):
+def _csr_weights_py(Xs, Qs, code, log_cut, normalize, skip):
     """Return CSR arrays of kernel weights (Gaussian: log-weights), unnormalised."""
     m, d = Qs.shape
     n = Xs.shape[0]
@@ -111,6 +111,8 @@ def _csr_weights_py(Xs, Qs, code, log_cut, normalize):
         if code == 0:
             best = np.inf
             for j in range(n):
+                if j == skip[i]:
+                    continue
                 s = _sqdist(Xs, Qs, i, j, d)
                 if s < best:
                     best = s
@@ -119,11 +121,11 @@ def _csr_weights_py(Xs, Qs, code, log_cut, normalize):
                 shift[i] = best
             cut = 2.0 * log_cut + shift[i]
             for j in range(n):
-                if _sqdist(Xs, Qs, i, j, d) <= cut:
+                if j != skip[i] and _sqdist(Xs, Qs, i, j, d) <= cut:
                     c += 1
         else:
             for j in range(n):
-                if _compact(Xs, Qs, i, j, d, code) > 0.0:
+                if j != skip[i] and _compact(Xs, Qs, i, j, d, code) > 0.0:
                     c += 1
         counts[i + 1] = c
     indptr = np.cumsum(counts)
@@ -135,6 +137,8 @@ def _csr_weights_py(Xs, Qs, code, log_cut, normalize):
             sh = shift[i]
             cut = 2.0 * log_cut + sh
             for j in range(n):
+                if j == skip[i]:
+                    continue
                 s = _sqdist(Xs, Qs, i, j, d)
                 if s <= cut:
                     # The log-weight for now; exponentiated below, vectorised.
@@ -143,6 +147,8 @@ def _csr_weights_py(Xs, Qs, code, log_cut, normalize):
                     p += 1
         else:
             for j in range(n):
+                if j == skip[i]:
+                    continue
                 v = _compact(Xs, Qs, i, j, d, code)
                 if v > 0.0:
                     data[p] = v
@@ -178,7 +184,7 @@ _normalize_rows = {
 
 
 def kernel_weights(
-    X_train, Q, bandwidth, kernel: str = "gaussian", *, normalize: bool = True
+    X_train, Q, bandwidth, kernel: str = "gaussian", *, normalize: bool = True, exclude=None
 ) -> sp.csr_matrix:
     """Return the product-kernel weights of the training rows for each query (CSR).
 
@@ -196,6 +202,9 @@ def kernel_weights(
         ``normalize=False`` the raw products ``K(u)`` are returned (``K(0) = 1``), with
         Gaussian weights truncated against the largest possible value 1 instead of the
         row maximum.
+    exclude : array-like of int of shape (m,), optional
+        For each query, the index of one training row to leave out (-1 for none), as if
+        that row were not in ``X_train``; used for leave-one-out fits.
 
     Returns
     -------
@@ -222,13 +231,21 @@ def kernel_weights(
     Xs = np.ascontiguousarray((X_train - centre) / h)
     Qs = np.ascontiguousarray((Q - centre) / h)
     m, n = Qs.shape[0], Xs.shape[0]
+    skip = np.full(m, -1, dtype=np.int64) if exclude is None else np.asarray(exclude, np.int64)
+    if skip.shape != (m,):
+        raise ValueError(
+            f"The 'exclude' parameter must hold {m} indices (one per query). "
+            f"Got shape {skip.shape} instead."
+        )
     log_cut = -math.log(GAUSSIAN_TRUNCATION)
     block = max(1, _BLOCK_ENTRIES // max(n, 1))
     parts = []
     for start in range(0, m, block):
         Qb = Qs[start : start + block]
         parallel = Qb.shape[0] * n >= _PARALLEL_MIN_PAIRS
-        data, indices, indptr = _csr_weights[parallel](Xs, Qb, code, log_cut, normalize)
+        data, indices, indptr = _csr_weights[parallel](
+            Xs, Qb, code, log_cut, normalize, skip[start : start + block]
+        )
         if code == 0:
             np.exp(data, out=data)
         if normalize:
