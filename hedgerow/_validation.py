@@ -10,8 +10,12 @@ from __future__ import annotations
 import numbers
 
 import numpy as np
-from sklearn.utils._param_validation import validate_parameter_constraints
-from sklearn.utils.validation import check_is_fitted, validate_data
+from sklearn.utils._param_validation import (
+    Interval,
+    InvalidParameterError,
+    validate_parameter_constraints,
+)
+from sklearn.utils.validation import _num_samples, check_is_fitted, validate_data
 
 __all__ = [
     "check_fit_data",
@@ -27,13 +31,91 @@ def validate_params(estimator) -> None:
     """Check ``estimator.get_params()`` against its ``_parameter_constraints`` table.
 
     Raises ``ValueError``/``TypeError`` naming the parameter, the allowed values and the
-    value received.
+    value received. A bool is refused where an integer is expected (scikit-learn's
+    ``Interval(Integral, ...)`` lets ``True`` through as 1).
     """
+    params = estimator.get_params(deep=False)
+    caller = type(estimator).__name__
+    for name, constraints in estimator._parameter_constraints.items():
+        value = params.get(name)
+        if (
+            isinstance(value, (bool, np.bool_))
+            and "boolean" not in constraints
+            and any(
+                c is numbers.Integral
+                or (isinstance(c, Interval) and c.type is numbers.Integral)
+                for c in constraints
+            )
+        ):
+            raise InvalidParameterError(
+                f"The {name!r} parameter of {caller} must be an int, not a bool. "
+                f"Got {value!r} instead."
+            )
     validate_parameter_constraints(
-        estimator._parameter_constraints,
-        estimator.get_params(deep=False),
-        caller_name=type(estimator).__name__,
+        estimator._parameter_constraints, params, caller_name=caller
     )
+
+
+def _first_non_numeric(values):
+    """Return the first entry of ``values`` that float() refuses, or None."""
+    for v in np.asarray(values, dtype=object).ravel():
+        try:
+            float(v)
+        except (TypeError, ValueError):
+            return v
+    return None
+
+
+def _non_numeric_error(X, y):
+    """Return a ValueError naming the input (and column) that holds non-numeric values."""
+    for name, value in (("X", X), ("y", y)):
+        if value is None:
+            continue
+        columns = getattr(value, "columns", None)
+        parts = [(col, value[col]) for col in columns] if columns is not None else [
+            (None, value)
+        ]
+        for col, part in parts:
+            bad = _first_non_numeric(part)
+            if bad is None:
+                continue
+            where = f"Column {col!r} of {name}" if col is not None else name
+            return ValueError(
+                f"{where} must hold numbers only. Got the non-numeric value {bad!r} "
+                f"instead."
+            )
+    return None
+
+
+def _check_2d(X):
+    """Raise naming X if it is an array with more than two dimensions."""
+    ndim = getattr(X, "ndim", None)
+    if ndim is None and isinstance(X, (list, tuple)):
+        try:
+            ndim = np.ndim(X)
+        except ValueError:  # ragged nesting: left to scikit-learn's message
+            ndim = None
+    if ndim is not None and ndim > 2:
+        raise ValueError(
+            f"X must be 2-dimensional (n_samples, n_features). Got an array with "
+            f"{ndim} dimensions, of shape {np.shape(X)}, instead."
+        )
+
+
+def _validate(estimator, X, y=None, **kwargs):
+    """``validate_data`` with messages that name X or y for non-numeric input."""
+    _check_2d(X)
+    try:
+        if y is None:
+            return validate_data(estimator, X, **kwargs)
+        return validate_data(estimator, X, y, **kwargs)
+    except ValueError as err:
+        if "could not convert" not in str(err):
+            raise
+        clearer = _non_numeric_error(X, y)
+        if clearer is None:
+            raise
+        raise clearer from err
 
 
 def check_fit_data(estimator, X, y, *, min_samples: int = 2):
@@ -47,7 +129,15 @@ def check_fit_data(estimator, X, y, *, min_samples: int = 2):
         raise ValueError(
             f"{type(estimator).__name__} requires y to be passed, but the target y is None."
         )
-    X, y = validate_data(
+    try:
+        n_X, n_y = _num_samples(X), _num_samples(y)
+    except TypeError:  # not array-like: left to validate_data's message
+        n_X = n_y = None
+    if n_X is not None and n_X != n_y:
+        raise ValueError(
+            f"y must have one value per row of X ({n_X} rows). Got {n_y} values instead."
+        )
+    X, y = _validate(
         estimator,
         X,
         y,
@@ -57,7 +147,12 @@ def check_fit_data(estimator, X, y, *, min_samples: int = 2):
         y_numeric=True,
         multi_output=False,
     )
-    return np.ascontiguousarray(X), np.ascontiguousarray(y, dtype=np.float64)
+    try:
+        # validate_data converts an object y only; a string dtype gets here unconverted
+        y = np.ascontiguousarray(y, dtype=np.float64)
+    except ValueError as err:
+        raise (_non_numeric_error(None, y) or err) from err
+    return np.ascontiguousarray(X), y
 
 
 def check_predict_data(estimator, X):
@@ -67,7 +162,7 @@ def check_predict_data(estimator, X):
     named columns, the same names in the same order as at fit time.
     """
     check_is_fitted(estimator)
-    X = validate_data(estimator, X, reset=False, dtype=np.float64)
+    X = _validate(estimator, X, reset=False, dtype=np.float64)
     return np.ascontiguousarray(X)
 
 
