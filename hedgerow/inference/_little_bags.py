@@ -63,6 +63,14 @@ class LittleBagsVariance:
         return self.raw <= 0
 
 
+# Below t = -5, t + phi(t)/Phi(t) is taken from Laplace's continued fraction of the Mills
+# ratio, 1 / (x + 2/(x + 3/(x + ...))) with x = -t: the direct form cancels there (it
+# loses ~x^2 eps relative and overflows to inf near t = -1e6, which bags whose u_g agree
+# to rounding, tau ~ 1e-19, do reach). 60 terms reach machine precision for x >= 5.
+_TAIL_FROM = -5.0
+_TAIL_TERMS = 60
+
+
 def truncated_normal_mean(v_hat: np.ndarray, tau: np.ndarray) -> np.ndarray:
     """Return the mean of N(v_hat, tau^2) truncated to [0, inf) (the module docstring)."""
     v_hat = np.asarray(v_hat, dtype=np.float64)
@@ -70,8 +78,17 @@ def truncated_normal_mean(v_hat: np.ndarray, tau: np.ndarray) -> np.ndarray:
     out = np.maximum(v_hat, 0.0).astype(np.float64)
     ok = tau > 0
     t = v_hat[ok] / tau[ok]
-    log_phi = -0.5 * t * t - 0.5 * np.log(2.0 * np.pi)
-    out[ok] = v_hat[ok] + tau[ok] * np.exp(log_phi - log_ndtr(t))
+    res = np.empty_like(t)
+    near = t >= _TAIL_FROM
+    tn = t[near]
+    log_phi = -0.5 * tn * tn - 0.5 * np.log(2.0 * np.pi)
+    res[near] = v_hat[ok][near] + tau[ok][near] * np.exp(log_phi - log_ndtr(tn))
+    x = -t[~near]
+    acc = x.copy()
+    for k in range(_TAIL_TERMS, 1, -1):
+        acc = x + k / acc
+    res[~near] = tau[ok][~near] / acc
+    out[ok] = res
     return out
 
 

@@ -39,9 +39,9 @@ GAUSSIAN_TRUNCATION = 1e-16
 
 _CODES = {name: code for code, name in enumerate(KERNELS)}
 
-# Queries are processed in blocks of about this many (query, row) pairs, so that the
-# output of one block stays within a few hundred megabytes even for wide bandwidths.
-_BLOCK_ENTRIES = 16_000_000
+# Queries are processed in blocks of about this many (query, row) pairs; a block's
+# scratch space is 12 bytes per pair (about 50 MB).
+_BLOCK_ENTRIES = 4_000_000
 
 
 def _check_kernel(kernel) -> int:
@@ -76,85 +76,82 @@ def kernel_profile(kernel: str, u) -> np.ndarray:
     return np.where(inside, (1.0 - np.minimum(u, 1.0) ** 3) ** 3, 0.0)
 
 
-@numba.njit(cache=True, inline="always")
-def _sqdist(Xs, Qs, i, j, d):
-    s = 0.0
-    for c in range(d):
-        t = Xs[j, c] - Qs[i, c]
-        s += t * t
-    return s
+@numba.njit(cache=True)
+def _row_values(XT, Qs, i, code, skip_i, buf):
+    """Fill ``buf`` with query ``i``'s squared distances (Gaussian) or kernel values.
+
+    Column by column over contiguous rows of ``XT`` (d, n), branch-free, so that the
+    loops vectorise. The excluded row gets distance inf / weight 0.
+    """
+    d, n = XT.shape
+    if code == 0:
+        buf[:] = 0.0
+        for c in range(d):
+            q = Qs[i, c]
+            row = XT[c]
+            for j in range(n):
+                t = row[j] - q
+                buf[j] += t * t
+        if skip_i >= 0:
+            buf[skip_i] = np.inf
+    else:
+        buf[:] = 1.0
+        for c in range(d):
+            q = Qs[i, c]
+            row = XT[c]
+            for j in range(n):
+                t = abs(row[j] - q)
+                if code == 1:
+                    f = 1.0 - t * t
+                else:
+                    a = 1.0 - t * t * t
+                    f = a * a * a
+                # Negative beyond |u| = 1 for both profiles: clip to the support.
+                buf[j] *= max(f, 0.0)
+        if skip_i >= 0:
+            buf[skip_i] = 0.0
 
 
-@numba.njit(cache=True, inline="always")
-def _compact(Xs, Qs, i, j, d, code):
-    v = 1.0
-    for c in range(d):
-        t = abs(Xs[j, c] - Qs[i, c])
-        if t >= 1.0:
-            return 0.0
-        if code == 1:
-            v *= 1.0 - t * t
-        else:
-            a = 1.0 - t * t * t
-            v *= a * a * a
-    return v
+def _segments_py(XT, Qs, code, log_cut, normalize, skip, seg_data, seg_idx, counts):
+    """Write each query's kept entries into its own segment ``[i * n, i * n + count)``.
 
-
-def _csr_weights_py(Xs, Qs, code, log_cut, normalize, skip):
-    """Return CSR arrays of kernel weights (Gaussian: log-weights), unnormalised."""
-    m, d = Qs.shape
-    n = Xs.shape[0]
-    counts = np.zeros(m + 1, dtype=np.int64)
-    shift = np.zeros(m)
+    One pass per query: distances or kernel values into a row buffer (vectorised), then a
+    branch-free compaction. Gaussian entries are stored as log-weights (shifted by the
+    row's nearest distance when normalising) and exponentiated later, vectorised.
+    """
+    m = Qs.shape[0]
+    n = XT.shape[1]
     for i in numba.prange(m):
+        buf = np.empty(n)
+        _row_values(XT, Qs, i, code, skip[i], buf)
+        base = i * n
         c = 0
         if code == 0:
-            best = np.inf
-            for j in range(n):
-                if j == skip[i]:
-                    continue
-                s = _sqdist(Xs, Qs, i, j, d)
-                if s < best:
-                    best = s
             # Shift by the nearest row so that far-away queries do not underflow to 0.
-            if normalize:
-                shift[i] = best
-            cut = 2.0 * log_cut + shift[i]
-            for j in range(n):
-                if j != skip[i] and _sqdist(Xs, Qs, i, j, d) <= cut:
-                    c += 1
-        else:
-            for j in range(n):
-                if j != skip[i] and _compact(Xs, Qs, i, j, d, code) > 0.0:
-                    c += 1
-        counts[i + 1] = c
-    indptr = np.cumsum(counts)
-    data = np.empty(indptr[m])
-    indices = np.empty(indptr[m], dtype=np.int32)
-    for i in numba.prange(m):
-        p = indptr[i]
-        if code == 0:
-            sh = shift[i]
+            sh = buf.min() if normalize and n > 0 else 0.0
+            if not np.isfinite(sh):
+                sh = 0.0
             cut = 2.0 * log_cut + sh
             for j in range(n):
-                if j == skip[i]:
-                    continue
-                s = _sqdist(Xs, Qs, i, j, d)
-                if s <= cut:
-                    # The log-weight for now; exponentiated below, vectorised.
-                    data[p] = -0.5 * (s - sh)
-                    indices[p] = j
-                    p += 1
+                seg_idx[base + c] = j
+                seg_data[base + c] = -0.5 * (buf[j] - sh)
+                c += buf[j] <= cut
         else:
             for j in range(n):
-                if j == skip[i]:
-                    continue
-                v = _compact(Xs, Qs, i, j, d, code)
-                if v > 0.0:
-                    data[p] = v
-                    indices[p] = j
-                    p += 1
-    return data, indices, indptr
+                seg_idx[base + c] = j
+                seg_data[base + c] = buf[j]
+                c += buf[j] > 0.0
+        counts[i + 1] = c
+
+
+def _gather_py(seg_data, seg_idx, indptr, n, data, indices):
+    m = indptr.shape[0] - 1
+    for i in numba.prange(m):
+        base = i * n
+        start = indptr[i]
+        for q in range(indptr[i + 1] - start):
+            data[start + q] = seg_data[base + q]
+            indices[start + q] = seg_idx[base + q]
 
 
 def _normalize_rows_py(data, indptr):
@@ -173,14 +170,47 @@ def _normalize_rows_py(data, indptr):
 # of a parallel region (much slower on a busy machine) outweighs the work.
 _PARALLEL_MIN_PAIRS = 250_000
 
-_csr_weights = {
-    True: numba.njit(parallel=True, cache=True)(_csr_weights_py),
-    False: numba.njit(cache=True)(_csr_weights_py),
-}
-_normalize_rows = {
-    True: numba.njit(parallel=True, cache=True)(_normalize_rows_py),
-    False: numba.njit(cache=True)(_normalize_rows_py),
-}
+
+def _both(fn):
+    return {
+        True: numba.njit(parallel=True, cache=True)(fn),
+        False: numba.njit(cache=True)(fn),
+    }
+
+
+_segments = _both(_segments_py)
+_gather = _both(_gather_py)
+_normalize_rows = _both(_normalize_rows_py)
+
+
+def _prepare(X_train, Q, bandwidth, kernel, exclude):
+    code = _check_kernel(kernel)
+    X_train = np.asarray(X_train, dtype=np.float64)
+    Q = np.asarray(Q, dtype=np.float64)
+    h = np.asarray(bandwidth, dtype=np.float64).ravel()
+    d = X_train.shape[1]
+    if h.shape != (d,) or not np.all(np.isfinite(h)) or np.any(h <= 0):
+        raise ValueError(
+            f"The 'bandwidth' parameter must hold {d} positive finite values (one per "
+            f"column). Got {bandwidth!r} instead."
+        )
+    if Q.ndim != 2 or Q.shape[1] != d:
+        raise ValueError(
+            f"The 'Q' parameter must be a 2-d array with {d} columns. "
+            f"Got shape {Q.shape} instead."
+        )
+    # Centre before scaling so that squared distances are formed from small numbers.
+    centre = X_train.mean(axis=0) if X_train.shape[0] else np.zeros(d)
+    XT = np.ascontiguousarray(((X_train - centre) / h).T)
+    Qs = np.ascontiguousarray((Q - centre) / h)
+    m = Qs.shape[0]
+    skip = np.full(m, -1, dtype=np.int64) if exclude is None else np.asarray(exclude, np.int64)
+    if skip.shape != (m,):
+        raise ValueError(
+            f"The 'exclude' parameter must hold {m} indices (one per query). "
+            f"Got shape {skip.shape} instead."
+        )
+    return code, XT, Qs, skip
 
 
 def kernel_weights(
@@ -211,41 +241,27 @@ def kernel_weights(
     scipy.sparse.csr_matrix of shape (m, n)
         Non-negative weights; entries are dropped as described in the module notes.
     """
-    code = _check_kernel(kernel)
-    X_train = np.asarray(X_train, dtype=np.float64)
-    Q = np.asarray(Q, dtype=np.float64)
-    h = np.asarray(bandwidth, dtype=np.float64).ravel()
-    d = X_train.shape[1]
-    if h.shape != (d,) or not np.all(np.isfinite(h)) or np.any(h <= 0):
-        raise ValueError(
-            f"The 'bandwidth' parameter must hold {d} positive finite values (one per "
-            f"column). Got {bandwidth!r} instead."
-        )
-    if Q.ndim != 2 or Q.shape[1] != d:
-        raise ValueError(
-            f"The 'Q' parameter must be a 2-d array with {d} columns. "
-            f"Got shape {Q.shape} instead."
-        )
-    # Centre before scaling so that squared distances are formed from small numbers.
-    centre = X_train.mean(axis=0) if X_train.shape[0] else np.zeros(d)
-    Xs = np.ascontiguousarray((X_train - centre) / h)
-    Qs = np.ascontiguousarray((Q - centre) / h)
-    m, n = Qs.shape[0], Xs.shape[0]
-    skip = np.full(m, -1, dtype=np.int64) if exclude is None else np.asarray(exclude, np.int64)
-    if skip.shape != (m,):
-        raise ValueError(
-            f"The 'exclude' parameter must hold {m} indices (one per query). "
-            f"Got shape {skip.shape} instead."
-        )
+    code, XT, Qs, skip = _prepare(X_train, Q, bandwidth, kernel, exclude)
+    m, n = Qs.shape[0], XT.shape[1]
     log_cut = -math.log(GAUSSIAN_TRUNCATION)
     block = max(1, _BLOCK_ENTRIES // max(n, 1))
     parts = []
     for start in range(0, m, block):
-        Qb = Qs[start : start + block]
-        parallel = Qb.shape[0] * n >= _PARALLEL_MIN_PAIRS
-        data, indices, indptr = _csr_weights[parallel](
-            Xs, Qb, code, log_cut, normalize, skip[start : start + block]
+        stop = min(m, start + block)
+        mb = stop - start
+        parallel = mb * n >= _PARALLEL_MIN_PAIRS
+        seg_data = np.empty(mb * n)
+        seg_idx = np.empty(mb * n, dtype=np.int32)
+        counts = np.zeros(mb + 1, dtype=np.int64)
+        _segments[parallel](
+            XT, Qs[start:stop], code, log_cut, normalize, skip[start:stop],
+            seg_data, seg_idx, counts,
         )
+        indptr = np.cumsum(counts)
+        data = np.empty(indptr[-1])
+        indices = np.empty(indptr[-1], dtype=np.int32)
+        _gather[parallel](seg_data, seg_idx, indptr, n, data, indices)
+        del seg_data, seg_idx
         if code == 0:
             np.exp(data, out=data)
         if normalize:
