@@ -115,6 +115,10 @@ def grow_forest(
     X = np.ascontiguousarray(X, dtype=np.float64)
     y = np.ascontiguousarray(y, dtype=np.float64)
     Z = np.zeros((X.shape[0], 0)) if Z is None else np.ascontiguousarray(Z, dtype=np.float64)
+    # Splits depend on y only through differences; centring keeps the squared-error sums
+    # of the split search from cancelling when y has a large offset (y + 1e8 used to give
+    # different, worse trees than y). Leaf values are computed from the raw y elsewhere.
+    y = y - y.mean()
     order = presort(X)
     B = len(plan.sample_rows)
     md = -1 if max_depth is None else int(max_depth)
