@@ -476,3 +476,19 @@ def test_predictions_follow_a_shift_of_y(friedman_small, friedman_query, offset)
     rmse = np.sqrt(np.mean((shifted - offset - base) ** 2))
     # tolerance: a tenth of the noise standard deviation of make_friedman1(noise=1.0)
     assert rmse < 0.1
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="known limitation, reported: grow_tree treats feature values closer than the "
+    "absolute _FEATURE_THRESHOLD = 1e-7 as tied (kept from scikit-learn's float32 "
+    "splitter for the DecisionTreeRegressor equivalence), so a column measured on a "
+    "scale of 1e-8 is never split and the forest predicts a constant",
+)
+def test_small_scale_features_are_split(friedman_small, friedman_query):
+    X, y = friedman_small
+    params = dict(n_estimators=20, random_state=0)
+    base = HonestForestRegressor(**params).fit(X, y).predict(friedman_query)
+    small = HonestForestRegressor(**params).fit(X * 1e-8, y).predict(friedman_query * 1e-8)
+    # a change of units must not switch the forest off
+    assert small.std() > 0.5 * base.std()
