@@ -125,7 +125,8 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         return self
 
     def _local_fit(self, X):
-        W = kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel)
+        # Row scaling does not change a local fit, so the weights need no normalising.
+        W = kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel, normalize=False)
         moments = local_moments(
             W, self.X_train_, self.y_train_, X, degree=self._degree, scale=self.scale_
         )
@@ -137,7 +138,8 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             X = self.X_train_
             W, fit = self._local_fit(X)
             resid2 = (self.y_train_ - fit.intercept) ** 2
-            self._variance_cache["sigma2"] = np.asarray(W @ resid2).ravel()
+            total = np.asarray(W.sum(axis=1)).ravel()
+            self._variance_cache["sigma2"] = np.asarray(W @ resid2).ravel() / total
         return self._variance_cache["sigma2"]
 
     def neighbour_weights(self, X):

@@ -83,7 +83,8 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
     digits, and Gaussian truncation against the row's own (self) weight may have dropped
     all of its neighbours.
     """
-    W = kernel_weights(X, X, bandwidth, kernel)
+    # Unnormalised rows: leverages and fits do not depend on the scaling of a row.
+    W = kernel_weights(X, X, bandwidth, kernel, normalize=False)
     moments = local_moments(W, X, y, X, degree=degree, scale=scale)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.

@@ -39,9 +39,9 @@ GAUSSIAN_TRUNCATION = 1e-16
 
 _CODES = {name: code for code, name in enumerate(KERNELS)}
 
-# Queries are processed in blocks of about this many (query, row) pairs; a block's
-# scratch space is 12 bytes per pair (about 50 MB).
-_BLOCK_ENTRIES = 4_000_000
+# Queries are processed in blocks of about this many (query, row) pairs, so that the
+# output of one block stays within a few hundred megabytes even for wide bandwidths.
+_BLOCK_ENTRIES = 16_000_000
 
 
 def _check_kernel(kernel) -> int:
@@ -112,51 +112,69 @@ def _row_values(XT, Qs, i, code, skip_i, buf):
             buf[skip_i] = 0.0
 
 
-def _segments_py(XT, Qs, code, log_cut, normalize, skip, seg_data, seg_idx, counts):
-    """Write each query's kept entries into its own segment ``[i * n, i * n + count)``.
-
-    One pass per query: distances or kernel values into a row buffer (vectorised), then a
-    branch-free compaction. Gaussian entries are stored as log-weights (shifted by the
-    row's nearest distance when normalising) and exponentiated later, vectorised.
-    """
+def _count_py(XT, Qs, code, log_cut, skip, counts, shift):
+    """Count each query's kept entries (and, for the Gaussian, its distance shift)."""
     m = Qs.shape[0]
     n = XT.shape[1]
-    for i in numba.prange(m):
+    for i in range(m):
         buf = np.empty(n)
         _row_values(XT, Qs, i, code, skip[i], buf)
-        base = i * n
         c = 0
         if code == 0:
             # Shift by the nearest row so that far-away queries do not underflow to 0.
-            sh = buf.min() if normalize and n > 0 else 0.0
+            sh = buf.min() if n > 0 else 0.0
             if not np.isfinite(sh):
                 sh = 0.0
+            shift[i] = sh
             cut = 2.0 * log_cut + sh
             for j in range(n):
-                seg_idx[base + c] = j
-                seg_data[base + c] = -0.5 * (buf[j] - sh)
                 c += buf[j] <= cut
         else:
             for j in range(n):
-                seg_idx[base + c] = j
-                seg_data[base + c] = buf[j]
                 c += buf[j] > 0.0
         counts[i + 1] = c
 
 
-def _gather_py(seg_data, seg_idx, indptr, n, data, indices):
-    m = indptr.shape[0] - 1
-    for i in numba.prange(m):
-        base = i * n
+def _fill_py(XT, Qs, code, log_cut, skip, shift, indptr, data, indices):
+    """Write each query's kept entries (Gaussian: as log-weights) into the CSR arrays.
+
+    Distances are recomputed rather than stored: that is cheaper than touching a
+    query-by-row scratch array. The writes are branch-free into a row-local list first.
+    """
+    m = Qs.shape[0]
+    n = XT.shape[1]
+    for i in range(m):
+        buf = np.empty(n)
+        idx = np.empty(n, dtype=np.int32)
+        _row_values(XT, Qs, i, code, skip[i], buf)
+        c = 0
+        if code == 0:
+            cut = 2.0 * log_cut + shift[i]
+            for j in range(n):
+                idx[c] = j
+                c += buf[j] <= cut
+        else:
+            for j in range(n):
+                idx[c] = j
+                c += buf[j] > 0.0
         start = indptr[i]
-        for q in range(indptr[i + 1] - start):
-            data[start + q] = seg_data[base + q]
-            indices[start + q] = seg_idx[base + q]
+        sh = shift[i]
+        if code == 0:
+            for q in range(c):
+                j = idx[q]
+                indices[start + q] = j
+                # Exponentiated afterwards, vectorised.
+                data[start + q] = -0.5 * (buf[j] - sh)
+        else:
+            for q in range(c):
+                j = idx[q]
+                indices[start + q] = j
+                data[start + q] = buf[j]
 
 
 def _normalize_rows_py(data, indptr):
     m = indptr.shape[0] - 1
-    for i in numba.prange(m):
+    for i in range(m):
         total = 0.0
         for q in range(indptr[i], indptr[i + 1]):
             total += data[q]
@@ -166,21 +184,15 @@ def _normalize_rows_py(data, indptr):
                 data[q] *= inv
 
 
-# Threads pay off only for large blocks; below this many (query, row) pairs the start-up
-# of a parallel region (much slower on a busy machine) outweighs the work.
-_PARALLEL_MIN_PAIRS = 250_000
+# Compiled single-threaded: on the 2-core machines this is developed on, threads gave at
+# most 1.5x and, with another process busy, parallel regions stalled for tens of ms.
+def _compile(fn):
+    return numba.njit(cache=True)(fn)
 
 
-def _both(fn):
-    return {
-        True: numba.njit(parallel=True, cache=True)(fn),
-        False: numba.njit(cache=True)(fn),
-    }
-
-
-_segments = _both(_segments_py)
-_gather = _both(_gather_py)
-_normalize_rows = _both(_normalize_rows_py)
+_count = _compile(_count_py)
+_fill = _compile(_fill_py)
+_normalize_rows = _compile(_normalize_rows_py)
 
 
 def _prepare(X_train, Q, bandwidth, kernel, exclude):
@@ -229,9 +241,9 @@ def kernel_weights(
     kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
     normalize : bool, default=True
         Divide each row by its sum (rows then sum to one; empty rows stay empty). With
-        ``normalize=False`` the raw products ``K(u)`` are returned (``K(0) = 1``), with
-        Gaussian weights truncated against the largest possible value 1 instead of the
-        row maximum.
+        ``normalize=False`` rows are left unscaled: compact-kernel rows hold ``K(u)``
+        and Gaussian rows ``K(u) / max_row K`` (largest entry 1). The local fits of
+        :mod:`hedgerow.local` do not depend on the scaling of a row.
     exclude : array-like of int of shape (m,), optional
         For each query, the index of one training row to leave out (-1 for none), as if
         that row were not in ``X_train``; used for leave-one-out fits.
@@ -249,23 +261,18 @@ def kernel_weights(
     for start in range(0, m, block):
         stop = min(m, start + block)
         mb = stop - start
-        parallel = mb * n >= _PARALLEL_MIN_PAIRS
-        seg_data = np.empty(mb * n)
-        seg_idx = np.empty(mb * n, dtype=np.int32)
         counts = np.zeros(mb + 1, dtype=np.int64)
-        _segments[parallel](
-            XT, Qs[start:stop], code, log_cut, normalize, skip[start:stop],
-            seg_data, seg_idx, counts,
-        )
+        shift = np.zeros(mb)
+        Qb, skip_b = Qs[start:stop], skip[start:stop]
+        _count(XT, Qb, code, log_cut, skip_b, counts, shift)
         indptr = np.cumsum(counts)
         data = np.empty(indptr[-1])
         indices = np.empty(indptr[-1], dtype=np.int32)
-        _gather[parallel](seg_data, seg_idx, indptr, n, data, indices)
-        del seg_data, seg_idx
+        _fill(XT, Qb, code, log_cut, skip_b, shift, indptr, data, indices)
         if code == 0:
             np.exp(data, out=data)
         if normalize:
-            _normalize_rows[parallel](data, indptr)
+            _normalize_rows(data, indptr)
         parts.append((data, indices, indptr))
     if not parts:
         return sp.csr_matrix((m, n))

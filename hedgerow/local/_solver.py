@@ -40,6 +40,7 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 import scipy.sparse as sp
 
@@ -147,6 +148,38 @@ def default_scale(X_c) -> np.ndarray:
     return np.where(scale > 0.0, scale, 1.0)
 
 
+def _csr_dense_py(data, indices, indptr, BT):
+    m = indptr.shape[0] - 1
+    p = BT.shape[0]
+    out = np.zeros((m, p))
+    for i in range(m):
+        lo, hi = indptr[i], indptr[i + 1]
+        # One column at a time: a scalar accumulator and a contiguous column to gather.
+        for c in range(p):
+            col = BT[c]
+            acc = 0.0
+            for q in range(lo, hi):
+                acc += data[q] * col[indices[q]]
+            out[i, c] = acc
+    return out
+
+
+# scipy's CSR x dense product is generic; this one, compiled, is about twice as fast for
+# the few-column products here (single-threaded: see hedgerow.kernels._kernels).
+_csr_dense = numba.njit(cache=True)(_csr_dense_py)
+
+
+def _weighted_sums(W, B) -> np.ndarray:
+    """Return ``W @ B`` as a dense array (``W`` sparse or dense, ``B`` dense (n, p))."""
+    if not sp.issparse(W):
+        return np.asarray(W @ B)
+    W = W.tocsr()
+    if W.data.dtype != np.float64:
+        W = W.astype(np.float64)
+    BT = np.ascontiguousarray(np.asarray(B, dtype=np.float64).T)
+    return _csr_dense(W.data, W.indices, W.indptr, BT)
+
+
 def _pair_indices(k: int):
     return np.triu_indices(k)
 
@@ -193,7 +226,7 @@ def local_moments(W, X_c, y, Q_c, *, degree: int, scale=None) -> LocalMoments:
         )
     if degree == 0:
         B = np.stack([np.ones(n), y], axis=1)
-        R = np.asarray(W @ B)
+        R = _weighted_sums(W, B)
         empty = np.zeros((m, 0))
         return LocalMoments(
             degree=0,
@@ -232,7 +265,7 @@ def local_moments(W, X_c, y, Q_c, *, degree: int, scale=None) -> LocalMoments:
     B = np.concatenate(
         [np.ones((n, 1)), Xs, Xs[:, iu] * Xs[:, ju], y[:, None], Xs * y[:, None]], axis=1
     )
-    R = np.asarray(W @ B)
+    R = _weighted_sums(W, B)
     p = len(iu)
     s0 = R[:, 0]
     mx = R[:, 1 : 1 + k]

@@ -81,6 +81,21 @@ def test_weights_are_normalised_sparse_and_match_dense(kernel):
         assert not dropped.any()
 
 
+@pytest.mark.parametrize("kernel", KERNELS)
+def test_unnormalised_rows_are_proportional(kernel):
+    rng = np.random.default_rng(21)
+    X, Q = rng.normal(size=(80, 2)), rng.normal(size=(10, 2))
+    W = kernel_weights(X, Q, [0.8, 0.8], kernel)
+    R = kernel_weights(X, Q, [0.8, 0.8], kernel, normalize=False)
+    np.testing.assert_array_equal(R.indptr, W.indptr)
+    sums = np.asarray(R.sum(axis=1)).ravel()
+    np.testing.assert_allclose(R.toarray() / sums[:, None], W.toarray(), rtol=1e-12)
+    if kernel == "gaussian":
+        np.testing.assert_allclose(R.max(axis=1).toarray().ravel(), 1.0)
+    else:
+        np.testing.assert_allclose(R.toarray(), _dense_product_kernel(X, Q, 0.8, kernel))
+
+
 def test_far_gaussian_queries_do_not_underflow_and_compact_ones_are_empty():
     X = np.linspace(0, 1, 50)[:, None]
     Q = np.array([[60.0]])
