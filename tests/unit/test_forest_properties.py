@@ -121,7 +121,8 @@ def test_bagged_standard_errors_are_positive_or_nan(data):
     X, y = data.draw(designs())
     params = data.draw(forests(X.shape[0]))
     if params["trees_per_bag"] == 1:
-        params.update(trees_per_bag=2, n_estimators=4, subsample_rate=0.3)
+        # rate 0.5 on n >= 12 rows: s = n // 2 >= 6, so 3 rows per half meet any leaf size
+        params.update(trees_per_bag=2, n_estimators=4, subsample_rate=0.5)
     est = HonestForestRegressor(**params).fit(X, y)
     mean, std = est.predict(X[:6], return_std=True)
     np.testing.assert_array_equal(mean, est.predict(X[:6]))
