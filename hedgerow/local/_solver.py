@@ -164,9 +164,10 @@ def _csr_dense_py(data, indices, indptr, BT):
     return out
 
 
-# scipy's CSR x dense product is generic; this one, compiled, is about twice as fast for
-# the few-column products here (single-threaded: see hedgerow.kernels._kernels).
+# For one to three columns (the local-constant moments) this compiled product is about
+# twice as fast as scipy's; for more columns scipy's row-major kernel is as fast or faster.
 _csr_dense = numba.njit(cache=True)(_csr_dense_py)
+_COMPILED_MAX_COLUMNS = 3
 
 
 def _weighted_sums(W, B) -> np.ndarray:
@@ -176,8 +177,10 @@ def _weighted_sums(W, B) -> np.ndarray:
     W = W.tocsr()
     if W.data.dtype != np.float64:
         W = W.astype(np.float64)
-    BT = np.ascontiguousarray(np.asarray(B, dtype=np.float64).T)
-    return _csr_dense(W.data, W.indices, W.indptr, BT)
+    B = np.asarray(B, dtype=np.float64)
+    if B.shape[1] > _COMPILED_MAX_COLUMNS:
+        return np.asarray(W @ B)
+    return _csr_dense(W.data, W.indices, W.indptr, np.ascontiguousarray(B.T))
 
 
 def _pair_indices(k: int):
