@@ -13,6 +13,7 @@ import numpy as np
 from scipy.stats import norm
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils._param_validation import Interval, StrOptions
+from sklearn.utils.validation import check_is_fitted
 
 from hedgerow._validation import (
     as_float_array_1d,
@@ -24,6 +25,7 @@ from hedgerow._validation import (
 from hedgerow.kernels import (
     KERNELS,
     kernel_weights,
+    loo_residuals,
     select_bandwidth_cv,
     silverman_bandwidth,
 )
@@ -141,6 +143,20 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             total = np.asarray(W.sum(axis=1)).ravel()
             self._variance_cache["sigma2"] = np.asarray(W @ resid2).ravel() / total
         return self._variance_cache["sigma2"]
+
+    def loo_predict(self):
+        """Return leave-one-out predictions of the training rows (hat-matrix diagonal).
+
+        Row i's value is the smoother fitted without row i, evaluated at x_i, from the
+        leverages (rows nearly alone in their neighbourhood are refitted directly); NaN
+        where no other row carries weight.
+        """
+        check_is_fitted(self)
+        resid = loo_residuals(
+            self.X_train_, self.y_train_, self.bandwidth_, self.kernel, self._degree,
+            self.scale_,
+        )
+        return self.y_train_ - resid
 
     def neighbour_weights(self, X):
         """Return the kernel weights of the training rows for each row of ``X``.

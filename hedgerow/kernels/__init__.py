@@ -6,6 +6,7 @@ from hedgerow.kernels._bandwidth import (
     LOO_DIRECT_LEVERAGE,
     CVCurve,
     loo_cv_error,
+    loo_residuals,
     select_bandwidth_cv,
     silverman_bandwidth,
 )
@@ -26,6 +27,7 @@ __all__ = [
     "kernel_profile",
     "kernel_weights",
     "loo_cv_error",
+    "loo_residuals",
     "select_bandwidth_cv",
     "silverman_bandwidth",
 ]

@@ -25,6 +25,7 @@ __all__ = [
     "CVCurve",
     "LOO_DIRECT_LEVERAGE",
     "loo_cv_error",
+    "loo_residuals",
     "select_bandwidth_cv",
     "silverman_bandwidth",
 ]
@@ -100,6 +101,18 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
             fd = solve_local(local_moments(Wd, X, y, Xd, degree=degree, scale=scale), 0.0)
             resid[direct] = y[direct] - fd.intercept
     return resid
+
+
+def loo_residuals(X, y, bandwidth, kernel: str, degree: int, scale) -> np.ndarray:
+    """Return the leave-one-out residuals ``y_i - g_{-i}(x_i)`` of a kernel smoother.
+
+    ``bandwidth`` per column in the units of ``X``; ``scale`` the column scales of the
+    local solve. NaN where no other row carries weight.
+    """
+    return _loo_residuals(
+        np.asarray(X, dtype=np.float64), np.asarray(y, dtype=np.float64),
+        np.asarray(bandwidth, dtype=np.float64), kernel, degree, scale,
+    )
 
 
 def loo_cv_error(X, y, bandwidth, kernel: str = "gaussian", degree: int = 0) -> float:

@@ -193,3 +193,42 @@ def test_verdict_on_step_truth_does_not_claim_help():
     y = np.where(X[:, 0] > 0.5, 2.0, 0.0) + rng.normal(0, 1.0, 1000)
     v = verdict(X, y, smoothers=None, random_state=0)
     assert not v.conclusion.startswith("The local linear correction lowers"), v.conclusion
+
+
+def test_kernel_loo_predict_matches_refits():
+    # leave-one-out by definition: refit without row i, predict at x_i
+    from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
+
+    rng = np.random.default_rng(2)
+    X = rng.uniform(size=(80, 2))
+    y = np.sin(3 * X[:, 0]) + X[:, 1] + rng.normal(0, 0.1, 80)
+    for cls in (NadarayaWatsonRegressor, LocalLinearRegressor):
+        m = cls(bandwidth=0.4).fit(X, y)
+        loo = m.loo_predict()
+        for i in (0, 17, 55):
+            keep = np.arange(80) != i
+            sub = cls(bandwidth=m.bandwidth_ / X[keep].std(axis=0)).fit(X[keep], y[keep])
+            assert loo[i] == pytest.approx(sub.predict(X[i:i + 1])[0], rel=1e-8)
+
+
+def test_probe_and_verdict_with_smoothers(data, llf):
+    from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
+
+    X, y = data
+    nw = NadarayaWatsonRegressor(bandwidth="silverman").fit(X, y)
+    ll = LocalLinearRegressor(bandwidth="silverman").fit(X, y)
+    x = X[7]
+    rep = probe(llf, x, compare=(nw, ll))
+    nw_row = rep.method("Nadaraya-Watson")
+    assert nw_row.prediction == pytest.approx(nw.predict(x[None, :])[0])
+    ll_row = rep.method("local linear (kernel)")
+    cols = llf.correction_features_
+    np.testing.assert_allclose(ll_row.slopes, ll.local_slopes(x[None, :])[0][cols])
+    assert ll_row.ess == pytest.approx(kish_ess(ll.neighbour_weights(x[None, :]).data))
+    v = verdict(X, y, forest=llf, smoothers=[nw, ll], baseline=True)
+    e = v.errors
+    np.testing.assert_allclose(e["Nadaraya-Watson"], (y - nw.loo_predict()) ** 2)
+    assert {"Nadaraya-Watson", "local linear (kernel)", "random forest (scikit-learn)"} <= set(
+        v.comparisons.index)
+    prof = edges({"llf": llf, "nw": nw, "ll": ll})
+    assert set(prof.bands["method"]) == {"llf", "nw", "ll"}
