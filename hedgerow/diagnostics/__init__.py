@@ -6,18 +6,42 @@
 - ``verdict``: paired held-out errors and a plain-language conclusion.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
+- ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
+  small, refit-free pieces the interactive views render.
 """
 
 from hedgerow.diagnostics._coverage import CoverageReport, coverage_readout
 from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
+from hedgerow.diagnostics._interactive import (
+    at_ridge_penalty,
+    local_average_model,
+    local_line,
+    oob_summary,
+    probe_anchor,
+    probe_readout,
+    ridge_curve,
+    slice_grid,
+    weight_profile,
+)
 from hedgerow.diagnostics._probe import TOP_ROWS, MethodAtProbe, ProbeReport, probe
 from hedgerow.diagnostics._report import kish_ess
-from hedgerow.diagnostics._slices import SliceReport, slices
+from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
 from hedgerow.diagnostics._verdict import EDGE_BAND, Verdict, paired_relative_gain, verdict
 
 __all__ = [
+    "at_ridge_penalty",
+    "local_average_model",
+    "local_line",
+    "method_label",
+    "resolve_feature",
+    "oob_summary",
+    "probe_anchor",
+    "probe_readout",
+    "ridge_curve",
+    "slice_grid",
+    "weight_profile",
     "CoverageReport",
     "TuningSurface",
     "coverage_readout",

@@ -1,0 +1,170 @@
+"""Small pieces the interactive views need, kept here so the widgets compute nothing.
+
+Each function is cheap enough to run on every probe move or slider step: none refits.
+"""
+
+from __future__ import annotations
+
+import copy
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from hedgerow.diagnostics._slices import resolve_feature
+from hedgerow.inference import normal_interval
+
+__all__ = [
+    "at_ridge_penalty",
+    "local_average_model",
+    "local_line",
+    "oob_summary",
+    "probe_anchor",
+    "probe_readout",
+    "ridge_curve",
+    "slice_grid",
+    "weight_profile",
+]
+
+
+def at_ridge_penalty(model, ridge_penalty):
+    """Return a view of a fitted local linear forest that uses ``ridge_penalty``.
+
+    The view shares the trees and the cached weighted moments with ``model`` (nothing is
+    refitted or copied in depth), so every diagnostic run on it re-solves only the small
+    local systems. ``model`` itself is left unchanged.
+    """
+    lam = model._penalty(ridge_penalty)
+    # Build the out-of-bag moments on the original once, so every view shares them.
+    model.ridge_path([])
+    view = copy.copy(model)
+    view.ridge_penalty_ = lam
+    return view
+
+
+class _LocalAverage:
+    """A fitted forest seen through its local average (the honest forest on its trees)."""
+
+    def __init__(self, model):
+        self._model = model
+        self.n_features_in_ = model.n_features_in_
+        self.X_train_ = model.X_train_
+        self.y_train_ = model.y_train_
+        names = getattr(model, "feature_names_in_", None)
+        if names is not None:
+            self.feature_names_in_ = names
+
+    def predict(self, X, return_std=False):
+        return self._model.local_average(X, return_std=return_std)
+
+    def oob_predict(self, return_std=False):
+        return self._model.oob_local_average(return_std=return_std)
+
+
+def local_average_model(model):
+    """Return an object whose ``predict`` / ``oob_predict`` are ``model``'s local average.
+
+    For a local linear forest this is the honest forest on the same trees and weights,
+    usable wherever a fitted model is expected (``slices``, ``edges``).
+    """
+    return _LocalAverage(model)
+
+
+def probe_anchor(X, row=None) -> np.ndarray:
+    """Return the probe's starting point: the column medians of X, or row ``row`` of X."""
+    X = np.asarray(X, dtype=np.float64)
+    if row is None:
+        return np.median(X, axis=0)
+    if isinstance(row, bool) or not isinstance(row, int | np.integer) or not (
+        0 <= int(row) < X.shape[0]
+    ):
+        raise ValueError(
+            f"The 'row' parameter must be None or a row index in [0, {X.shape[0]}). "
+            f"Got {row!r} instead."
+        )
+    return X[int(row)].copy()
+
+
+def slice_grid(model, feature, size: int = 80) -> np.ndarray:
+    """Return ``size`` evenly spaced values spanning the training range of ``feature``."""
+    j = resolve_feature(model, feature)
+    col = model.X_train_[:, j]
+    return np.linspace(float(col.min()), float(col.max()), int(size))
+
+
+def local_line(report, feature, span, *, method="local linear forest"):
+    """Return ``(xs, ys)``: the two ends of the local line of ``method`` along ``feature``.
+
+    The segment passes through the method's prediction at the probe with its local slope
+    in that column, ``span`` (column units) to either side. A column outside the local
+    line's columns, or a method without slopes, has slope 0 there.
+    """
+    names = list(report.feature_names)
+    j = names.index(feature) if isinstance(feature, str) else int(feature)
+    m = report.method(method)
+    cols = [int(c) for c in np.asarray(report.slope_columns)]
+    slope = float(m.slopes[cols.index(j)]) if j in cols else 0.0
+    if not np.isfinite(slope):
+        slope = 0.0
+    x0 = float(report.x[j])
+    span = max(float(span), 1e-12)
+    xs = np.array([x0 - span, x0 + span])
+    ys = m.prediction + slope * (xs - x0)
+    return xs, ys
+
+
+def probe_readout(report) -> pd.DataFrame:
+    """Return per method: prediction, interval half-width, lower, upper and effective n."""
+    rows = []
+    for m in report.methods:
+        half = (m.upper - m.lower) / 2 if np.isfinite(m.upper - m.lower) else np.nan
+        rows.append({"method": m.name, "prediction": m.prediction, "half_width": half,
+                     "lower": m.lower, "upper": m.upper, "ess": m.ess})
+    return pd.DataFrame(rows).set_index("method")
+
+
+def oob_summary(model, ridge_penalty=None, level: float = 0.95) -> dict:
+    """Return out-of-bag RMSE, mean interval width and usable rows at one ridge penalty."""
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        try:
+            mean, std = model.oob_predict(return_std=True, ridge_penalty=ridge_penalty)
+            lo, hi = normal_interval(mean, std, level)
+            width = float(np.nanmean(hi - lo))
+        except ValueError:  # no little bags: no intervals
+            mean = model.oob_predict(ridge_penalty=ridge_penalty)
+            width = float("nan")
+    ok = np.isfinite(mean)
+    rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
+    return {"ridge_penalty": float(model._penalty(ridge_penalty)), "oob_rmse": rmse,
+            "mean_width": width, "n_rows": int(ok.sum()), "level": level}
+
+
+def ridge_curve(model, ridge_penalties) -> pd.DataFrame:
+    """Return out-of-bag RMSE per ridge penalty (cached moments, no refit)."""
+    lams = np.asarray(ridge_penalties, dtype=np.float64).ravel()
+    return pd.DataFrame({"ridge_penalty": lams,
+                         "oob_rmse": np.sqrt(model.ridge_path(lams))})
+
+
+def weight_profile(report, X, method) -> pd.DataFrame:
+    """Return the rows ``method`` weights at the probe, heaviest first.
+
+    Columns: row, weight, distance (Euclidean, in training standard deviations, from the
+    probe), rank (1 = heaviest) and cumulative (share of the weight held by the rows up
+    to this rank). Shows how far the neighbourhood reaches and how concentrated it is.
+    """
+    X = np.asarray(X, dtype=np.float64)
+    w = report.method(method).weights.tocsr()
+    idx, vals = w.indices, w.data
+    keep = vals > 0
+    idx, vals = idx[keep], vals[keep]
+    order = np.argsort(-vals, kind="stable")
+    idx, vals = idx[order], vals[order]
+    sd = X.std(axis=0)
+    sd = np.where(sd > 0, sd, 1.0)
+    dist = np.sqrt((((X[idx] - report.x) / sd) ** 2).sum(axis=1))
+    total = vals.sum()
+    cum = np.cumsum(vals) / total if total > 0 else np.zeros_like(vals)
+    return pd.DataFrame({"row": idx, "weight": vals, "distance": dist,
+                         "rank": np.arange(1, idx.size + 1), "cumulative": cum})

@@ -1,0 +1,16 @@
+"""Jupyter views of the diagnostics (needs the ``widgets`` extra: ipywidgets, bqplot).
+
+``explore(X, y)`` returns every view in one tabbed widget; each view is also usable on
+its own, built on an ``ExploreSession``.
+"""
+
+from hedgerow.widgets._edges_view import EdgesView
+from hedgerow.widgets._explore import Explorer, explore
+from hedgerow.widgets._probe_view import ProbeView
+from hedgerow.widgets._session import ExploreSession, ProbeScene, RefitCancelled
+from hedgerow.widgets._tuning_view import TuningView
+from hedgerow.widgets._verdict_view import VerdictView
+from hedgerow.widgets._weights_view import WeightsView
+
+__all__ = ["EdgesView", "ExploreSession", "Explorer", "ProbeScene", "ProbeView",
+           "RefitCancelled", "TuningView", "VerdictView", "WeightsView", "explore"]

@@ -1,0 +1,64 @@
+"""What every view shares: the session, an error area and a line saying what it reflects."""
+
+from __future__ import annotations
+
+import contextlib
+import html
+import logging
+
+import ipywidgets as W
+import traitlets as t
+
+from hedgerow.widgets._style import CSS
+
+__all__ = ["View", "held"]
+
+log = logging.getLogger("hedgerow.widgets")
+
+
+@contextlib.contextmanager
+def held(*marks):
+    """Hold the syncs of several marks: one message, one redraw each."""
+    with contextlib.ExitStack() as stack:
+        for m in marks:
+            stack.enter_context(m.hold_sync())
+        yield
+
+
+class View(W.VBox):
+    """Base of the views: a VBox with a session, an error area and a settings line."""
+
+    error = t.Unicode("", help="Last error shown in the view's error area ('' when none).")
+
+    def __init__(self, session, **kwargs):
+        super().__init__(**kwargs)
+        self._session = session
+        self._error_area = W.HTML(layout=W.Layout(display="none"))
+        self._error_area.add_class(CSS.error)
+        self._settings_line = W.HTML()
+        self._settings_line.add_class(CSS.settings)
+        session.observe(self._on_settings_changed, names=["settings", "refit_status"])
+
+    @contextlib.contextmanager
+    def _shown_errors(self, what):
+        """Catch an exception of a callback: log it and show it in the error area."""
+        try:
+            yield
+        except Exception as exc:
+            log.exception("%s failed", what)
+            self.error = f"{what} failed: {type(exc).__name__}: {exc}"
+        else:
+            self.error = ""
+
+    @t.observe("error")
+    def _on_error_changed(self, change):
+        self._error_area.value = (f"<div style='color:#8b1a1a;border-left:3px solid #8b1a1a;"
+                                  f"padding-left:6px'>{html.escape(change['new'])}</div>")
+        self._error_area.layout.display = "" if change["new"] else "none"
+
+    def _on_settings_changed(self, change=None):
+        s = self._session
+        busy = " (a refit is running; this view shows the forest above)" \
+            if s.refit_status in ("waiting", "running") else ""
+        text = html.escape(s.describe_settings() + busy)
+        self._settings_line.value = f"<small style='color:#555'>{text}</small>"

@@ -1,0 +1,115 @@
+"""Edges view: held-out residuals against edge depth, banded, with the probe's rows."""
+
+from __future__ import annotations
+
+import bqplot as bq
+import ipywidgets as W
+import numpy as np
+
+from hedgerow.widgets._base import View, held
+from hedgerow.widgets._style import (
+    HIGHLIGHT_COLOUR,
+    colour_of,
+    display_rows,
+    fmt,
+    marker_scaling,
+    swatch,
+)
+
+__all__ = ["EdgesView"]
+
+
+class EdgesView(View):
+    """Residuals (y minus held-out prediction) by edge depth, per method.
+
+    Dots: every row's residual; diamonds and whiskers: the banded mean residual and its
+    interval; ringed dots: the rows carrying the probe's forest weight (larger = more).
+    """
+
+    def __init__(self, session, **kwargs):
+        from hedgerow.diagnostics import DEPTH_BANDS
+
+        super().__init__(session, **kwargs)
+        self._rows = display_rows(session.X_train.shape[0])
+        edges_ = np.minimum(np.asarray(DEPTH_BANDS), 0.5)
+        self._band_mid = (edges_[:-1] + edges_[1:]) / 2  # where each band's mean is drawn
+        xs, ys = bq.LinearScale(min=0.0, max=0.5), bq.LinearScale()
+        sc = {"x": xs, "y": ys}
+        self._sizes = bq.LinearScale(min=0.0, max=1.0)
+        names = list(session.held_out_models())
+        self.dot_marks, self.mean_marks, self.whisker_marks = {}, {}, {}
+        for name in names:
+            c = colour_of(name)
+            self.dot_marks[name] = bq.Scatter(x=np.zeros(1), y=np.zeros(1), scales=sc,
+                                              colors=[c], default_size=10, opacities=[0.35])
+            self.mean_marks[name] = bq.Scatter(x=np.zeros(1), y=np.zeros(1), scales=sc,
+                                               colors=[c], marker="diamond", default_size=90,
+                                               stroke="white", labels=[name])
+            self.whisker_marks[name] = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)),
+                                                scales=sc, colors=[c], stroke_width=2.5)
+        self._order = names
+        self._offset = 0.006  # spreads the methods' band means apart (presentation)
+        self.probe_rows_mark = bq.Scatter(
+            x=np.zeros(1), y=np.zeros(1), scales={**sc, "size": self._sizes},
+            colors=["white"], fill=False, stroke=HIGHLIGHT_COLOUR, stroke_width=1.5,
+            default_size=160,
+            size=np.ones(1))
+        self.zero_mark = bq.Lines(x=np.array([0.0, 0.5]), y=np.zeros(2), scales=sc,
+                                  colors=["#999999"], line_style="dashed")
+        marks = [self.zero_mark, *self.dot_marks.values(), self.probe_rows_mark,
+                 *self.whisker_marks.values(), *self.mean_marks.values()]
+        self.figure = bq.Figure(
+            marks=marks, animation_duration=0,
+            axes=[bq.Axis(scale=xs, label="edge depth (share of the data beyond the row)"),
+                  bq.Axis(scale=ys, orientation="vertical", label="held-out residual",
+                          tick_format=".3g")],
+            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
+            layout=W.Layout(width="100%", height="380px"))
+        self.bend_html = W.HTML()
+        legend = " &nbsp; ".join(swatch(n) for n in names)
+        self.children = [W.HTML(f"<b>edges</b> <small>{legend}; ringed: rows carrying the "
+                                f"probe's weight</small>"), self._error_area, self.figure,
+                         self.bend_html, self._settings_line]
+        session.observe(self._on_changed, names=["generation", "ridge_penalty", "probe_x"])
+        self._redraw()
+        self._on_settings_changed()
+
+    def _on_changed(self, change):
+        self._redraw()
+
+    def _redraw(self):
+        with self._shown_errors("drawing the edges view"):
+            self._draw(self._session.edge_profile(), self._session.probe_report())
+
+    def _draw(self, prof, rep):
+        w = rep.weights.toarray().ravel()
+        heavy = np.flatnonzero(w > 0)
+        size, _ = marker_scaling(w[heavy])
+        first = self._order[0]
+        marks = [*self.dot_marks.values(), *self.mean_marks.values(),
+                 *self.whisker_marks.values(), self.probe_rows_mark]
+        with held(*marks):
+            for k, name in enumerate(self._order):
+                shift = (k - (len(self._order) - 1) / 2) * self._offset
+                r = prof.residuals[name].to_numpy()
+                self.dot_marks[name].x = prof.depth[self._rows]
+                self.dot_marks[name].y = r[self._rows]
+                b = prof.bands[prof.bands["method"] == name]
+                xm = self._band_mid + shift
+                self.mean_marks[name].x = xm
+                self.mean_marks[name].y = b["mean_residual"].to_numpy()
+                self.whisker_marks[name].x = np.column_stack([xm, xm])
+                self.whisker_marks[name].y = np.column_stack([b["lower"].to_numpy(),
+                                                              b["upper"].to_numpy()])
+            self.probe_rows_mark.x = prof.depth[heavy]
+            self.probe_rows_mark.y = prof.residuals[first].to_numpy()[heavy]
+            self.probe_rows_mark.size = size
+        rows = "".join(
+            f"<tr><td>{swatch(r['method'])}</td><td class='hedgerow-value'>{fmt(r['bend'], 3)}"
+            f"</td><td>{fmt(r['lower'], 3)} to {fmt(r['upper'], 3)}</td><td>{r['n']}</td></tr>"
+            for _, r in prof.bend.iterrows())
+        self.bend_html.value = (
+            "<small>inward-bend score in the outer 10% (residual &times; side &times; sign of "
+            "the local slope; above 0: predictions bend toward the interior)</small>"
+            f"<table><tr><th>method</th><th>score</th><th>95% interval</th><th>rows</th></tr>"
+            f"{rows}</table>")

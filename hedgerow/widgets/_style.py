@@ -1,0 +1,99 @@
+"""Presentation only: the palette, CSS class names and weight-to-marker scaling."""
+
+from __future__ import annotations
+
+import html
+
+import numpy as np
+
+__all__ = ["METHOD_COLOURS", "METHOD_DASHES", "colour_of", "dash_of", "marker_scaling",
+           "display_rows", "DISPLAY_LIMIT", "CSS", "swatch", "fmt"]
+
+#: One fixed colour per method in every view. Chosen for distinct hue *and* lightness so
+#: the pairs stay apart under the common colour-vision deficiencies; lines add a dash
+#: pattern as a second cue.
+METHOD_COLOURS = {
+    "local linear forest": "#1d5fa8",  # cobalt
+    "honest forest": "#e3891b",  # amber
+    "Nadaraya-Watson": "#7f4fb0",  # violet
+    "local linear (kernel)": "#2a9d7c",  # sea green
+    "random forest (scikit-learn)": "#777777",  # mid grey
+}
+METHOD_DASHES = {
+    "local linear forest": "solid",
+    "honest forest": "solid",
+    "Nadaraya-Watson": "dashed",
+    "local linear (kernel)": "dash_dotted",
+    "random forest (scikit-learn)": "dotted",
+}
+ROW_COLOUR = "#5b6470"  # slate: training rows
+PROBE_COLOUR = "#111111"  # near black: the probe marker
+HIGHLIGHT_COLOUR = "#111111"
+
+#: Above this many rows the scatter shows a fixed subsample (weights still use every row).
+DISPLAY_LIMIT = 5000
+
+
+class CSS:
+    """CSS classes on the widgets tests and users select on."""
+
+    error = "hedgerow-error"
+    probe_readout = "hedgerow-probe-readout"
+    probe_figure = "hedgerow-probe-figure"
+    settings = "hedgerow-settings"
+    tuning_readout = "hedgerow-tuning-readout"
+    refit_status = "hedgerow-refit-status"
+    verdict_conclusion = "hedgerow-verdict-conclusion"
+    coverage_result = "hedgerow-coverage-result"
+    ridge_slider = "hedgerow-ridge-slider"
+
+
+def _base_name(name: str) -> str:
+    return "honest forest" if name.startswith("honest forest") else name
+
+
+def colour_of(name: str) -> str:
+    """Return the fixed colour of a method (grey for one we do not know)."""
+    return METHOD_COLOURS.get(_base_name(name), "#999999")
+
+
+def dash_of(name: str) -> str:
+    return METHOD_DASHES.get(_base_name(name), "solid")
+
+
+def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):
+    """Return ``(size, opacity)`` per row: marker area and opacity growing with weight.
+
+    Pure presentation: weight over the largest weight, lifted to a floor so that rows
+    the probe ignores stay visible as faint dots.
+    """
+    w = np.asarray(weights, dtype=np.float64)
+    top = w.max() if w.size and w.max() > 0 else 1.0
+    share = np.clip(w / top, 0.0, 1.0)
+    size = floor + (1.0 - floor) * share
+    opacity = opacity_floor + (1.0 - opacity_floor) * np.sqrt(share)
+    return size, opacity
+
+
+def display_rows(n: int, limit: int = DISPLAY_LIMIT) -> np.ndarray:
+    """Return the rows the scatter draws: all of them, or a fixed subsample of ``limit``."""
+    if n <= limit:
+        return np.arange(n)
+    return np.sort(np.random.default_rng(20240).choice(n, size=limit, replace=False))
+
+
+def swatch(name: str, label: bool = True) -> str:
+    """Return HTML: the method's colour square, followed by its name if ``label``."""
+    c = colour_of(name)
+    box = (f"<span style='display:inline-block;width:0.9em;height:0.9em;"
+           f"background:{c};margin-right:0.35em;vertical-align:-0.1em'></span>")
+    return box + (html.escape(name) if label else "")
+
+
+def fmt(v, digits=4) -> str:
+    """Return a number for display ('-' when missing)."""
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return "-"
+    return f"{v:.{digits}g}" if np.isfinite(v) else "-"

@@ -1,0 +1,223 @@
+"""Tuning view: the ridge penalty (no refit) and the forest settings (refit, off-thread)."""
+
+from __future__ import annotations
+
+import html
+import logging
+import threading
+
+import bqplot as bq
+import ipywidgets as W
+import numpy as np
+import traitlets as t
+
+from hedgerow.widgets._base import View, held
+from hedgerow.widgets._style import CSS, PROBE_COLOUR, colour_of, fmt
+
+__all__ = ["TuningView"]
+
+log = logging.getLogger("hedgerow.widgets")
+
+#: Penalties the out-of-bag curve is drawn at (log-spaced; presentation grid).
+CURVE_PENALTIES = np.logspace(-4, 2, 25)
+#: Smallest penalty the log slider shows; 0 is shown at this end.
+SLIDER_MIN_EXP, SLIDER_MAX_EXP = -4, 2
+
+
+class TuningView(View):
+    """Ridge-penalty slider, out-of-bag readouts, refit controls and the coverage readout."""
+
+    coverage_status = t.Unicode("not run", help="not run, running, done or failed.")
+    coverage_reps = t.Int(10, help="Replications of the coverage readout.")
+
+    def __init__(self, session, **kwargs):
+        super().__init__(session, **kwargs)
+        s = session
+        p = s.model.get_params()
+        self.ridge_slider = W.FloatLogSlider(
+            value=self._slider_value(s.ridge_penalty), base=10, min=SLIDER_MIN_EXP,
+            max=SLIDER_MAX_EXP, step=0.1, description="ridge penalty",
+            continuous_update=False, readout_format=".2g", style={"description_width": "120px"},
+            layout=W.Layout(width="480px"))
+        self.ridge_slider.add_class(CSS.ridge_slider)
+        self.ridge_slider.observe(self._on_ridge_slid, "value")
+        self._oob_choice = W.Button(description="back to the out-of-bag choice",
+                                    layout=W.Layout(width="240px"))
+        self._oob_choice.on_click(self._on_oob_choice_clicked)
+        self._fitted_penalty = float(s.model.ridge_penalty_)
+        self.readout_html = W.HTML()
+        self.readout_html.add_class(CSS.tuning_readout)
+        self._build_curve()
+        style = {"description_width": "120px"}
+        self.rate_slider = W.FloatSlider(value=float(p["subsample_rate"]), min=0.05, max=0.5,
+                                         step=0.05, description="subsample rate",
+                                         continuous_update=False, style=style)
+        self.leaf_slider = W.IntSlider(value=int(p["min_samples_leaf"]), min=1, max=50,
+                                       description="min leaf", continuous_update=False,
+                                       style=style)
+        self.trees_slider = W.IntSlider(value=int(p["n_estimators"]), min=50, max=4000,
+                                        step=50, description="trees", continuous_update=False,
+                                        style=style)
+        for key, w in (("subsample_rate", self.rate_slider),
+                       ("min_samples_leaf", self.leaf_slider),
+                       ("n_estimators", self.trees_slider)):
+            w.observe(lambda ch, key=key: self._on_setting_changed(key, ch["new"]), "value")
+        self.progress = W.FloatProgress(value=0.0, min=0.0, max=1.0, description="refit",
+                                        style=style)
+        self.cancel_button = W.Button(description="cancel refit", disabled=True)
+        self.cancel_button.on_click(self._on_cancel_clicked)
+        self.status_html = W.HTML()
+        self.status_html.add_class(CSS.refit_status)
+        self.verdict_html = W.HTML()
+        self.coverage_button = W.Button(description="run coverage readout",
+                                        layout=W.Layout(width="220px"))
+        self.coverage_button.on_click(self._on_coverage_clicked)
+        self.coverage_progress = W.FloatProgress(value=0.0, min=0.0, max=1.0,
+                                                 layout=W.Layout(width="200px"))
+        self.coverage_html = W.HTML("<small>not run yet</small>")
+        self.coverage_html.add_class(CSS.coverage_result)
+        s.observe(self._on_refit_state, names=["refit_status", "refit_progress",
+                                               "refit_message"])
+        s.observe(self._on_model_changed, names=["generation", "ridge_penalty"])
+        self.children = [
+            W.HTML("<b>tuning</b> <small>the ridge penalty re-solves the local lines on the "
+                   "same trees; the other settings grow a new forest</small>"),
+            self._error_area, W.HBox([self.ridge_slider, self._oob_choice]), self.readout_html,
+            self.curve, W.HTML("<b>forest settings</b> <small>(refit in the background)"
+                               "</small>"),
+            self.rate_slider, self.leaf_slider, self.trees_slider,
+            W.HBox([self.progress, self.cancel_button]), self.status_html,
+            W.HTML("<b>verdict</b>"), self.verdict_html,
+            W.HTML("<b>coverage readout</b>"),
+            W.HBox([self.coverage_button, self.coverage_progress]), self.coverage_html,
+            self._settings_line,
+        ]
+        self._redraw()
+        self._on_refit_state()
+        self._on_settings_changed()
+
+    @staticmethod
+    def _slider_value(lam):
+        return float(np.clip(lam, 10.0**SLIDER_MIN_EXP, 10.0**SLIDER_MAX_EXP))
+
+    def _build_curve(self):
+        xs, ys = bq.LogScale(), bq.LinearScale()
+        sc = {"x": xs, "y": ys}
+        c = colour_of("local linear forest")
+        self.curve_mark = bq.Lines(x=CURVE_PENALTIES, y=np.zeros(CURVE_PENALTIES.size),
+                                   scales=sc, colors=[c], stroke_width=2,
+                                   labels=["out-of-bag RMSE"])
+        self.current_mark = bq.Scatter(x=np.ones(1), y=np.zeros(1), scales=sc,
+                                       colors=[PROBE_COLOUR], default_size=80)
+        self.curve = bq.Figure(
+            marks=[self.curve_mark, self.current_mark], animation_duration=0,
+            axes=[bq.Axis(scale=xs, label="ridge penalty"),
+                  bq.Axis(scale=ys, orientation="vertical", label="out-of-bag RMSE",
+                          tick_format=".3g")],
+            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
+            layout=W.Layout(width="520px", height="240px"))
+
+    # -- handlers ----------------------------------------------------------------------
+    def _on_ridge_slid(self, change):
+        with self._shown_errors("changing the ridge penalty"):
+            if not np.isclose(change["new"], self._slider_value(self._session.ridge_penalty)):
+                self._session.ridge_penalty = float(change["new"])
+
+    def _on_oob_choice_clicked(self, button):
+        with self._shown_errors("restoring the out-of-bag penalty"):
+            self._session.ridge_penalty = float(self._session.model.ridge_penalty_)
+
+    def _on_setting_changed(self, key, value):
+        with self._shown_errors(f"requesting a refit ({key})"):
+            self._session.request_refit(**{key: value})
+
+    def _on_cancel_clicked(self, button):
+        with self._shown_errors("cancelling the refit"):
+            self._session.cancel_refit()
+
+    def _on_refit_state(self, change=None):
+        s = self._session
+        running = s.refit_status in ("waiting", "running")
+        self.progress.value = float(s.refit_progress)
+        self.progress.bar_style = {"failed": "danger", "cancelled": "warning"}.get(
+            s.refit_status, "info" if running else "success")
+        self.cancel_button.disabled = not running
+        self.status_html.value = (f"<small>{html.escape(s.refit_status)}: "
+                                  f"{html.escape(s.refit_message)}</small>")
+        if s.refit_status == "failed":
+            self.error = s.refit_message
+
+    def _on_model_changed(self, change):
+        self._redraw()
+
+    def _redraw(self):
+        with self._shown_errors("drawing the tuning view"):
+            self._draw(self._session.oob_summary(), self._session.ridge_curve(CURVE_PENALTIES),
+                       self._session.verdict_report())
+
+    def _draw(self, summary, curve, verdict):
+        s = self._session
+        with held(self.curve_mark, self.current_mark):
+            self.curve_mark.y = curve["oob_rmse"].to_numpy()
+            self.current_mark.x = np.array([self._slider_value(summary["ridge_penalty"])])
+            self.current_mark.y = np.array([summary["oob_rmse"]])
+        value = self._slider_value(s.ridge_penalty)
+        if not np.isclose(self.ridge_slider.value, value):
+            self.ridge_slider.value = value
+        self.readout_html.value = (
+            f"<table><tr><td>ridge penalty</td><td class='hedgerow-value'>"
+            f"{fmt(summary['ridge_penalty'], 3)}</td></tr>"
+            f"<tr><td>out-of-bag RMSE</td><td class='hedgerow-value'>"
+            f"{fmt(summary['oob_rmse'])}</td></tr>"
+            f"<tr><td>mean width of {100 * summary['level']:.0f}% intervals</td>"
+            f"<td class='hedgerow-value'>{fmt(summary['mean_width'])}</td></tr>"
+            f"<tr><td>rows with an out-of-bag prediction</td><td>{summary['n_rows']}</td></tr>"
+            f"</table>")
+        self.verdict_html.value = f"<p>{html.escape(verdict.conclusion)}</p>"
+
+    # -- coverage readout (a button; runs in the background) ---------------------------
+    def _on_coverage_clicked(self, button):
+        with self._shown_errors("starting the coverage readout"):
+            self.start_coverage()
+
+    def start_coverage(self):
+        """Run the coverage readout of the current forest in a thread; return the thread."""
+        from hedgerow.diagnostics import coverage_readout
+
+        model, settings = self._session.penalised_model(), self._session.describe_settings()
+        self.coverage_status, self.coverage_progress.bar_style = "running", "info"
+        self.coverage_progress.value, self.coverage_button.disabled = 0.5, True
+        self.coverage_html.value = "<small>running&hellip;</small>"
+
+        def run():
+            try:
+                rep = coverage_readout(model, reps=int(self.coverage_reps), progress=False)
+            except Exception as exc:  # shown in the view, never lost
+                log.exception("coverage readout failed")
+                self._session._on_ui(lambda exc=exc: self._coverage_failed(exc))
+                return
+            self._session._on_ui(lambda: self._coverage_done(rep, settings))
+
+        thread = threading.Thread(target=run, daemon=True, name="hedgerow-coverage")
+        thread.start()
+        self._coverage_thread = thread
+        return thread
+
+    def _coverage_failed(self, exc):
+        self.coverage_status, self.coverage_button.disabled = "failed", False
+        self.coverage_progress.bar_style = "danger"
+        self.error = f"coverage readout failed: {type(exc).__name__}: {exc}"
+
+    def _coverage_done(self, rep, settings):
+        self.coverage_status, self.coverage_button.disabled = "done", False
+        self.coverage_progress.value, self.coverage_progress.bar_style = 1.0, "success"
+        rows = "".join(
+            f"<tr><td>{html.escape(r['method'])}</td><td>{html.escape(r['part'])}</td>"
+            f"<td class='hedgerow-value'>{fmt(r['coverage'], 3)}</td>"
+            f"<td>{fmt(r['lower'], 3)} to {fmt(r['upper'], 3)}</td><td>{r['n']}</td></tr>"
+            for _, r in rep.frame.iterrows())
+        self.coverage_html.value = (
+            f"<small>{html.escape(rep.mode)}, {rep.reps_done} of {rep.reps} replications, "
+            f"nominal {100 * rep.level:.0f}%; computed for: {html.escape(settings)}</small>"
+            f"<table><tr><th>method</th><th>rows</th><th>coverage</th>"
+            f"<th>95% binomial interval</th><th>n</th></tr>{rows}</table>")

@@ -1,0 +1,74 @@
+"""Verdict view: the plain-language conclusion and the paired held-out gains behind it."""
+
+from __future__ import annotations
+
+import html
+
+import bqplot as bq
+import ipywidgets as W
+import numpy as np
+
+from hedgerow.widgets._base import View, held
+from hedgerow.widgets._style import CSS, colour_of, fmt, swatch
+
+__all__ = ["VerdictView"]
+
+PARTS = ("all", "edge", "interior")
+
+
+class VerdictView(View):
+    """Share of the honest forest's held-out squared error each method removes."""
+
+    def __init__(self, session, **kwargs):
+        super().__init__(session, **kwargs)
+        self.conclusion_html = W.HTML()
+        self.conclusion_html.add_class(CSS.verdict_conclusion)
+        xs, ys = bq.OrdinalScale(), bq.LinearScale()
+        self.bars_mark = bq.Bars(x=list(PARTS), y=np.zeros((1, 3)), scales={"x": xs, "y": ys},
+                                 type="grouped", colors=["#999999"], padding=0.25)
+        self.whisker_mark = bq.Lines(x=[[p, p] for p in PARTS], y=np.zeros((3, 2)),
+                                     scales={"x": xs, "y": ys}, colors=["#222222"],
+                                     stroke_width=1.5)
+        self.figure = bq.Figure(
+            marks=[self.bars_mark, self.whisker_mark], animation_duration=0,
+            axes=[bq.Axis(scale=xs, label="rows (edge: outer 10% of the data)"),
+                  bq.Axis(scale=ys, orientation="vertical", tick_format=".0%",
+                          label="held-out error removed")],
+            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
+            layout=W.Layout(width="520px", height="280px"))
+        self.table_html = W.HTML()
+        self.children = [W.HTML("<b>verdict</b> <small>paired out-of-bag / leave-one-out "
+                                "errors against the honest forest on the same trees</small>"),
+                         self._error_area, self.conclusion_html, self.figure,
+                         self.table_html, self._settings_line]
+        session.observe(self._on_changed, names=["generation", "ridge_penalty"])
+        self._redraw()
+        self._on_settings_changed()
+
+    def _on_changed(self, change):
+        self._redraw()
+
+    def _redraw(self):
+        with self._shown_errors("drawing the verdict"):
+            self._draw(self._session.verdict_report())
+
+    def _draw(self, v):
+        comp = v.comparisons
+        gains = np.array([[comp.loc[m, f"gain_{p}"] for p in PARTS] for m in comp.index])
+        with held(self.bars_mark, self.whisker_mark):
+            self.bars_mark.y = gains
+            self.bars_mark.colors = [colour_of(m) for m in comp.index]
+            # whiskers for the local linear forest's interval (the verdict's own row)
+            r = comp.loc["local linear forest"]
+            self.whisker_mark.y = np.array([[r[f"lower_{p}"], r[f"upper_{p}"]] for p in PARTS])
+        self.conclusion_html.value = f"<p><b>{html.escape(v.conclusion)}</b></p>"
+        head = "".join(f"<th>{p}</th>" for p in PARTS)
+        rows = "".join(
+            f"<tr><td>{swatch(m)}</td>" + "".join(
+                f"<td>{fmt(100 * comp.loc[m, f'gain_{p}'], 3)}% "
+                f"<small>({fmt(100 * comp.loc[m, f'lower_{p}'], 3)} to "
+                f"{fmt(100 * comp.loc[m, f'upper_{p}'], 3)})</small></td>" for p in PARTS)
+            + "</tr>" for m in comp.index)
+        self.table_html.value = (f"<table><tr><th>method</th>{head}</tr>{rows}</table>"
+                                 f"<small>{100 * v.level:.0f}% intervals; whiskers on the "
+                                 f"local linear forest's bars</small>")

@@ -1,0 +1,75 @@
+"""Weights view: forest weights against kernel weights at the same probe."""
+
+from __future__ import annotations
+
+import bqplot as bq
+import ipywidgets as W
+import numpy as np
+
+from hedgerow.widgets._base import View, held
+from hedgerow.widgets._style import colour_of, dash_of, swatch
+
+__all__ = ["WeightsView"]
+
+
+class WeightsView(View):
+    """Weight against distance to the probe, and cumulative weight against rank.
+
+    A lopsided or far-reaching neighbourhood shows as weight at large distances; a
+    concentrated one as a cumulative curve that rises steeply over the first ranks.
+    """
+
+    def __init__(self, session, **kwargs):
+        super().__init__(session, **kwargs)
+        # the two forests share their weights: one entry stands for both
+        rep = session.probe_report()
+        self._methods = [m.name for m in rep.methods if not m.name.startswith("honest")]
+        dx, dy = bq.LinearScale(min=0.0), bq.LinearScale(min=0.0)
+        rx, ry = bq.LogScale(), bq.LinearScale(min=0.0, max=1.0)
+        self.weight_marks, self.cumulative_marks = {}, {}
+        for name in self._methods:
+            c = colour_of(name)
+            self.weight_marks[name] = bq.Scatter(x=np.zeros(1), y=np.zeros(1),
+                                                 scales={"x": dx, "y": dy}, colors=[c],
+                                                 default_size=18, opacities=[0.6])
+            self.cumulative_marks[name] = bq.Lines(x=np.ones(1), y=np.zeros(1),
+                                                   scales={"x": rx, "y": ry}, colors=[c],
+                                                   line_style=dash_of(name), stroke_width=2)
+        lay = W.Layout(width="49%", height="320px")
+        margin = {"top": 10, "bottom": 45, "left": 65, "right": 15}
+        self.distance_figure = bq.Figure(
+            marks=list(self.weight_marks.values()), animation_duration=0, fig_margin=margin,
+            axes=[bq.Axis(scale=dx, label="distance to the probe (standard deviations)"),
+                  bq.Axis(scale=dy, orientation="vertical", label="weight", tick_format=".2g")],
+            layout=lay)
+        self.rank_figure = bq.Figure(
+            marks=list(self.cumulative_marks.values()), animation_duration=0,
+            fig_margin=margin,
+            axes=[bq.Axis(scale=rx, label="rank (1 = heaviest row)"),
+                  bq.Axis(scale=ry, orientation="vertical", label="cumulative weight",
+                          tick_format=".0%")],
+            layout=lay)
+        legend = " &nbsp; ".join(
+            swatch(n) + (" <small>(both forests)</small>" if n == "local linear forest" else "")
+            for n in self._methods)
+        self.children = [W.HTML(f"<b>neighbour weights</b> <small>{legend}</small>"),
+                         self._error_area, W.HBox([self.distance_figure, self.rank_figure]),
+                         self._settings_line]
+        session.observe(self._on_changed, names=["generation", "ridge_penalty", "probe_x"])
+        self._redraw()
+        self._on_settings_changed()
+
+    def _on_changed(self, change):
+        self._redraw()
+
+    def _redraw(self):
+        with self._shown_errors("drawing the neighbour weights"):
+            self._draw({m: self._session.weight_profile(m) for m in self._methods})
+
+    def _draw(self, profiles):
+        with held(*self.weight_marks.values(), *self.cumulative_marks.values()):
+            for name, prof in profiles.items():
+                self.weight_marks[name].x = prof["distance"].to_numpy()
+                self.weight_marks[name].y = prof["weight"].to_numpy()
+                self.cumulative_marks[name].x = prof["rank"].to_numpy().astype(float)
+                self.cumulative_marks[name].y = prof["cumulative"].to_numpy()
