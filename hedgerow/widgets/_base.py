@@ -39,16 +39,25 @@ class View(W.VBox):
         self._settings_line.add_class(CSS.settings)
         session.observe(self._on_settings_changed, names=["settings", "refit_status"])
 
+    _error_depth = 0
+
     @contextlib.contextmanager
     def _shown_errors(self, what):
-        """Catch an exception of a callback: log it and show it in the error area."""
+        """Catch an exception of a callback: log it and show it in the error area.
+
+        The outermost callback clears the area first; a failure anywhere inside it
+        (including nested observers) stays shown until the next action succeeds.
+        """
+        if self._error_depth == 0:
+            self.error = ""
+        self._error_depth += 1
         try:
             yield
         except Exception as exc:
             log.exception("%s failed", what)
             self.error = f"{what} failed: {type(exc).__name__}: {exc}"
-        else:
-            self.error = ""
+        finally:
+            self._error_depth -= 1
 
     @t.observe("error")
     def _on_error_changed(self, change):

@@ -241,10 +241,13 @@ class ExploreSession(t.HasTraits):
             params = {**base, **changes}
             if self._timer is not None:
                 self._timer.cancel()
-            if self._job is not None and self._job.outcome in ("waiting", "running"):
-                self._job.cancel.set()
+            previous = self._job
+            if previous is not None and previous.outcome in ("waiting", "running"):
+                previous.cancel.set()
             job = _Job(params)
             self._job = job
+            if previous is not None and previous.thread is None:
+                self._finish(previous, "cancelled")  # superseded before it started
             self._timer = threading.Timer(self._refit_delay, self._start, args=(job,))
             self._timer.daemon = True
             self._timer.start()

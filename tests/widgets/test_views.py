@@ -1,0 +1,296 @@
+"""Views driven through their traits and handlers, no browser: marks hold what the
+diagnostics functions give."""
+
+import numpy as np
+import pytest
+
+pytest.importorskip("ipywidgets")
+pytest.importorskip("bqplot")
+
+from hedgerow import diagnostics as D  # noqa: E402
+from hedgerow.datasets import load_orchard_demo  # noqa: E402
+from hedgerow.widgets import ExploreSession, ProbeView, explore  # noqa: E402
+from hedgerow.widgets._style import display_rows, marker_scaling  # noqa: E402
+
+pytestmark = pytest.mark.filterwarnings("ignore:X does not have valid feature names")
+
+
+@pytest.fixture(scope="module")
+def data():
+    return load_orchard_demo(300, random_state=3)
+
+
+@pytest.fixture(scope="module")
+def app(data):
+    X, y = data
+    return explore(X, y, n_estimators=100, refit_delay=0.05)
+
+
+@pytest.fixture
+def session(app):
+    s = app.session
+    lam, x = s.ridge_penalty, list(s.probe_x)
+    yield s
+    s.ridge_penalty, s.probe_x = lam, x
+    app.probe_view.error = ""
+
+
+def direct_probe(session, x):
+    model = D.at_ridge_penalty(session.model, session.ridge_penalty)
+    return D.probe(model, np.asarray(x), compare=session._smoothers)
+
+
+def drag(view, x):
+    view._on_probe_moved(view.probe_mark, {"event": "drag_end", "point": {"x": x, "y": 0.0},
+                                           "index": 0})
+
+
+def test_explore_builds_every_view(app):
+    assert [app.get_title(i) for i in range(5)] == [
+        "probe", "neighbour weights", "edges", "tuning", "verdict"]
+    assert all(v.error == "" for v in app.views)
+
+
+def test_probe_drag_updates_weights_line_and_readout(app, session):
+    view = app.probe_view
+    j = session.feature_names.index(view.feature)
+    col = session.X_train[:, j]
+    target = float(np.quantile(col, 0.9))
+    before = dict(view.readout)
+    drag(view, target)
+    assert view.error == ""
+    assert view.probe_x[j] == pytest.approx(target)
+    rep = direct_probe(session, view.probe_x)
+    for m in rep.methods:
+        got = view.readout[m.name]
+        assert got["prediction"] == pytest.approx(m.prediction, rel=1e-9)
+        assert got["half_width"] == pytest.approx((m.upper - m.lower) / 2, rel=1e-9)
+        assert got["ess"] == pytest.approx(m.ess, rel=1e-9)
+        assert f"{m.prediction:.4g}" in view._readout_html.value
+    assert view.readout != before
+    # marker sizes follow the weights: heaviest row largest, unweighted rows at the floor
+    w = rep.weights.toarray().ravel()
+    size = np.asarray(view.rows_mark.size)
+    assert np.argmax(size) == np.argmax(w)
+    assert np.allclose(size[w == 0], size.min())
+    assert np.all(np.diff(size[np.argsort(w)]) >= -1e-12)
+    # the local line passes through the prediction with the local slope
+    llf = rep.method("local linear forest")
+    xs, ys = np.asarray(view.line_mark.x), np.asarray(view.line_mark.y)
+    assert xs.mean() == pytest.approx(target)
+    assert ys.mean() == pytest.approx(llf.prediction)
+    slope = llf.slopes[list(rep.slope_columns).index(j)]
+    assert (ys[1] - ys[0]) / (xs[1] - xs[0]) == pytest.approx(slope, rel=1e-9)
+    assert np.asarray(view.probe_mark.x)[0] == pytest.approx(target)
+
+
+def test_drag_beyond_the_data_is_clamped(app, session):
+    view = app.probe_view
+    j = session.feature_names.index(view.feature)
+    drag(view, 1e6)
+    assert view.probe_x[j] == pytest.approx(session.X_train[:, j].max())
+
+
+def test_slices_drawn_are_the_slices_report(app, session):
+    view = app.probe_view
+    scene = session.scene(view.probe_x, view.feature)
+    for name, mark in view.slice_marks.items():
+        np.testing.assert_allclose(mark.y, scene.slices.method(name)["prediction"])
+    band = scene.slices.method("local linear forest")
+    np.testing.assert_allclose(view.band_mark.y, np.vstack([band["lower"], band["upper"]]))
+    assert np.all(np.asarray(view.band_mark.y)[0] < np.asarray(view.band_mark.y)[1])
+
+
+def test_row_click_pins_probe_and_medians_button_restores(app, session, data):
+    X, _ = data
+    view = app.probe_view
+    view._on_row_clicked(view.rows_mark, {"data": {"index": 7}})
+    assert view.anchor_row == 7
+    np.testing.assert_allclose(view.probe_x, X.iloc[7].to_numpy())
+    view._on_medians_clicked(None)
+    np.testing.assert_allclose(view.probe_x, np.median(X.to_numpy(), axis=0))
+
+
+def test_coordinate_panel_edits_the_probe(app, session):
+    view = app.probe_view
+    k = next(i for i, n in enumerate(session.feature_names) if n != view.feature)
+    new = float(session.X_train[:, k].min())
+    view._coord_boxes[k].value = new
+    assert view.probe_x[k] == pytest.approx(new)
+    assert view.readout["local linear forest"]["prediction"] == pytest.approx(
+        direct_probe(session, view.probe_x).method("local linear forest").prediction)
+
+
+def test_feature_dropdown_moves_the_axis(app, session):
+    view = app.probe_view
+    old = view.feature
+    other = next(n for n in session.feature_names if n != old)
+    view._feature_pick.value = other
+    j = session.feature_names.index(other)
+    np.testing.assert_allclose(view.rows_mark.x, session.X_train[view._rows, j])
+    assert view._x_axis.label == other
+    view.feature = old
+
+
+def test_ridge_slider_changes_local_linear_only_and_never_refits(app, session):
+    view, tuning = app.probe_view, app.tuning_view
+    model, gen = session.model, session.generation
+    before = {k: dict(v) for k, v in view.readout.items()}
+    honest_slice = np.asarray(view.slice_marks["honest forest (same trees)"].y).copy()
+    llf_slice = np.asarray(view.slice_marks["local linear forest"].y).copy()
+    tuning.ridge_slider.value = 30.0
+    assert session.ridge_penalty == pytest.approx(30.0)
+    assert session.model is model and session.generation == gen
+    after = view.readout
+    assert after["local linear forest"]["prediction"] != pytest.approx(
+        before["local linear forest"]["prediction"])
+    assert after["honest forest (same trees)"] == pytest.approx(
+        before["honest forest (same trees)"])
+    np.testing.assert_allclose(view.slice_marks["honest forest (same trees)"].y, honest_slice)
+    assert not np.allclose(view.slice_marks["local linear forest"].y, llf_slice)
+    expected = D.oob_summary(D.at_ridge_penalty(model, 30.0))
+    assert f"{expected['oob_rmse']:.4g}" in tuning.readout_html.value
+    assert np.asarray(tuning.current_mark.y)[0] == pytest.approx(expected["oob_rmse"])
+    # the fitted model itself keeps its own penalty
+    assert model.ridge_penalty_ != 30.0
+
+
+def test_callback_exception_is_shown_not_raised(app, session, monkeypatch):
+    view = app.probe_view
+
+    def broken(*a, **k):
+        raise RuntimeError("diagnostics exploded")
+
+    monkeypatch.setattr(session, "scene", broken)
+    drag(view, float(np.median(session.X_train[:, 0])) + 0.123)
+    assert "diagnostics exploded" in view.error
+    assert view._error_area.layout.display != "none"
+    assert "diagnostics exploded" in view._error_area.value
+    monkeypatch.undo()
+    drag(view, float(np.median(session.X_train[:, 0])))
+    assert view.error == "" and view._error_area.layout.display == "none"
+
+
+def test_probe_move_sends_one_message_per_mark(app, session, monkeypatch):
+    view = app.probe_view
+    sent = []
+    monkeypatch.setattr(view.rows_mark.comm, "send",
+                        lambda data=None, *a, **k: sent.append(data))
+    drag(view, float(np.quantile(session.X_train[:, 0], 0.3)))
+    updates = [m for m in sent if m and m.get("method") == "update"]
+    assert len(updates) == 1
+    assert {"size", "opacities"} <= set(updates[0]["state"])
+
+
+def test_edges_view_highlights_the_probe_rows(app, session):
+    view = app.edges_view
+    prof = session.edge_profile()
+    w = session.probe_report().weights.toarray().ravel()
+    np.testing.assert_allclose(view.probe_rows_mark.x, prof.depth[w > 0])
+    for name, mark in view.mean_marks.items():
+        b = prof.bands[prof.bands["method"] == name]
+        np.testing.assert_allclose(mark.y, b["mean_residual"])
+    before = np.asarray(view.probe_rows_mark.x).copy()
+    drag(app.probe_view, float(session.X_train[:, session.feature_names.index(
+        app.probe_view.feature)].max()))
+    assert not np.array_equal(before, view.probe_rows_mark.x)
+
+
+def test_edges_and_verdict_follow_the_ridge_penalty(app, session):
+    bands0 = np.asarray(app.edges_view.mean_marks["local linear forest"].y).copy()
+    session.ridge_penalty = 50.0
+    assert not np.allclose(app.edges_view.mean_marks["local linear forest"].y, bands0)
+    v = D.verdict(session.X_train, session.y_train,
+                  forest=D.at_ridge_penalty(session.model, 50.0), smoothers=None,
+                  baseline=False)
+    assert v.conclusion in app.verdict_view.conclusion_html.value.replace("&#x27;", "'")
+    np.testing.assert_allclose(np.asarray(app.verdict_view.bars_mark.y)[0],
+                               v.comparisons.loc["local linear forest",
+                                                 ["gain_all", "gain_edge", "gain_interior"]])
+
+
+def test_weights_view_matches_weight_profile(app, session):
+    view = app.weights_view
+    for name, mark in view.cumulative_marks.items():
+        prof = D.weight_profile(session.probe_report(), session.X_train, name)
+        np.testing.assert_allclose(mark.y, prof["cumulative"])
+        np.testing.assert_allclose(view.weight_marks[name].x, prof["distance"])
+        assert np.asarray(mark.y)[-1] == pytest.approx(1.0)
+
+
+def test_refit_request_cancels_the_running_one(data):
+    X, y = data
+    s = ExploreSession(X, y, n_estimators=100, compare=False, refit_delay=0.01)
+    view = ProbeView(s)
+    gen = s.generation
+    first = s.request_refit(n_estimators=4000)
+    for _ in range(400):
+        if first.outcome == "running" and s.refit_progress > 0:
+            break
+        import time
+
+        time.sleep(0.01)
+    assert first.outcome == "running"
+    second = s.request_refit(n_estimators=100, subsample_rate=0.3)
+    assert s.wait_for_refit(60) == "done"
+    first.thread.join(30)
+    assert first.outcome == "cancelled" and second.outcome == "done"
+    assert s.generation == gen + 1
+    assert s.settings["subsample_rate"] == 0.3 and s.settings["n_estimators"] == 100
+    assert s.model.get_params()["subsample_rate"] == 0.3
+    assert [o for _, o in s.refit_log] == ["cancelled", "done"]
+    # the probe view redrew from the new forest
+    assert view.readout["local linear forest"]["prediction"] == pytest.approx(
+        D.probe(D.at_ridge_penalty(s.model, s.ridge_penalty), np.asarray(view.probe_x))
+        .method("local linear forest").prediction)
+
+
+def test_quick_requests_are_debounced_and_failures_shown(data):
+    X, y = data
+    s = ExploreSession(X, y, n_estimators=100, compare=False, refit_delay=0.3)
+    from hedgerow.widgets import TuningView
+
+    tuning = TuningView(s)
+    tuning.leaf_slider.value = 6
+    tuning.leaf_slider.value = 7
+    assert s.wait_for_refit(60) == "done"
+    assert [o for _, o in s.refit_log] == ["cancelled", "done"]
+    assert s.model.get_params()["min_samples_leaf"] == 7
+    # a refit that fails is shown in the tuning view's error area
+    tuning.leaf_slider.value = 50
+    tuning.trees_slider.value = 50
+    s.request_refit(subsample_rate=0.05)
+    assert s.wait_for_refit(60) == "failed"
+    assert "refit failed" in tuning.error and "min_samples_leaf" in tuning.error
+
+
+def test_cancel_button_stops_a_pending_refit(data):
+    X, y = data
+    s = ExploreSession(X, y, n_estimators=100, compare=False, refit_delay=5.0)
+    from hedgerow.widgets import TuningView
+
+    tuning = TuningView(s)
+    s.request_refit(n_estimators=150)
+    assert not tuning.cancel_button.disabled
+    tuning._on_cancel_clicked(tuning.cancel_button)
+    assert s.refit_status == "cancelled" and s.generation == 0
+    assert tuning.cancel_button.disabled
+
+
+def test_marker_scaling_and_display_subsample():
+    w = np.array([0.0, 0.1, 0.5, 0.2])
+    size, op = marker_scaling(w)
+    assert np.argmax(size) == 2 and size[0] == size.min() and size[0] > 0
+    assert np.all(np.diff(op[np.argsort(w)]) >= 0)
+    rows = display_rows(6000)
+    assert rows.size == 5000 and np.array_equal(rows, display_rows(6000))
+    assert np.array_equal(display_rows(300), np.arange(300))
+
+
+def test_hedgerow_explore_entry_point(data):
+    from hedgerow._explore import explore as lazy
+
+    X, y = data
+    app = lazy(X, y, n_estimators=50, compare=False, feature="sun_hours")
+    assert app.probe_view.feature == "sun_hours"
+    assert app.probe_view.shown_rows == 300
