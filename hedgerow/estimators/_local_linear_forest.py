@@ -20,8 +20,18 @@ from hedgerow._validation import (
 )
 from hedgerow.estimators._forest import _ForestBase
 from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL
-from hedgerow.inference import linearised_tree_predictions, little_bags_variance
-from hedgerow.local import default_scale, local_moments, solve_local
+from hedgerow.inference import little_bags_variance
+from hedgerow.inference._little_bags import (
+    linearisation_coefficients,
+    linearised_from_leaf_means,
+)
+from hedgerow.local import (
+    default_scale,
+    local_moments,
+    moment_features,
+    moments_from_sums,
+    solve_local,
+)
 
 __all__ = ["LocalLinearForestRegressor", "RIDGE_GRID", "SPLIT_PENALTY_AUTO"]
 
@@ -239,6 +249,7 @@ class LocalLinearForestRegressor(_ForestBase):
         self.correction_scale_ = scale
         self._Xc = Xc
         self._cache = OrderedDict()
+        self._lazy = {}
         self._oob_moments = None
         if auto:
             grid = np.array(RIDGE_GRID)
@@ -252,7 +263,7 @@ class LocalLinearForestRegressor(_ForestBase):
 
     # -- cached pieces -------------------------------------------------------------------
     def _query_state(self, X):
-        """Return (leaves, W, moments) of the queries X, cached by the bytes of X."""
+        """Return (leaves, None, moments) of the queries X, cached by the bytes of X."""
         key = hashlib.blake2b(np.ascontiguousarray(X).view(np.uint8), digest_size=16).digest()
         key = (key, X.shape)
         hit = self._cache.get(key)
@@ -260,16 +271,26 @@ class LocalLinearForestRegressor(_ForestBase):
             self._cache.move_to_end(key)
             return hit
         leaves = self._leaves(X)
-        W, _ = self.forest_.weights(leaves, n_jobs=self._n_threads())
-        mom = local_moments(
-            W, self._Xc, self.y_train_, X[:, self.correction_features_], degree=1,
-            scale=self.correction_scale_,
-        )
-        state = (leaves, W, mom)
+        # W @ [moment features] as averages of per-leaf means: no m × n weight matrix
+        means, centre = self._leaf_features()
+        R, _ = self.forest_.weighted_sums(leaves, means, n_jobs=self._n_threads())
+        mom = moments_from_sums(R, X[:, self.correction_features_], centre,
+                                self.correction_scale_)
+        state = (leaves, None, mom)
         self._cache[key] = state
         while len(self._cache) > _CACHE_SIZE:
             self._cache.popitem(last=False)
         return state
+
+    def _leaf_features(self):
+        """Return the per-leaf means of the moment features (computed once per fit)."""
+        # kept in a dict created at fit, so that predicting never rebinds attributes
+        lazy = self._lazy
+        if "means" not in lazy:
+            F, centre = moment_features(self._Xc, self.y_train_, self.correction_scale_)
+            lazy["means"] = self.forest_.leaf_feature_means(F)
+            lazy["centre"] = centre
+        return lazy["means"], lazy["centre"]
 
     def _oob_state(self):
         if self._oob_moments is None:
@@ -298,15 +319,20 @@ class LocalLinearForestRegressor(_ForestBase):
             warnings.simplefilter("ignore", RuntimeWarning)
             return solve_local(mom, lam)
 
+    def _tree_terms(self, leaves, usable, Qc, fit, row=0):
+        """Return per-tree linearised predictions for row ``row`` of the inverse Gram."""
+        means, centre = self._leaf_features()
+        offset, gamma = linearisation_coefficients(
+            Qc, centre, self.correction_scale_, np.nan_to_num(fit.intercept),
+            np.nan_to_num(fit.slopes_std), np.nan_to_num(fit.gram_inv[:, row, :]),
+        )
+        return linearised_from_leaf_means(
+            leaves, usable, self.forest_, means, offset, gamma, n_jobs=self._n_threads()
+        )
+
     def _std(self, leaves, usable, W, Qc, fit):
         self._require_bags()
-        coef = np.column_stack([fit.intercept, fit.slopes_std])
-        c0 = fit.gram_inv[:, 0, :]
-        psi = linearised_tree_predictions(
-            leaves, usable, self.forest_, self._Xc, self.y_train_, Qc,
-            self.correction_scale_, np.nan_to_num(coef), np.nan_to_num(c0), W,
-            n_jobs=self._n_threads(),
-        )
+        psi = self._tree_terms(leaves, usable, Qc, fit)
         return little_bags_variance(psi, self.trees_per_bag_)
 
     # -- public --------------------------------------------------------------------------
@@ -358,15 +384,10 @@ class LocalLinearForestRegressor(_ForestBase):
         self._require_bags()
         leaves, W, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
-        coef = np.nan_to_num(np.column_stack([fit.intercept, fit.slopes_std]))
         Qc = X[:, self.correction_features_]
         out = np.empty_like(fit.slopes)
         for j in range(out.shape[1]):
-            psi = linearised_tree_predictions(
-                leaves, None, self.forest_, self._Xc, self.y_train_, Qc,
-                self.correction_scale_, coef, np.nan_to_num(fit.gram_inv[:, j + 1, :]), W,
-                n_jobs=self._n_threads(),
-            )
+            psi = self._tree_terms(leaves, None, Qc, fit, row=j + 1)
             out[:, j] = little_bags_variance(psi, self.trees_per_bag_).std
         return out / self.correction_scale_
 
@@ -395,6 +416,7 @@ class LocalLinearForestRegressor(_ForestBase):
     def __getstate__(self):
         state = dict(vars(self))
         state["_cache"] = OrderedDict()
+        state["_lazy"] = {}
         state["_oob_moments"] = None
         state.pop("_oob_leaves", None)
         state["_oob_leaves"] = None

@@ -116,6 +116,52 @@ def _inbag_chunk(rows, sample_ptr, sample_rows, n):
     return out
 
 
+@njit(cache=True, nogil=True, error_model="numpy")
+def _leaf_means_kernel(leaf_ptr, leaf_rows, F):
+    L = leaf_ptr.shape[0] - 1
+    p = F.shape[1]
+    out = np.zeros((L, p))
+    for leaf in range(L):
+        a = leaf_ptr[leaf]
+        b = leaf_ptr[leaf + 1]
+        if b <= a:
+            continue
+        for q in range(a, b):
+            r = leaf_rows[q]
+            for j in range(p):
+                out[leaf, j] += F[r, j]
+        inv = 1.0 / (b - a)
+        for j in range(p):
+            out[leaf, j] *= inv
+    return out
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _gather_chunk(leaves, usable, leaf_ptr, leaf_means):
+    """Mean over usable trees of the leaf means of each query's leaves (and tree counts)."""
+    m, B = leaves.shape
+    p = leaf_means.shape[1]
+    all_usable = usable.shape[0] == 0
+    out = np.zeros((m, p))
+    n_used = np.zeros(m, dtype=np.int64)
+    for i in range(m):
+        used = 0
+        for t in range(B):
+            if not all_usable and not usable[i, t]:
+                continue
+            leaf = leaves[i, t]
+            if leaf_ptr[leaf + 1] <= leaf_ptr[leaf]:
+                continue
+            used += 1
+            for j in range(p):
+                out[i, j] += leaf_means[leaf, j]
+        n_used[i] = used
+        if used > 0:
+            for j in range(p):
+                out[i, j] /= used
+    return out, n_used
+
+
 def _chunks(m: int, n_jobs: int, size: int = 512):
     step = max(1, min(size, -(-m // max(1, n_jobs))))
     return [(a, min(m, a + step)) for a in range(0, m, step)]
@@ -209,6 +255,30 @@ class ForestArrays:
         W = sp.csr_matrix((data, indices, indptr), shape=(m, self.n_train))
         W.has_sorted_indices = True
         return W, n_used
+
+    def leaf_feature_means(self, F: np.ndarray) -> np.ndarray:
+        """Return the (L, p) means of the rows' features ``F`` (n, p) over every leaf."""
+        return _leaf_means_kernel(
+            self.leaf_ptr, self.leaf_rows, np.ascontiguousarray(F, dtype=np.float64)
+        )
+
+    def weighted_sums(self, leaves, leaf_means, usable=None, n_jobs: int = 1):
+        """Return (W @ F, usable trees per query) without forming W.
+
+        ``leaf_means`` from ``leaf_feature_means(F)``: the forest weights average the
+        leaf means of F over the usable trees, which equals the weighted sum.
+        """
+        empty = np.zeros((0, 0), dtype=np.bool_)
+
+        def run(ab):
+            a, b = ab
+            u = empty if usable is None else np.ascontiguousarray(usable[a:b])
+            return _gather_chunk(np.ascontiguousarray(leaves[a:b]), u, self.leaf_ptr, leaf_means)
+
+        parts = _map(run, _chunks(leaves.shape[0], n_jobs), n_jobs)
+        if not parts:
+            return np.zeros((0, leaf_means.shape[1])), np.zeros(0, dtype=np.int64)
+        return (np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]))
 
     def leaf_means(self, y: np.ndarray) -> np.ndarray:
         """Return the mean of ``y`` over the fill rows of every leaf (NaN for empty leaves)."""

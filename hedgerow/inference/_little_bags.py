@@ -92,6 +92,59 @@ def truncated_normal_mean(v_hat: np.ndarray, tau: np.ndarray) -> np.ndarray:
     return out
 
 
+@njit(cache=True, nogil=True, error_model="numpy")
+def _bag_terms(psi, l):
+    """Per query: (V_hat, tau_hat, number of bags with >= 2 usable trees); one pass."""
+    m, B = psi.shape
+    G = B // l
+    raw = np.full(m, np.nan)
+    tau = np.full(m, np.nan)
+    n_bags = np.zeros(m, dtype=np.int64)
+    bag_mean = np.empty(G)
+    bag_corr = np.empty(G)
+    for i in range(m):
+        g_ok = 0
+        for g in range(G):
+            k = 0
+            s1 = 0.0
+            for j in range(g * l, g * l + l):
+                v = psi[i, j]
+                if not np.isnan(v):
+                    k += 1
+                    s1 += v
+            if k < 2:
+                continue
+            mu = s1 / k
+            ss = 0.0
+            for j in range(g * l, g * l + l):
+                v = psi[i, j]
+                if not np.isnan(v):
+                    ss += (v - mu) * (v - mu)
+            bag_mean[g_ok] = mu
+            bag_corr[g_ok] = ss / (k - 1) / k  # s_g^2 / k_g
+            g_ok += 1
+        n_bags[i] = g_ok
+        if g_ok < 2:
+            continue
+        grand = 0.0
+        for g in range(g_ok):
+            grand += bag_mean[g]
+        grand /= g_ok
+        f = g_ok / (g_ok - 1.0)
+        tot = 0.0
+        for g in range(g_ok):
+            u = f * (bag_mean[g] - grand) ** 2 - bag_corr[g]
+            bag_corr[g] = u
+            tot += u
+        r = tot / g_ok
+        vu = 0.0
+        for g in range(g_ok):
+            vu += (bag_corr[g] - r) ** 2
+        raw[i] = r
+        tau[i] = np.sqrt(vu / (g_ok - 1.0) / g_ok)
+    return raw, tau, n_bags
+
+
 def little_bags_variance(psi: np.ndarray, trees_per_bag: int) -> LittleBagsVariance:
     """Return the little-bags variance of the mean of ``psi`` along axis 1.
 
@@ -102,28 +155,9 @@ def little_bags_variance(psi: np.ndarray, trees_per_bag: int) -> LittleBagsVaria
         bag g (``l = trees_per_bag``). Bags with fewer than two usable trees are left out.
     trees_per_bag : int >= 2.
     """
-    psi = np.asarray(psi, dtype=np.float64)
-    m, B = psi.shape
-    G = B // trees_per_bag
-    P = psi[:, : G * trees_per_bag].reshape(m, G, trees_per_bag)
-    ok = ~np.isnan(P)
-    k = ok.sum(axis=2)
-    usable_bag = k >= 2
-    Pz = np.where(ok, P, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        bag_mean = Pz.sum(axis=2) / k
-        within = (np.where(ok, P - bag_mean[:, :, None], 0.0) ** 2).sum(axis=2) / (k - 1)
-    Gx = usable_bag.sum(axis=1)
-    bag_mean = np.where(usable_bag, bag_mean, 0.0)
-    within = np.where(usable_bag, within, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        grand = bag_mean.sum(axis=1) / Gx
-        dev2 = np.where(usable_bag, (bag_mean - grand[:, None]) ** 2, 0.0)
-        u = Gx[:, None] / (Gx[:, None] - 1.0) * dev2 - within / np.maximum(k, 1)
-        u = np.where(usable_bag, u, 0.0)
-        raw = u.sum(axis=1) / Gx
-        var_u = np.where(usable_bag, (u - raw[:, None]) ** 2, 0.0).sum(axis=1) / (Gx - 1.0)
-        tau = np.sqrt(var_u / Gx)
+    psi = np.ascontiguousarray(psi, dtype=np.float64)
+    m = psi.shape[0]
+    raw, tau, Gx = _bag_terms(psi, int(trees_per_bag))
     bad = Gx < 2
     raw = np.where(bad, np.nan, raw)
     tau = np.where(bad, np.nan, tau)
@@ -183,6 +217,46 @@ def _linearised_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coe
     return out
 
 
+@njit(cache=True, nogil=True, error_model="numpy")
+def _linearised_direct_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coef,
+                             c0):
+    """As ``_linearised_chunk``, computing rho_i(x) at every leaf row (no weight matrix)."""
+    m, B = leaves.shape
+    k = Xc.shape[1]
+    all_usable = usable.shape[0] == 0
+    out = np.full((m, B), np.nan)
+    al = np.empty(k)
+    be = np.empty(k)
+    for i in range(m):
+        lev0 = c0[i, 0]
+        res0 = -coef[i, 0]
+        for j in range(k):
+            al[j] = c0[i, j + 1] / scale[j]
+            be[j] = coef[i, j + 1] / scale[j]
+            lev0 -= al[j] * Qc[i, j]
+            res0 += be[j] * Qc[i, j]
+        for t in range(B):
+            if not all_usable and not usable[i, t]:
+                continue
+            leaf = leaves[i, t]
+            a = leaf_ptr[leaf]
+            b = leaf_ptr[leaf + 1]
+            if b <= a:
+                continue
+            acc = 0.0
+            for p in range(a, b):
+                r = leaf_rows[p]
+                lev = lev0
+                res = res0 + y[r]
+                for j in range(k):
+                    x = Xc[r, j]
+                    lev += al[j] * x
+                    res -= be[j] * x
+                acc += lev * res
+            out[i, t] = coef[i, 0] + acc / (b - a)
+    return out
+
+
 def linearised_tree_predictions(
     leaves, usable, forest, Xc, y, Qc, scale, coef, c0, W, n_jobs=1
 ) -> np.ndarray:
@@ -191,7 +265,8 @@ def linearised_tree_predictions(
     ``coef`` (m, k+1) holds the forest's local intercept and standardised slopes, ``c0``
     (m, k+1) the first row of the inverse penalised Gram matrix; with k = 0 and c0 = 1
     this is every tree's leaf mean. ``usable`` is (m, B) bool or None (all trees); ``W``
-    the CSR forest weights of the queries under the same usable trees.
+    the CSR forest weights of the queries under the same usable trees, or None (each
+    leaf row's term is then computed where it is met, with no weight matrix).
     """
     from hedgerow.forest._storage import _chunks, _map
 
@@ -202,16 +277,86 @@ def linearised_tree_predictions(
     scale = np.ascontiguousarray(scale, dtype=np.float64)
     coef = np.ascontiguousarray(coef, dtype=np.float64)
     c0 = np.ascontiguousarray(c0, dtype=np.float64)
-    W = W.tocsr()
+    W = None if W is None else W.tocsr()
 
     def run(ab):
         lo, hi = ab
         u = u_all if usable is None else np.ascontiguousarray(usable[lo:hi])
+        if W is None:
+            return _linearised_direct_chunk(
+                np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, forest.leaf_rows,
+                Xc, y, Qc[lo:hi], scale, coef[lo:hi], c0[lo:hi],
+            )
         sub = W[lo:hi]
         return _linearised_chunk(
             np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, forest.leaf_rows, Xc, y,
             Qc[lo:hi], scale, coef[lo:hi], c0[lo:hi], sub.indptr.astype(np.int64),
             sub.indices.astype(np.int64), forest.n_train,
+        )
+
+    parts = _map(run, _chunks(leaves.shape[0], n_jobs), n_jobs)
+    if not parts:
+        return np.empty((0, leaves.shape[1]))
+    return np.concatenate(parts, axis=0)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _dot_leaf_means_chunk(leaves, usable, leaf_ptr, leaf_means, offset, gamma):
+    m, B = leaves.shape
+    p = leaf_means.shape[1]
+    all_usable = usable.shape[0] == 0
+    out = np.full((m, B), np.nan)
+    for i in range(m):
+        for t in range(B):
+            if not all_usable and not usable[i, t]:
+                continue
+            leaf = leaves[i, t]
+            if leaf_ptr[leaf + 1] <= leaf_ptr[leaf]:
+                continue
+            acc = offset[i]
+            for j in range(p):
+                acc += gamma[i, j] * leaf_means[leaf, j]
+            out[i, t] = acc
+    return out
+
+
+def linearisation_coefficients(Qc, centre, scale, intercept, slopes_std, c0):
+    """Return (offset, gamma) with psi_t(x) = offset + gamma . (leaf mean of the features).
+
+    The features are ``hedgerow.local.moment_features`` of the rows,
+    [1, u, u u^T (upper triangle), y, u y] with u = (x - centre) / scale. Expanding
+    rho_i(x) = (L0 + c'u_i)(R0 + y_i - b'u_i), with z_i = u_i - q_u, L0 = c_0 - c'q_u and
+    R0 = -a + b'q_u, makes the leaf average of rho linear in the leaf means of those
+    features, so a tree's term costs one dot product instead of a pass over its rows.
+    """
+    Qc = np.asarray(Qc, dtype=np.float64)
+    m, k = Qc.shape
+    qu = (Qc - centre) / scale
+    a = np.asarray(intercept, dtype=np.float64)
+    b = np.asarray(slopes_std, dtype=np.float64).reshape(m, k)
+    c = np.asarray(c0, dtype=np.float64)[:, 1:]
+    L0 = c0[:, 0] - np.einsum("ij,ij->i", c, qu)
+    R0 = -a + np.einsum("ij,ij->i", b, qu)
+    iu, ju = np.triu_indices(k)
+    pair = np.where(iu == ju, c[:, iu] * b[:, ju], c[:, iu] * b[:, ju] + c[:, ju] * b[:, iu])
+    gamma = np.concatenate(
+        [(L0 * R0)[:, None], -L0[:, None] * b + R0[:, None] * c, -pair, L0[:, None], c], axis=1
+    )
+    return a.copy(), np.ascontiguousarray(gamma)
+
+
+def linearised_from_leaf_means(leaves, usable, forest, leaf_means, offset, gamma, n_jobs=1):
+    """Return the (m, B) per-tree linearised predictions from per-leaf feature means."""
+    from hedgerow.forest._storage import _chunks, _map
+
+    u_all = np.zeros((0, 0), dtype=np.bool_)
+
+    def run(ab):
+        lo, hi = ab
+        u = u_all if usable is None else np.ascontiguousarray(usable[lo:hi])
+        return _dot_leaf_means_chunk(
+            np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, leaf_means,
+            offset[lo:hi], gamma[lo:hi],
         )
 
     parts = _map(run, _chunks(leaves.shape[0], n_jobs), n_jobs)

@@ -7,6 +7,8 @@ from hedgerow.local._solver import (
     default_scale,
     equivalent_kernel,
     local_moments,
+    moment_features,
+    moments_from_sums,
     solve_local,
 )
 
@@ -17,5 +19,7 @@ __all__ = [
     "default_scale",
     "equivalent_kernel",
     "local_moments",
+    "moment_features",
+    "moments_from_sums",
     "solve_local",
 ]

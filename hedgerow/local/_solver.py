@@ -51,6 +51,8 @@ __all__ = [
     "default_scale",
     "equivalent_kernel",
     "local_moments",
+    "moment_features",
+    "moments_from_sums",
     "solve_local",
 ]
 
@@ -261,14 +263,40 @@ def local_moments(W, X_c, y, Q_c, *, degree: int, scale=None) -> LocalMoments:
             f"The 'scale' parameter must hold {k} positive finite values (one per "
             f"correction column). Got {scale!r} instead."
         )
+    B, centre = moment_features(X_c, y, scale)
+    return moments_from_sums(_weighted_sums(W, B), Q_c, centre, scale)
+
+
+def moment_features(X_c, y, scale):
+    """Return ``(B, centre)``: per-row features whose weighted sums give the moments.
+
+    ``B = [1, u, u u^T (upper triangle), y, u y]`` with ``u = (x - centre) / scale`` and
+    ``centre`` the training mean of each column. Any weighting that can produce the
+    weighted sums ``W @ B`` (a sparse product, or averages of per-leaf means of ``B``)
+    can then call :func:`moments_from_sums`.
+    """
+    X_c = np.asarray(X_c, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64).ravel()
+    n, k = X_c.shape
     centre = X_c.mean(axis=0) if n else np.zeros(k)
     Xs = (X_c - centre) / scale
-    Qs = (Q_c - centre) / scale
     iu, ju = _pair_indices(k)
     B = np.concatenate(
         [np.ones((n, 1)), Xs, Xs[:, iu] * Xs[:, ju], y[:, None], Xs * y[:, None]], axis=1
     )
-    R = _weighted_sums(W, B)
+    return np.ascontiguousarray(B), centre
+
+
+def moments_from_sums(R, Q_c, centre, scale) -> LocalMoments:
+    """Return the degree-1 ``LocalMoments`` from weighted sums ``R = W @ B``.
+
+    ``B``, ``centre`` and ``scale`` as from :func:`moment_features`; the sums are centred
+    at each query algebraically.
+    """
+    Q_c = np.asarray(Q_c, dtype=np.float64)
+    m, k = Q_c.shape
+    Qs = (Q_c - centre) / scale
+    iu, ju = _pair_indices(k)
     p = len(iu)
     s0 = R[:, 0]
     mx = R[:, 1 : 1 + k]

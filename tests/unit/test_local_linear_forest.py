@@ -231,3 +231,33 @@ def test_failed_fit_keeps_earlier_model(design, fitted):
     m.set_params(ridge_penalty="auto")
     np.testing.assert_array_equal(m.predict(Xq), before)
     assert m.n_features_in_ == X.shape[1]
+
+
+def test_leaf_mean_linearisation_equals_row_by_row(design, fitted):
+    # psi_t(x) = a + mean over leaf rows of c'[1, z] (y - a - b'z): the fast path expands
+    # it into leaf means of the moment features; the reference path walks the rows.
+    from hedgerow.inference import linearised_tree_predictions
+
+    X, y, Xq = design
+    leaves = fitted.forest_.apply(Xq)
+    fit = fitted.local_fit(Xq)
+    cols = fitted.correction_features_
+    for row in range(fit.gram_inv.shape[1]):
+        fast = fitted._tree_terms(leaves, None, Xq[:, cols], fit, row=row)
+        coef = np.column_stack([fit.intercept, fit.slopes_std])
+        slow = linearised_tree_predictions(
+            leaves, None, fitted.forest_, X[:, cols], y, Xq[:, cols],
+            fitted.correction_scale_, coef, fit.gram_inv[:, row, :], None,
+        )
+        np.testing.assert_allclose(fast, slow, rtol=1e-9, atol=1e-9)
+    leaves_oob = fitted.forest_.apply(X)
+    usable = ~fitted.forest_.inbag(np.arange(X.shape[0]))
+    fit_oob = fitted._solve(fitted._oob_state()[4], fitted.ridge_penalty_)
+    fast = fitted._tree_terms(leaves_oob, usable, X[:, cols], fit_oob)
+    slow = linearised_tree_predictions(
+        leaves_oob, usable, fitted.forest_, X[:, cols], y, X[:, cols],
+        fitted.correction_scale_, np.nan_to_num(np.column_stack([fit_oob.intercept,
+                                                                 fit_oob.slopes_std])),
+        np.nan_to_num(fit_oob.gram_inv[:, 0, :]), None,
+    )
+    np.testing.assert_allclose(fast, slow, rtol=1e-9, atol=1e-9)
