@@ -1,5 +1,6 @@
 """hedgerow: interactive smoothing diagnostics for forest-based regression."""
 
+from hedgerow._explore import explore
 from hedgerow.estimators import (
     HonestForestRegressor,
     LocalLinearForestRegressor,
@@ -12,5 +13,6 @@ __all__ = [
     "LocalLinearForestRegressor",
     "LocalLinearRegressor",
     "NadarayaWatsonRegressor",
+    "explore",
 ]
 __version__ = "0.1.0.dev0"

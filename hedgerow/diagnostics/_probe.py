@@ -9,6 +9,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from hedgerow.diagnostics._report import ReportMixin, check_probe_point, kish_ess
+from hedgerow.diagnostics._slices import _frame_like
 from hedgerow.inference import normal_interval
 
 __all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS"]
@@ -130,8 +131,9 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
 
     xq = check_probe_point(model, x)
     names = _feature_names(model)
+    q = _frame_like(model, xq)  # named columns for models fitted on a DataFrame
     bags = getattr(model, "trees_per_bag_", 1) >= 2
-    W = model.neighbour_weights(xq)
+    W = model.neighbour_weights(q)
     w = W.toarray().ravel()
     X = model.X_train_
     sd = X.std(axis=0)
@@ -145,33 +147,34 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     k = cols.size
     methods = []
     if is_llf:
-        fit = model.local_fit(xq)
+        fit = model.local_fit(q)
         if bags:
-            _, std = model.predict(xq, return_std=True)
+            _, std = model.predict(q, return_std=True)
             std = float(std[0])
-            slope_se = model.slope_std(xq)[0]
+            slope_se = model.slope_std(q)[0]
         else:
             std, slope_se = None, np.full(k, np.nan)
         methods.append(_method_entry(
             "local linear forest", W, fit.intercept[0], std, fit.slopes[0], slope_se, level
         ))
-    avg = model.local_average(xq, return_std=bags)
+    avg = model.local_average(q, return_std=bags)
     mean, std = (avg[0][0], float(avg[1][0])) if bags else (avg[0], None)
     methods.append(_method_entry(
         "honest forest (same trees)", W, mean, std, np.full(k, np.nan), np.full(k, np.nan),
         level,
     ))
     for smoother in compare:
-        pred, sstd = smoother.predict(xq, return_std=True)
+        qs = _frame_like(smoother, xq)
+        pred, sstd = smoother.predict(qs, return_std=True)
         if hasattr(smoother, "local_slopes"):
-            slopes = np.asarray(smoother.local_slopes(xq))[0][cols]
+            slopes = np.asarray(smoother.local_slopes(qs))[0][cols]
         else:
             slopes = np.full(k, np.nan)
         label = {"NadarayaWatsonRegressor": "Nadaraya-Watson",
                  "LocalLinearRegressor": "local linear (kernel)"}.get(
             type(smoother).__name__, type(smoother).__name__)
         methods.append(_method_entry(
-            label, smoother.neighbour_weights(xq), pred[0], float(sstd[0]), slopes,
+            label, smoother.neighbour_weights(qs), pred[0], float(sstd[0]), slopes,
             np.full(k, np.nan), level,
         ))
     return ProbeReport(

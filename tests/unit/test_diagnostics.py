@@ -232,3 +232,15 @@ def test_probe_and_verdict_with_smoothers(data, llf):
         v.comparisons.index)
     prof = edges({"llf": llf, "nw": nw, "ll": ll})
     assert set(prof.bands["method"]) == {"llf", "nw", "ll"}
+
+
+def test_probe_on_dataframe_model_raises_no_feature_name_warning(data):
+    import warnings
+
+    X, y = data
+    df = pd.DataFrame(X, columns=list("abcd"))
+    m = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(df, y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)
+        rep = probe(m, df.iloc[3])
+    assert rep.feature_names == ("a", "b", "c", "d")
