@@ -27,7 +27,6 @@ from hedgerow.inference._little_bags import (
 )
 from hedgerow.local import (
     default_scale,
-    local_moments,
     moment_features,
     moments_from_sums,
     solve_local,
@@ -295,11 +294,12 @@ class LocalLinearForestRegressor(_ForestBase):
     def _oob_state(self):
         if self._oob_moments is None:
             leaves, usable = self._oob_parts()
-            W, n_used = self.forest_.weights(leaves, usable, n_jobs=self._n_threads())
-            mom = local_moments(
-                W, self._Xc, self.y_train_, self._Xc, degree=1, scale=self.correction_scale_
-            )
-            self._oob_moments = (leaves, usable, W, n_used, mom)
+            means, centre = self._leaf_features()
+            R, n_used = self.forest_.weighted_sums(leaves, means, usable,
+                                                   n_jobs=self._n_threads())
+            # rows without an out-of-bag tree have zero total weight: NaN in the solve
+            mom = moments_from_sums(R, self._Xc, centre, self.correction_scale_)
+            self._oob_moments = (leaves, usable, None, n_used, mom)
         return self._oob_moments
 
     def _penalty(self, ridge_penalty):
