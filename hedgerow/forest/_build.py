@@ -80,12 +80,12 @@ def plan_samples(
 
 
 def _grow_range(args):
-    (a, b, X, y, Z, order, plan, msl, mtry, max_depth, rule, lam) = args
+    (a, b, XT, y, Z, order, plan, msl, mtry, max_depth, rule, lam) = args
     out = []
     for t in range(a, b):
         out.append(
             grow_tree(
-                X, y, Z, order, plan.sample_rows[t], plan.grow_masks[t], plan.fill_masks[t],
+                XT, y, Z, order, plan.sample_rows[t], plan.grow_masks[t], plan.fill_masks[t],
                 msl, mtry, max_depth, rule, lam, int(plan.seeds[t]),
             )
         )
@@ -120,11 +120,12 @@ def grow_forest(
     # different, worse trees than y). Leaf values are computed from the raw y elsewhere.
     y = y - y.mean()
     order = presort(X)
+    XT = np.ascontiguousarray(X.T)  # each column contiguous for the per-tree sweeps
     B = len(plan.sample_rows)
     md = -1 if max_depth is None else int(max_depth)
     ranges = [(a, min(B, a + chunk)) for a in range(0, B, chunk)]
     args = [
-        (a, b, X, y, Z, order, plan, int(min_samples_leaf), int(max_features), md, int(rule),
+        (a, b, XT, y, Z, order, plan, int(min_samples_leaf), int(max_features), md, int(rule),
          float(ridge_penalty))
         for a, b in ranges
     ]

@@ -86,33 +86,56 @@ def presort(X):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _local_lists(global_order, sample_rows, mask, X):
-    """Per-feature sorted local ids and values of the subsample rows selected by ``mask``."""
+def _local_lists(global_order, sample_rows, grow_mask, fill_mask, XT):
+    """Per-feature sorted local ids and values of the grow rows and of the fill rows.
+
+    One sweep of the presorted order per feature fills both roles' lists; ``XT`` is the
+    (d, n) transposed training matrix, so each feature's values are contiguous.
+    """
     d, n = global_order.shape
-    m = 0
-    for i in range(mask.shape[0]):
-        if mask[i]:
-            m += 1
-    local = np.full(n, -1, dtype=np.int64)
-    rows = np.empty(m, dtype=np.int64)
-    c = 0
-    for i in range(mask.shape[0]):
-        if mask[i]:
-            local[sample_rows[i]] = c
-            rows[c] = sample_rows[i]
-            c += 1
-    order = np.empty((d, m), dtype=np.int32)
-    vals = np.empty((d, m))
+    s = sample_rows.shape[0]
+    n_g = 0
+    n_f = 0
+    for i in range(s):
+        n_g += grow_mask[i]
+        n_f += fill_mask[i]
+    g_local = np.full(n, -1, dtype=np.int64)
+    f_local = np.full(n, -1, dtype=np.int64)
+    g_rows = np.empty(n_g, dtype=np.int64)
+    f_rows = np.empty(n_f, dtype=np.int64)
+    cg = 0
+    cf = 0
+    for i in range(s):
+        r = sample_rows[i]
+        if grow_mask[i]:
+            g_local[r] = cg
+            g_rows[cg] = r
+            cg += 1
+        if fill_mask[i]:
+            f_local[r] = cf
+            f_rows[cf] = r
+            cf += 1
+    g_order = np.empty((d, n_g), dtype=np.int32)
+    g_vals = np.empty((d, n_g))
+    f_order = np.empty((d, n_f), dtype=np.int32)
+    f_vals = np.empty((d, n_f))
     for j in range(d):
-        c = 0
+        xj = XT[j]
+        a = 0
+        b = 0
         for t in range(n):
             g = global_order[j, t]
-            li = local[g]
-            if li >= 0:
-                order[j, c] = li
-                vals[j, c] = X[g, j]
-                c += 1
-    return rows, order, vals
+            lg = g_local[g]
+            lf = f_local[g]
+            if lg >= 0:
+                g_order[j, a] = lg
+                g_vals[j, a] = xj[g]
+                a += 1
+            if lf >= 0:
+                f_order[j, b] = lf
+                f_vals[j, b] = xj[g]
+                b += 1
+    return g_rows, g_order, g_vals, f_rows, f_order, f_vals
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -142,7 +165,7 @@ def _partition(order, vals, start, end, goes_left, buf, vbuf):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def grow_tree(
-    X,
+    XT,
     y,
     Z,
     global_order,
@@ -160,7 +183,8 @@ def grow_tree(
 
     Parameters
     ----------
-    X : (n, d) float64 training features; y : (n,) response; Z : (n, k) standardised
+    XT : (d, n) float64 training features, transposed; y : (n,) response; Z : (n, k)
+        standardised
         correction columns (used by the ridge-residual rule only).
     global_order : (d, n) int32 from ``presort(X)``.
     sample_rows : (s,) int64 global row ids of the tree's subsample.
@@ -178,9 +202,10 @@ def grow_tree(
     role counts are segment lengths and the scans have no role branches.
     """
     np.random.seed(seed)  # noqa: NPY002 (numba: per-thread legacy generator)
-    d = X.shape[1]
-    g_rows, g_order, g_vals = _local_lists(global_order, sample_rows, grow_mask, X)
-    f_rows, f_order, f_vals = _local_lists(global_order, sample_rows, fill_mask, X)
+    d = XT.shape[0]
+    g_rows, g_order, g_vals, f_rows, f_order, f_vals = _local_lists(
+        global_order, sample_rows, grow_mask, fill_mask, XT
+    )
     n_grow = g_rows.shape[0]
     n_fill = f_rows.shape[0]
     yl = np.empty(n_grow)
