@@ -29,7 +29,14 @@ from hedgerow.kernels import (
     select_bandwidth_cv,
     silverman_bandwidth,
 )
-from hedgerow.local import default_scale, equivalent_kernel, local_moments, solve_local
+from hedgerow.local import (
+    default_scale,
+    equivalent_kernel,
+    local_moments,
+    moment_features,
+    moments_from_sums,
+    solve_local,
+)
 
 __all__ = ["LocalLinearRegressor", "NadarayaWatsonRegressor"]
 
@@ -129,9 +136,17 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
     def _local_fit(self, X):
         # Row scaling does not change a local fit, so the weights need no normalising.
         W = kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel, normalize=False)
-        moments = local_moments(
-            W, self.X_train_, self.y_train_, X, degree=self._degree, scale=self.scale_
-        )
+        if self._degree == 0:
+            moments = local_moments(
+                W, self.X_train_, self.y_train_, X, degree=0, scale=self.scale_
+            )
+        else:
+            # the training rows' moment features depend on the fit only: built once
+            feats = self._variance_cache
+            if "features" not in feats:
+                feats["features"] = moment_features(self.X_train_, self.y_train_, self.scale_)
+            B, centre = feats["features"]
+            moments = moments_from_sums(np.asarray(W @ B), X, centre, self.scale_)
         return W, solve_local(moments, 0.0)
 
     def _training_variance(self):
