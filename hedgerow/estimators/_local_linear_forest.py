@@ -20,10 +20,10 @@ from hedgerow._validation import (
 )
 from hedgerow.estimators._forest import _ForestBase
 from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL
-from hedgerow.inference import little_bags_variance
-from hedgerow.inference._little_bags import (
+from hedgerow.inference import (
     linearisation_coefficients,
     linearised_from_leaf_means,
+    little_bags_variance,
 )
 from hedgerow.local import (
     default_scale,

@@ -41,7 +41,14 @@ import numpy as np
 from numba import njit
 from scipy.special import log_ndtr
 
-__all__ = ["LittleBagsVariance", "little_bags_variance", "linearised_tree_predictions"]
+__all__ = [
+    "LittleBagsVariance",
+    "linearisation_coefficients",
+    "linearised_from_leaf_means",
+    "linearised_tree_predictions",
+    "little_bags_variance",
+    "truncated_normal_mean",
+]
 
 
 @dataclass(frozen=True)
@@ -168,59 +175,9 @@ def little_bags_variance(psi: np.ndarray, trees_per_bag: int) -> LittleBagsVaria
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _linearised_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coef, c0,
-                      w_ptr, w_idx, n):
-    """Per-tree linearised predictions of a query chunk.
-
-    rho_i(x) is computed once per query for the rows of its weight row (``w_ptr``,
-    ``w_idx``: CSR support of the forest weights, a superset of every usable leaf's rows),
-    then averaged over each tree's leaf.
-    """
-    m, B = leaves.shape
-    k = Xc.shape[1]
-    all_usable = usable.shape[0] == 0
-    out = np.full((m, B), np.nan)
-    rho = np.zeros(n)
-    al = np.empty(k)
-    be = np.empty(k)
-    for i in range(m):
-        # lev_r = c0 . [1, z_r], resid_r = y_r - a - b . z_r with z_r = (x_r - q) / scale,
-        # expanded so that each row costs 2k multiply-adds
-        lev0 = c0[i, 0]
-        res0 = -coef[i, 0]
-        for j in range(k):
-            al[j] = c0[i, j + 1] / scale[j]
-            be[j] = coef[i, j + 1] / scale[j]
-            lev0 -= al[j] * Qc[i, j]
-            res0 += be[j] * Qc[i, j]
-        for p in range(w_ptr[i], w_ptr[i + 1]):
-            r = w_idx[p]
-            lev = lev0
-            res = res0 + y[r]
-            for j in range(k):
-                x = Xc[r, j]
-                lev += al[j] * x
-                res -= be[j] * x
-            rho[r] = lev * res
-        for t in range(B):
-            if not all_usable and not usable[i, t]:
-                continue
-            leaf = leaves[i, t]
-            a = leaf_ptr[leaf]
-            b = leaf_ptr[leaf + 1]
-            if b <= a:
-                continue
-            acc = 0.0
-            for p in range(a, b):
-                acc += rho[leaf_rows[p]]
-            out[i, t] = coef[i, 0] + acc / (b - a)
-    return out
-
-
-@njit(cache=True, nogil=True, error_model="numpy")
 def _linearised_direct_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, scale, coef,
                              c0):
-    """As ``_linearised_chunk``, computing rho_i(x) at every leaf row (no weight matrix)."""
+    """Per-tree linearised predictions of a query chunk, rho_i(x) at every leaf row."""
     m, B = leaves.shape
     k = Xc.shape[1]
     all_usable = usable.shape[0] == 0
@@ -258,15 +215,15 @@ def _linearised_direct_chunk(leaves, usable, leaf_ptr, leaf_rows, Xc, y, Qc, sca
 
 
 def linearised_tree_predictions(
-    leaves, usable, forest, Xc, y, Qc, scale, coef, c0, W, n_jobs=1
+    leaves, usable, forest, Xc, y, Qc, scale, coef, c0, n_jobs=1
 ) -> np.ndarray:
-    """Return the (m, B) per-tree linearised predictions psi_t(x) (module docstring).
+    """Return the (m, B) per-tree linearised predictions psi_t(x), row by row.
 
-    ``coef`` (m, k+1) holds the forest's local intercept and standardised slopes, ``c0``
-    (m, k+1) the first row of the inverse penalised Gram matrix; with k = 0 and c0 = 1
-    this is every tree's leaf mean. ``usable`` is (m, B) bool or None (all trees); ``W``
-    the CSR forest weights of the queries under the same usable trees, or None (each
-    leaf row's term is then computed where it is met, with no weight matrix).
+    The reference implementation of the module docstring's formula: every leaf row's
+    term is computed where it is met. ``coef`` (m, k+1) holds the local intercept and
+    standardised slopes, ``c0`` (m, k+1) a row of the inverse penalised Gram matrix; with
+    k = 0 and c0 = 1 this is every tree's leaf mean. ``usable`` is (m, B) bool or None.
+    The estimators use the equivalent, faster ``linearised_from_leaf_means``.
     """
     from hedgerow.forest._storage import _chunks, _map
 
@@ -277,21 +234,13 @@ def linearised_tree_predictions(
     scale = np.ascontiguousarray(scale, dtype=np.float64)
     coef = np.ascontiguousarray(coef, dtype=np.float64)
     c0 = np.ascontiguousarray(c0, dtype=np.float64)
-    W = None if W is None else W.tocsr()
 
     def run(ab):
         lo, hi = ab
         u = u_all if usable is None else np.ascontiguousarray(usable[lo:hi])
-        if W is None:
-            return _linearised_direct_chunk(
-                np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, forest.leaf_rows,
-                Xc, y, Qc[lo:hi], scale, coef[lo:hi], c0[lo:hi],
-            )
-        sub = W[lo:hi]
-        return _linearised_chunk(
-            np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, forest.leaf_rows, Xc, y,
-            Qc[lo:hi], scale, coef[lo:hi], c0[lo:hi], sub.indptr.astype(np.int64),
-            sub.indices.astype(np.int64), forest.n_train,
+        return _linearised_direct_chunk(
+            np.ascontiguousarray(leaves[lo:hi]), u, forest.leaf_ptr, forest.leaf_rows,
+            Xc, y, Qc[lo:hi], scale, coef[lo:hi], c0[lo:hi],
         )
 
     parts = _map(run, _chunks(leaves.shape[0], n_jobs), n_jobs)

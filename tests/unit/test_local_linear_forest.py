@@ -247,7 +247,7 @@ def test_leaf_mean_linearisation_equals_row_by_row(design, fitted):
         coef = np.column_stack([fit.intercept, fit.slopes_std])
         slow = linearised_tree_predictions(
             leaves, None, fitted.forest_, X[:, cols], y, Xq[:, cols],
-            fitted.correction_scale_, coef, fit.gram_inv[:, row, :], None,
+            fitted.correction_scale_, coef, fit.gram_inv[:, row, :],
         )
         np.testing.assert_allclose(fast, slow, rtol=1e-9, atol=1e-9)
     leaves_oob = fitted.forest_.apply(X)
@@ -258,6 +258,6 @@ def test_leaf_mean_linearisation_equals_row_by_row(design, fitted):
         leaves_oob, usable, fitted.forest_, X[:, cols], y, X[:, cols],
         fitted.correction_scale_, np.nan_to_num(np.column_stack([fit_oob.intercept,
                                                                  fit_oob.slopes_std])),
-        np.nan_to_num(fit_oob.gram_inv[:, 0, :]), None,
+        np.nan_to_num(fit_oob.gram_inv[:, 0, :]),
     )
     np.testing.assert_allclose(fast, slow, rtol=1e-9, atol=1e-9)
