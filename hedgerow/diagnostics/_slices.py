@@ -30,8 +30,12 @@ def resolve_feature(model, feature) -> int:
     names = getattr(model, "feature_names_in_", None)
     d = model.n_features_in_
     if isinstance(feature, str):
+        if names is None and feature in [f"x{j}" for j in range(d)]:
+            # the default names reports give to unnamed columns
+            return int(feature[1:])
         if names is None or feature not in list(names):
-            known = list(names) if names is not None else f"indices 0..{d - 1}"
+            known = (list(names) if names is not None
+                     else f"indices 0..{d - 1} or names x0..x{d - 1}")
             raise ValueError(
                 f"The 'feature' parameter must name a column the model was fitted on "
                 f"({known}). Got {feature!r} instead."

@@ -244,3 +244,12 @@ def test_probe_on_dataframe_model_raises_no_feature_name_warning(data):
         warnings.simplefilter("error", UserWarning)
         rep = probe(m, df.iloc[3])
     assert rep.feature_names == ("a", "b", "c", "d")
+
+
+def test_slices_accept_default_names_of_unnamed_columns(data, llf):
+    X, _ = data
+    by_name = slices(llf, X[0], "x2", [0.3, 0.6])
+    by_index = slices(llf, X[0], 2, [0.3, 0.6])
+    pd.testing.assert_frame_equal(by_name.frame, by_index.frame)
+    with pytest.raises(ValueError, match="x0..x3"):
+        slices(llf, X[0], "x9", [0.5])

@@ -1,0 +1,74 @@
+"""Python side of one interaction in the explorer: probe move and ridge-slider step.
+
+n = 10,000, d = 10 (make_friedman1), 1000 trees. Times, without a browser, the handler
+a drag end calls (`ProbeView._on_probe_moved`: diagnostics plus every mark update of the
+views that follow the probe) and one ridge-slider step (`session.ridge_penalty = λ`:
+everything redrawn without refitting). Budgets: probe move <= 30 ms median, ridge step
+<= 250 ms. The browser round trip (mouse-up to readout) is measured by
+tests/browser/test_explore_in_lab.py and written to tests/browser/artifacts/timings.json.
+
+The kernel smoothers are fitted here with Silverman bandwidths (`--bandwidth cv` to use
+cross-validation, slow at this n): per-interaction cost does not depend on how the
+bandwidth was chosen.
+
+Usage: python benchmarks/bench_widgets.py [--n 10000] [--trees 1000] [--bandwidth silverman]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import pathlib
+import time
+
+import numpy as np
+from sklearn.datasets import make_friedman1
+
+
+def main(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--n", type=int, default=10_000)
+    p.add_argument("--trees", type=int, default=1000)
+    p.add_argument("--bandwidth", default="silverman")
+    args = p.parse_args(argv)
+
+    from hedgerow import LocalLinearForestRegressor, LocalLinearRegressor, NadarayaWatsonRegressor
+    from hedgerow.widgets import explore
+
+    X, y = make_friedman1(n_samples=args.n, n_features=10, noise=1.0, random_state=0)
+    llf = LocalLinearForestRegressor(n_estimators=args.trees, random_state=0, n_jobs=2)
+    llf.fit(X, y)
+    app = explore(X, y, model=llf, compare=False)
+    # the comparison smoothers, fitted once (see the module docstring)
+    app.session._smoothers = [NadarayaWatsonRegressor(bandwidth=args.bandwidth).fit(X, y),
+                              LocalLinearRegressor(bandwidth=args.bandwidth).fit(X, y)]
+    view = app.probe_view
+    j = app.session.feature_names.index(view.feature)
+    xs = np.quantile(X[:, j], np.linspace(0.02, 0.98, 41))
+    times = []
+    for x in xs:
+        t = time.perf_counter()
+        view._on_probe_moved(view.probe_mark, {"event": "drag_end", "point": {"x": float(x),
+                                                                              "y": 0.0}})
+        times.append(time.perf_counter() - t)
+    assert view.error == "", view.error
+    move = 1e3 * float(np.median(times[1:]))
+    print(f"probe move, median of {len(times) - 1}: {move:.1f} ms   (budget <= 30 ms)")
+    lams = np.geomspace(1e-3, 3.0, 9)
+    times = []
+    for lam in lams:
+        t = time.perf_counter()
+        app.session.ridge_penalty = float(lam)
+        times.append(time.perf_counter() - t)
+    step = 1e3 * float(np.median(times))
+    print(f"ridge-slider step, median of {len(times)}: {step:.1f} ms   (budget <= 250 ms)")
+    root = pathlib.Path(__file__).resolve().parent.parent
+    timings = root / "tests/browser/artifacts/timings.json"
+    if timings.exists():
+        rt = json.loads(timings.read_text()).get("probe_drag_round_trip_s")
+        print(f"browser round trip (last browser test run, its small demo model): "
+              f"{1e3 * rt:.0f} ms")
+
+
+if __name__ == "__main__":
+    main()
