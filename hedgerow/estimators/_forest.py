@@ -134,7 +134,9 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         self.max_features_ = mtry
         self.subsample_size_ = s
         self.leaf_values_ = forest.leaf_means(y)
-        self._oob_leaves = None
+        # fit-scoped caches live in one dict created here: predicting never rebinds an
+        # attribute, and shallow copies (another ridge penalty) share what they can
+        self._fit_cache = {}
 
     # -- shared queries ------------------------------------------------------------------
     def _leaves(self, X):
@@ -142,11 +144,12 @@ class _ForestBase(RegressorMixin, BaseEstimator):
 
     def _oob_parts(self):
         """Return (leaves of the training rows, usable mask) for out-of-bag work (cached)."""
-        if self._oob_leaves is None:
+        cache = self._fit_cache
+        if "oob parts" not in cache:
             leaves = self._leaves(self.X_train_)
             usable = ~self.forest_.inbag(np.arange(self.X_train_.shape[0]))
-            self._oob_leaves = (leaves, usable)
-        return self._oob_leaves
+            cache["oob parts"] = (leaves, usable)
+        return cache["oob parts"]
 
     def _warn_unusable(self, n_used, what: str):
         bad = n_used == 0
@@ -217,7 +220,12 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             self._require_bags()
         leaves, usable = self._oob_parts()
         self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
-        return self._predict_from_leaves(leaves, usable, return_std)
+        if return_std:
+            return self._predict_from_leaves(leaves, usable, True)
+        cache = self._fit_cache
+        if "oob average" not in cache:
+            cache["oob average"] = self._predict_from_leaves(leaves, usable, False)
+        return cache["oob average"].copy()
 
     def local_average(self, X, return_std=False):
         """Return the forest-weighted mean of y at X (the honest forest's prediction).
@@ -234,6 +242,13 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         """Return ``(lower, upper)`` pointwise normal confidence intervals at ``level``."""
         mean, std = self.predict(X, return_std=True)
         return normal_interval(mean, std, level)
+
+    def __getstate__(self):
+        state = dict(vars(self))
+        for name in ("_fit_cache", "_cache"):
+            if name in state:
+                state[name] = type(state[name])()
+        return state
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()

@@ -167,11 +167,14 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         where no other row carries weight.
         """
         check_is_fitted(self)
-        resid = loo_residuals(
-            self.X_train_, self.y_train_, self.bandwidth_, self.kernel, self._degree,
-            self.scale_,
-        )
-        return self.y_train_ - resid
+        cache = self._variance_cache  # fit-scoped: the values depend on the fit only
+        if "loo" not in cache:
+            resid = loo_residuals(
+                self.X_train_, self.y_train_, self.bandwidth_, self.kernel, self._degree,
+                self.scale_,
+            )
+            cache["loo"] = self.y_train_ - resid
+        return cache["loo"].copy()
 
     def neighbour_weights(self, X):
         """Return the kernel weights of the training rows for each row of ``X``.

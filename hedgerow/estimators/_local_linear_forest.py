@@ -248,8 +248,6 @@ class LocalLinearForestRegressor(_ForestBase):
         self.correction_scale_ = scale
         self._Xc = Xc
         self._cache = OrderedDict()
-        self._lazy = {}
-        self._oob_moments = None
         if auto:
             grid = np.array(RIDGE_GRID)
             mse = self.ridge_path(grid)
@@ -284,7 +282,7 @@ class LocalLinearForestRegressor(_ForestBase):
     def _leaf_features(self):
         """Return the per-leaf means of the moment features (computed once per fit)."""
         # kept in a dict created at fit, so that predicting never rebinds attributes
-        lazy = self._lazy
+        lazy = self._fit_cache
         if "means" not in lazy:
             F, centre = moment_features(self._Xc, self.y_train_, self.correction_scale_)
             lazy["means"] = self.forest_.leaf_feature_means(F)
@@ -292,15 +290,16 @@ class LocalLinearForestRegressor(_ForestBase):
         return lazy["means"], lazy["centre"]
 
     def _oob_state(self):
-        if self._oob_moments is None:
+        cache = self._fit_cache
+        if "oob state" not in cache:
             leaves, usable = self._oob_parts()
             means, centre = self._leaf_features()
             R, n_used = self.forest_.weighted_sums(leaves, means, usable,
                                                    n_jobs=self._n_threads())
             # rows without an out-of-bag tree have zero total weight: NaN in the solve
             mom = moments_from_sums(R, self._Xc, centre, self.correction_scale_)
-            self._oob_moments = (leaves, usable, None, n_used, mom)
-        return self._oob_moments
+            cache["oob state"] = (leaves, usable, None, n_used, mom)
+        return cache["oob state"]
 
     def _penalty(self, ridge_penalty):
         if ridge_penalty is None:
@@ -412,12 +411,3 @@ class LocalLinearForestRegressor(_ForestBase):
             return fit.intercept
         var = self._std(leaves, usable, W, self._Xc, fit)
         return fit.intercept, var.std
-
-    def __getstate__(self):
-        state = dict(vars(self))
-        state["_cache"] = OrderedDict()
-        state["_lazy"] = {}
-        state["_oob_moments"] = None
-        state.pop("_oob_leaves", None)
-        state["_oob_leaves"] = None
-        return state
