@@ -243,6 +243,12 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         mean, std = self.predict(X, return_std=True)
         return normal_interval(mean, std, level)
 
+    def __copy__(self):
+        # a shallow copy shares the fit-scoped caches (pickling drops them instead)
+        new = type(self).__new__(type(self))
+        new.__dict__.update(self.__dict__)
+        return new
+
     def __getstate__(self):
         state = dict(vars(self))
         for name in ("_fit_cache", "_cache"):

@@ -261,3 +261,13 @@ def test_leaf_mean_linearisation_equals_row_by_row(design, fitted):
         np.nan_to_num(fit_oob.gram_inv[:, 0, :]),
     )
     np.testing.assert_allclose(fast, slow, rtol=1e-9, atol=1e-9)
+
+
+def test_shallow_copy_shares_fit_caches_and_pickle_drops_them(design, fitted):
+    import copy
+
+    fitted.oob_predict()
+    view = copy.copy(fitted)
+    assert view._fit_cache is fitted._fit_cache and "oob state" in view._fit_cache
+    clone = pickle.loads(pickle.dumps(fitted))
+    assert clone._fit_cache == {}
