@@ -132,8 +132,9 @@ class ExploreSession(t.HasTraits):
     def y_train(self) -> np.ndarray:
         return self._model.y_train_
 
-    def _cached(self, key, compute):
-        key = (self.generation, self.ridge_penalty) + key
+    def _cached(self, key, compute, per_penalty=True):
+        key = ((self.generation, self.ridge_penalty) if per_penalty
+               else (self.generation, "any penalty")) + key
         with self._lock:
             if key in self._cache:
                 self._cache.move_to_end(key)
@@ -199,7 +200,8 @@ class ExploreSession(t.HasTraits):
     def ridge_curve(self, penalties):
         key = ("ridge", np.asarray(penalties, dtype=float).tobytes())
         # the curve does not depend on the current penalty: key it on generation only
-        return self._cached(key, lambda: D.ridge_curve(self._model, penalties))
+        return self._cached(key, lambda: D.ridge_curve(self._model, penalties),
+                            per_penalty=False)
 
     def weight_profile(self, method):
         return self._cached(("weights", np.asarray(self.probe_x).tobytes(), method),
