@@ -9,7 +9,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from hedgerow.diagnostics._report import ReportMixin, check_probe_point, kish_ess
-from hedgerow.diagnostics._slices import _frame_like
+from hedgerow.diagnostics._slices import _frame_like, method_label
 from hedgerow.inference import normal_interval
 
 __all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS"]
@@ -170,9 +170,7 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
             slopes = np.asarray(smoother.local_slopes(qs))[0][cols]
         else:
             slopes = np.full(k, np.nan)
-        label = {"NadarayaWatsonRegressor": "Nadaraya-Watson",
-                 "LocalLinearRegressor": "local linear (kernel)"}.get(
-            type(smoother).__name__, type(smoother).__name__)
+        label = method_label(smoother)
         methods.append(_method_entry(
             label, smoother.neighbour_weights(qs), pred[0], float(sstd[0]), slopes,
             np.full(k, np.nan), level,

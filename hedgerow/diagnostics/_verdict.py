@@ -11,6 +11,7 @@ from scipy.stats import norm
 
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._report import ReportMixin
+from hedgerow.diagnostics._slices import method_label
 
 __all__ = ["Verdict", "verdict", "paired_relative_gain", "EDGE_BAND"]
 
@@ -110,10 +111,7 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, level=0.95,
 
         smoothers = [NadarayaWatsonRegressor().fit(Xa, ya), LocalLinearRegressor().fit(Xa, ya)]
     for s in smoothers or ():
-        label = {"NadarayaWatsonRegressor": "Nadaraya-Watson",
-                 "LocalLinearRegressor": "local linear (kernel)"}.get(type(s).__name__,
-                                                                       type(s).__name__)
-        preds[label] = held_out_predictions(s)
+        preds[method_label(s)] = held_out_predictions(s)
     if baseline:
         from sklearn.ensemble import RandomForestRegressor
 
