@@ -13,6 +13,7 @@ from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import Interval, RealNotInt, StrOptions
 from sklearn.utils.validation import check_is_fitted
 
+from hedgerow._cache import array_key, lru_lookup
 from hedgerow._validation import (
     check_fit_data,
     check_predict_data,
@@ -140,7 +141,9 @@ class _ForestBase(RegressorMixin, BaseEstimator):
 
     # -- shared queries ------------------------------------------------------------------
     def _leaves(self, X):
-        return self.forest_.apply(X, n_jobs=self._n_threads())
+        # the probe, its local average and its weights ask for the same query in turn
+        return lru_lookup(self._fit_cache, "leaves", array_key(X),
+                          lambda: self.forest_.apply(X, n_jobs=self._n_threads()))
 
     def _oob_parts(self):
         """Return (leaves of the training rows, usable mask) for out-of-bag work (cached)."""

@@ -15,6 +15,7 @@ from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted
 
+from hedgerow._cache import array_key, lru_lookup
 from hedgerow._validation import (
     as_float_array_1d,
     check_fit_data,
@@ -134,6 +135,10 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         return self
 
     def _local_fit(self, X):
+        return lru_lookup(self._variance_cache, "local fits", array_key(X),
+                          lambda: self._compute_local_fit(X))
+
+    def _compute_local_fit(self, X):
         # Row scaling does not change a local fit, so the weights need no normalising.
         W = kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel, normalize=False)
         if self._degree == 0:
@@ -153,11 +158,16 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         """Return sigma^2(x_i) at the training rows: smoothed squared residuals."""
         if "sigma2" not in self._variance_cache:
             X = self.X_train_
-            W, fit = self._local_fit(X)
+            W, fit = self._compute_local_fit(X)  # not kept: an n × n weight matrix
             resid2 = (self.y_train_ - fit.intercept) ** 2
             total = np.asarray(W.sum(axis=1)).ravel()
             self._variance_cache["sigma2"] = np.asarray(W @ resid2).ravel() / total
         return self._variance_cache["sigma2"]
+
+    def __getstate__(self):
+        state = dict(vars(self))
+        state["_variance_cache"] = {}  # derived from the fit; rebuilt on demand
+        return state
 
     def loo_predict(self):
         """Return leave-one-out predictions of the training rows (hat-matrix diagonal).

@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import hashlib
 import warnings
-from collections import OrderedDict
 from numbers import Integral, Real
 
 import numpy as np
@@ -12,6 +10,7 @@ from sklearn.linear_model import Lasso, LassoCV
 from sklearn.utils._param_validation import StrOptions
 from sklearn.utils.validation import check_is_fitted
 
+from hedgerow._cache import array_key, lru_lookup
 from hedgerow._validation import (
     check_fit_data,
     check_predict_data,
@@ -247,7 +246,6 @@ class LocalLinearForestRegressor(_ForestBase):
         self.correction_features_ = cols
         self.correction_scale_ = scale
         self._Xc = Xc
-        self._cache = OrderedDict()
         if auto:
             grid = np.array(RIDGE_GRID)
             mse = self.ridge_path(grid)
@@ -261,23 +259,17 @@ class LocalLinearForestRegressor(_ForestBase):
     # -- cached pieces -------------------------------------------------------------------
     def _query_state(self, X):
         """Return (leaves, None, moments) of the queries X, cached by the bytes of X."""
-        key = hashlib.blake2b(np.ascontiguousarray(X).view(np.uint8), digest_size=16).digest()
-        key = (key, X.shape)
-        hit = self._cache.get(key)
-        if hit is not None:
-            self._cache.move_to_end(key)
-            return hit
-        leaves = self._leaves(X)
-        # W @ [moment features] as averages of per-leaf means: no m × n weight matrix
-        means, centre = self._leaf_features()
-        R, _ = self.forest_.weighted_sums(leaves, means, n_jobs=self._n_threads())
-        mom = moments_from_sums(R, X[:, self.correction_features_], centre,
-                                self.correction_scale_)
-        state = (leaves, None, mom)
-        self._cache[key] = state
-        while len(self._cache) > _CACHE_SIZE:
-            self._cache.popitem(last=False)
-        return state
+        def compute():
+            leaves = self._leaves(X)
+            # W @ [moment features] as averages of per-leaf means: no m × n weight matrix
+            means, centre = self._leaf_features()
+            R, _ = self.forest_.weighted_sums(leaves, means, n_jobs=self._n_threads())
+            mom = moments_from_sums(R, X[:, self.correction_features_], centre,
+                                    self.correction_scale_)
+            return leaves, None, mom
+
+        return lru_lookup(self._fit_cache, "query state", array_key(X), compute,
+                          size=_CACHE_SIZE)
 
     def _leaf_features(self):
         """Return the per-leaf means of the moment features (computed once per fit)."""
