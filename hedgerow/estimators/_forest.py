@@ -254,9 +254,8 @@ class _ForestBase(RegressorMixin, BaseEstimator):
 
     def __getstate__(self):
         state = dict(vars(self))
-        for name in ("_fit_cache", "_cache"):
-            if name in state:
-                state[name] = type(state[name])()
+        if "_fit_cache" in state:
+            state["_fit_cache"] = {}  # derived from the fit; rebuilt on demand
         return state
 
     def __sklearn_tags__(self):

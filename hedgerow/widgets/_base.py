@@ -65,6 +65,18 @@ class View(W.VBox):
                                   f"padding-left:6px'>{html.escape(change['new'])}</div>")
         self._error_area.layout.display = "" if change["new"] else "none"
 
+    def _follow(self, names):
+        """Draw now, and again whenever one of the session traits ``names`` changes."""
+        self._session.observe(self._on_changed, names=names)
+        self._redraw()
+        self._on_settings_changed()
+
+    def _on_changed(self, change):
+        self._redraw()
+
+    def _redraw(self):  # pragma: no cover - views that follow the session override it
+        raise NotImplementedError
+
     def _on_settings_changed(self, change=None):
         s = self._session
         busy = " (a refit is running; this view shows the forest above)" \

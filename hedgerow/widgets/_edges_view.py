@@ -70,12 +70,7 @@ class EdgesView(View):
         self.children = [W.HTML(f"<b>edges</b> <small>{legend}; ringed: rows carrying the "
                                 f"probe's weight</small>"), self._error_area, self.figure,
                          self.bend_html, self._settings_line]
-        session.observe(self._on_changed, names=["generation", "ridge_penalty", "probe_x"])
-        self._redraw()
-        self._on_settings_changed()
-
-    def _on_changed(self, change):
-        self._redraw()
+        self._follow(["generation", "ridge_penalty", "probe_x"])
 
     def _redraw(self):
         with self._shown_errors("drawing the edges view"):

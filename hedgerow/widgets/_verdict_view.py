@@ -41,12 +41,7 @@ class VerdictView(View):
                                 "errors against the honest forest on the same trees</small>"),
                          self._error_area, self.conclusion_html, self.figure,
                          self.table_html, self._settings_line]
-        session.observe(self._on_changed, names=["generation", "ridge_penalty"])
-        self._redraw()
-        self._on_settings_changed()
-
-    def _on_changed(self, change):
-        self._redraw()
+        self._follow(["generation", "ridge_penalty"])
 
     def _redraw(self):
         with self._shown_errors("drawing the verdict"):

@@ -55,12 +55,7 @@ class WeightsView(View):
         self.children = [W.HTML(f"<b>neighbour weights</b> <small>{legend}</small>"),
                          self._error_area, W.HBox([self.distance_figure, self.rank_figure]),
                          self._settings_line]
-        session.observe(self._on_changed, names=["generation", "ridge_penalty", "probe_x"])
-        self._redraw()
-        self._on_settings_changed()
-
-    def _on_changed(self, change):
-        self._redraw()
+        self._follow(["generation", "ridge_penalty", "probe_x"])
 
     def _redraw(self):
         with self._shown_errors("drawing the neighbour weights"):

@@ -26,16 +26,29 @@ def _rmse(a, b):
     return float(np.sqrt(np.mean((a - b) ** 2)))
 
 
-def test_accuracy_against_random_forest_on_softplus_design(report):
-    # Design: Friedberg, Tibshirani, Athey & Wager (2021), JCGS 30(2), eq. 1;
-    # baseline: sklearn.ensemble.RandomForestRegressor(min_samples_leaf=5).
+def _rmse_ratios(draw, seeds=range(5)):
+    """Return RMSE(local linear forest) / RMSE(RF) against the true mean, per seed.
+
+    ``draw(seed, part)`` returns ``(X, y, true mean)`` of the training ("train") or the
+    fresh test ("test") rows; both models use defaults (RF: min_samples_leaf=5).
+    """
     ratios = []
-    for seed in range(5):
-        X, y, _ = make_softplus_design(1000, random_state=100 + seed)
-        Xt, _, mt = make_softplus_design(1000, random_state=200 + seed)
+    for seed in seeds:
+        X, y, _ = draw(seed, "train")
+        Xt, _, mt = draw(seed, "test")
         llf = LocalLinearForestRegressor(random_state=seed, n_jobs=2).fit(X, y)
         rf = RandomForestRegressor(min_samples_leaf=5, random_state=seed, n_jobs=2).fit(X, y)
         ratios.append(_rmse(llf.predict(Xt), mt) / _rmse(rf.predict(Xt), mt))
+    return ratios
+
+
+def test_accuracy_against_random_forest_on_softplus_design(report):
+    # Design: Friedberg, Tibshirani, Athey & Wager (2021), JCGS 30(2), eq. 1;
+    # baseline: sklearn.ensemble.RandomForestRegressor(min_samples_leaf=5).
+    def draw(seed, part):
+        return make_softplus_design(1000, random_state=(100 if part == "train" else 200) + seed)
+
+    ratios = _rmse_ratios(draw)
     mean_ratio = float(np.mean(ratios))
     report(f"softplus eq.1 design: RMSE(local linear forest) / RMSE(RF) = {mean_ratio:.3f} "
            f"over 5 seeds (per seed {np.round(ratios, 3).tolist()}); bound 0.75")
@@ -45,14 +58,12 @@ def test_accuracy_against_random_forest_on_softplus_design(report):
 def test_accuracy_against_random_forest_on_friedman1(report):
     # Design: Friedman (1991) via sklearn.datasets.make_friedman1(n_features=10, noise=5);
     # baseline: sklearn.ensemble.RandomForestRegressor(min_samples_leaf=5).
-    ratios = []
-    for seed in range(5):
-        X, y = make_friedman1(n_samples=1000, n_features=10, noise=5, random_state=300 + seed)
-        Xt, _ = make_friedman1(n_samples=1000, n_features=10, noise=5, random_state=400 + seed)
-        mt = _friedman_mean(Xt)
-        llf = LocalLinearForestRegressor(random_state=seed, n_jobs=2).fit(X, y)
-        rf = RandomForestRegressor(min_samples_leaf=5, random_state=seed, n_jobs=2).fit(X, y)
-        ratios.append(_rmse(llf.predict(Xt), mt) / _rmse(rf.predict(Xt), mt))
+    def draw(seed, part):
+        X, y = make_friedman1(n_samples=1000, n_features=10, noise=5,
+                              random_state=(300 if part == "train" else 400) + seed)
+        return X, y, _friedman_mean(X)
+
+    ratios = _rmse_ratios(draw)
     mean_ratio = float(np.mean(ratios))
     report(f"friedman1: RMSE(local linear forest) / RMSE(RF) = {mean_ratio:.3f} over 5 seeds "
            f"(per seed {np.round(ratios, 3).tolist()}); bound 0.90")
