@@ -1,18 +1,243 @@
 """Demo data (invented scenarios) and the simulation designs used by the checks.
 
-``load_orchard_demo`` is an invented scenario for demos and notebooks only: no real
-orchard, farm, person or survey stands behind it. ``make_softplus_design`` is the
-simulation design of Friedberg, Tibshirani, Athey & Wager (2021, eq. 1), used by the
-statistical checks.
+Every ``load_*_demo`` scenario is invented for demos, notebooks and tests: no real
+machine, site, company, person or survey stands behind any of them. Each is generated
+deterministically from ``random_state`` (nothing is downloaded) and, except the older
+``load_orchard_demo``, returns one DataFrame holding the feature columns, the target
+column and a ``truth`` column with the noise-free mean, so that any estimate can be
+scored against the truth rather than only against noisy held-out rows.
+
+- ``load_pump_demo``: the main scenario. Smooth, saturating response to one operating
+  condition, steep at one edge of the data, plus a dozen nuisance sensor columns; the
+  local linear correction should help, above all at the edges.
+- ``load_step_demo``: a step-shaped truth, flat at both edges; the correction should not
+  help (and may cost a little around the steps).
+- ``load_bump_demo``: a linear trend with a narrow bump in the middle.
+- ``split_demo(frame)``: ``(X, y, truth)`` from any of the frames above.
+
+``make_softplus_design`` is the simulation design of Friedberg, Tibshirani, Athey &
+Wager (2021, eq. 1), used by the statistical checks.
 """
 
 from __future__ import annotations
+
+from numbers import Integral
 
 import numpy as np
 import pandas as pd
 from sklearn.utils import check_random_state
 
-__all__ = ["load_orchard_demo", "make_softplus_design", "softplus_truth"]
+__all__ = [
+    "NUISANCE_SENSORS",
+    "bump_truth",
+    "load_bump_demo",
+    "load_orchard_demo",
+    "load_pump_demo",
+    "load_step_demo",
+    "make_softplus_design",
+    "pump_truth",
+    "softplus_truth",
+    "split_demo",
+    "step_truth",
+]
+
+#: The pump scenario's nuisance columns (read by no part of its truth).
+NUISANCE_SENSORS = (
+    "bearing_temp_c", "casing_temp_c", "vibration_axial_mm_s", "vibration_radial_mm_s",
+    "ambient_humidity_pct", "oil_level_pct", "filter_age_days", "line_voltage_v",
+    "coolant_flow_lpm", "noise_level_db", "panel_temp_c", "hour_of_shift",
+)
+
+
+def _check_size(n_samples, minimum=20):
+    if isinstance(n_samples, bool) or not isinstance(n_samples, Integral) or (
+        n_samples < minimum
+    ):
+        raise ValueError(
+            f"The 'n_samples' parameter must be an integer >= {minimum}. "
+            f"Got {n_samples!r} instead."
+        )
+    return int(n_samples)
+
+
+def _columns(X, names):
+    """Return the named columns of a frame, or the leading columns of an array, as floats."""
+    if isinstance(X, pd.DataFrame):
+        missing = [c for c in names if c not in X.columns]
+        if missing:
+            raise ValueError(
+                f"The 'X' parameter must hold the columns {list(names)}. "
+                f"Got a frame without {missing} instead."
+            )
+        return [X[c].to_numpy(dtype=np.float64) for c in names]
+    A = np.asarray(X, dtype=np.float64)
+    if A.ndim != 2 or A.shape[1] < len(names):
+        raise ValueError(
+            f"The 'X' parameter must be a 2-d array whose first columns are {list(names)}. "
+            f"Got shape {A.shape} instead."
+        )
+    return [A[:, j] for j in range(len(names))]
+
+
+def _frame(columns, target, y, truth):
+    frame = pd.DataFrame(columns)
+    frame[target] = y
+    frame["truth"] = truth
+    frame.attrs["target"] = target
+    return frame
+
+
+def split_demo(frame: pd.DataFrame, target: str | None = None):
+    """Return ``(X, y, truth)`` of a demo frame: features, target Series, truth Series.
+
+    ``target`` defaults to the name the loader recorded in ``frame.attrs["target"]``.
+    """
+    if not isinstance(frame, pd.DataFrame) or "truth" not in frame.columns:
+        raise ValueError(
+            "The 'frame' parameter must be a demo DataFrame with a 'truth' column. "
+            f"Got {type(frame).__name__} instead."
+        )
+    target = frame.attrs.get("target") if target is None else target
+    if target not in frame.columns or target == "truth":
+        raise ValueError(
+            f"The 'target' parameter must name the target column of the frame, one of "
+            f"{[c for c in frame.columns if c != 'truth']}. Got {target!r} instead."
+        )
+    X = frame.drop(columns=[target, "truth"])
+    return X, frame[target].rename(target), frame["truth"].rename("truth")
+
+
+def pump_truth(X) -> np.ndarray:
+    """Return the pump scenario's noise-free flow (litres per minute).
+
+    ``flow = 140 * (1 - exp(-(motor_speed_rpm - 600) / 900)) + 0.3 * (inlet_pressure_kpa - 100)``.
+    ``X``: a frame with those two columns, or an array whose first two columns they are.
+    """
+    speed, pressure = _columns(X, ("motor_speed_rpm", "inlet_pressure_kpa"))
+    return 140.0 * (1.0 - np.exp(-(speed - 600.0) / 900.0)) + 0.3 * (pressure - 100.0)
+
+
+def load_pump_demo(n_samples: int = 1000, random_state=0) -> pd.DataFrame:
+    """Return an invented test-bench log of a water pump's flow against its motor speed.
+
+    Invented scenario (no real pump, maker or site): each row is one steady-state reading.
+
+    Columns
+    -------
+    motor_speed_rpm : operating condition, uniform on [600, 3000].
+    inlet_pressure_kpa : uniform on [80, 120]; a small linear effect.
+    bearing_temp_c ... hour_of_shift : the twelve ``NUISANCE_SENSORS``, drawn
+        independently of everything else; the truth reads none of them.
+    flow_lpm : the target, ``truth + N(0, 8^2)``.
+    truth : ``pump_truth``:
+        ``140 * (1 - exp(-(motor_speed_rpm - 600) / 900)) + 0.3 * (inlet_pressure_kpa - 100)``.
+
+    The response saturates: steep at low speed, nearly flat at high speed. At the low
+    end a forest's neighbourhoods lie on one side of the query, so its steps bend
+    inward (too high there); a local line removes most of that bias.
+    """
+    n = _check_size(n_samples)
+    rng = check_random_state(random_state)
+    speed = rng.uniform(600.0, 3000.0, n)
+    pressure = rng.uniform(80.0, 120.0, n)
+    nuisance = {
+        "bearing_temp_c": rng.normal(55.0, 6.0, n),
+        "casing_temp_c": rng.normal(38.0, 4.0, n),
+        "vibration_axial_mm_s": rng.gamma(3.0, 0.6, n),
+        "vibration_radial_mm_s": rng.gamma(3.0, 0.8, n),
+        "ambient_humidity_pct": rng.uniform(25.0, 85.0, n),
+        "oil_level_pct": rng.uniform(60.0, 100.0, n),
+        "filter_age_days": rng.randint(0, 180, n).astype(np.float64),
+        "line_voltage_v": rng.normal(400.0, 5.0, n),
+        "coolant_flow_lpm": rng.normal(12.0, 1.5, n),
+        "noise_level_db": rng.normal(78.0, 3.0, n),
+        "panel_temp_c": rng.normal(31.0, 3.0, n),
+        "hour_of_shift": rng.randint(0, 8, n).astype(np.float64),
+    }
+    cols = {"motor_speed_rpm": speed, "inlet_pressure_kpa": pressure, **nuisance}
+    truth = pump_truth(pd.DataFrame(cols))
+    y = truth + rng.normal(0.0, 8.0, n)
+    return _frame(cols, "flow_lpm", y, truth)
+
+
+#: Where the valve scenario's truth steps, and its three levels (kPa).
+STEP_EDGES = (3.5, 6.5)
+STEP_LEVELS = (20.0, 35.0, 28.0)
+
+
+def step_truth(X) -> np.ndarray:
+    """Return the valve scenario's noise-free pressure: 20 below dial 3.5, 35 up to 6.5, then 28.
+
+    ``X``: a frame with ``dial_position``, or an array whose first column it is.
+    """
+    (dial,) = _columns(X, ("dial_position",))
+    lo, hi = STEP_EDGES
+    return np.where(dial < lo, STEP_LEVELS[0], np.where(dial < hi, STEP_LEVELS[1],
+                                                        STEP_LEVELS[2]))
+
+
+def load_step_demo(n_samples: int = 600, random_state=0) -> pd.DataFrame:
+    """Return an invented log of a detent valve's delivered pressure against its dial.
+
+    Invented scenario (no real valve or maker). The valve has three detents, so the
+    pressure jumps between flat levels: a shape a forest's steps already fit, and where a
+    local line has nothing smooth to add (near a jump it can only blur).
+
+    Columns
+    -------
+    dial_position : uniform on [0, 10].
+    supply_temp_c, hose_length_m, hours_since_service : nuisance columns (not in the truth).
+    delivered_kpa : the target, ``truth + N(0, 4^2)``.
+    truth : ``step_truth``: 20 for dial < 3.5, 35 for 3.5 <= dial < 6.5, 28 above.
+    """
+    n = _check_size(n_samples)
+    rng = check_random_state(random_state)
+    cols = {
+        "dial_position": rng.uniform(0.0, 10.0, n),
+        "supply_temp_c": rng.normal(18.0, 3.0, n),
+        "hose_length_m": rng.uniform(2.0, 12.0, n),
+        "hours_since_service": rng.uniform(0.0, 500.0, n),
+    }
+    truth = step_truth(pd.DataFrame(cols))
+    y = truth + rng.normal(0.0, 4.0, n)
+    return _frame(cols, "delivered_kpa", y, truth)
+
+
+def bump_truth(X) -> np.ndarray:
+    """Return the dryer scenario's noise-free energy use (kWh per tonne).
+
+    ``energy = 40 + 30 * feed_rate + 12 * exp(-((feed_rate - 0.6) / 0.06)^2 / 2)``.
+    ``X``: a frame with ``feed_rate``, or an array whose first column it is.
+    """
+    (feed,) = _columns(X, ("feed_rate",))
+    return 40.0 + 30.0 * feed + 12.0 * np.exp(-0.5 * ((feed - 0.6) / 0.06) ** 2)
+
+
+def load_bump_demo(n_samples: int = 600, random_state=0) -> pd.DataFrame:
+    """Return an invented log of a conveyor dryer's energy use against its feed rate.
+
+    Invented scenario (no real dryer or plant). Energy use rises linearly with the feed
+    rate, with a narrow bump near 0.6 (a made-up resonance): a straight trend that local
+    lines follow well at both edges, and a feature narrower than most neighbourhoods.
+
+    Columns
+    -------
+    feed_rate : share of the rated feed, uniform on [0, 1].
+    belt_speed_m_min, air_temp_c, grain_moisture_pct : nuisance columns (not in the truth).
+    energy_kwh_t : the target, ``truth + N(0, 3^2)``.
+    truth : ``bump_truth``: ``40 + 30 * feed_rate + 12 * exp(-((feed_rate - 0.6) / 0.06)^2 / 2)``.
+    """
+    n = _check_size(n_samples)
+    rng = check_random_state(random_state)
+    cols = {
+        "feed_rate": rng.uniform(0.0, 1.0, n),
+        "belt_speed_m_min": rng.uniform(1.0, 4.0, n),
+        "air_temp_c": rng.normal(70.0, 5.0, n),
+        "grain_moisture_pct": rng.uniform(12.0, 24.0, n),
+    }
+    truth = bump_truth(pd.DataFrame(cols))
+    y = truth + rng.normal(0.0, 3.0, n)
+    return _frame(cols, "energy_kwh_t", y, truth)
 
 
 def load_orchard_demo(
