@@ -27,7 +27,8 @@ SLIDER_MIN_EXP, SLIDER_MAX_EXP = -4, 2
 class TuningView(View):
     """Ridge-penalty slider, out-of-bag readouts, refit controls and the coverage readout."""
 
-    coverage_status = t.Unicode("not run", help="not run, running, done or failed.")
+    coverage_status = t.Unicode("not run",
+                                help="not run, running, done, cancelled or failed.")
     coverage_reps = t.Int(10, help="Replications of the coverage readout.")
 
     def __init__(self, session, **kwargs):
@@ -72,6 +73,10 @@ class TuningView(View):
         self.coverage_button = W.Button(description="run coverage readout",
                                         layout=W.Layout(width="220px"))
         self.coverage_button.on_click(self._on_coverage_clicked)
+        self.coverage_cancel_button = W.Button(description="stop coverage readout",
+                                               disabled=True, layout=W.Layout(width="200px"))
+        self.coverage_cancel_button.on_click(self._on_coverage_cancel_clicked)
+        self._coverage_control = None
         self.coverage_progress = W.FloatProgress(value=0.0, min=0.0, max=1.0,
                                                  layout=W.Layout(width="200px"))
         self.coverage_html = W.HTML("<small>not run yet</small>")
@@ -89,7 +94,8 @@ class TuningView(View):
             W.HBox([self.progress, self.cancel_button]), self.status_html,
             W.HTML("<b>verdict</b>"), self.verdict_html,
             W.HTML("<b>coverage readout</b>"),
-            W.HBox([self.coverage_button, self.coverage_progress]), self.coverage_html,
+            W.HBox([self.coverage_button, self.coverage_progress,
+                    self.coverage_cancel_button]), self.coverage_html,
             self._settings_line,
         ]
         self._redraw()
@@ -180,23 +186,44 @@ class TuningView(View):
         with self._shown_errors("starting the coverage readout"):
             self.start_coverage()
 
+    def _on_coverage_cancel_clicked(self, button):
+        with self._shown_errors("stopping the coverage readout"):
+            self.cancel_coverage()
+
+    def cancel_coverage(self):
+        """Ask a running coverage readout to stop after its current replication."""
+        if self._coverage_control is not None:
+            self._coverage_control.cancel()
+
     def start_coverage(self):
-        """Run the coverage readout of the current forest in a thread; return the thread."""
+        """Run the coverage readout of the current forest in a thread; return the thread.
+
+        Progress arrives after every replication; :meth:`cancel_coverage` (the stop
+        button) ends the run after the current one and shows the replications done.
+        """
+        from hedgerow._progress import RunControl
         from hedgerow.diagnostics import coverage_readout
 
         model, settings = self._session.penalised_model(), self._session.describe_settings()
         self.coverage_status, self.coverage_progress.bar_style = "running", "info"
-        self.coverage_progress.value, self.coverage_button.disabled = 0.5, True
+        self.coverage_progress.value, self.coverage_button.disabled = 0.0, True
+        self.coverage_cancel_button.disabled = False
         self.coverage_html.value = "<small>running&hellip;</small>"
+        session = self._session
+
+        def progressed(done, total):
+            session._on_ui(lambda: setattr(self.coverage_progress, "value", done / total))
+
+        control = self._coverage_control = RunControl(progressed)
 
         def run():
             try:
-                rep = coverage_readout(model, reps=int(self.coverage_reps), progress=False)
+                rep = coverage_readout(model, reps=int(self.coverage_reps), progress=control)
             except Exception as exc:  # shown in the view, never lost
                 log.exception("coverage readout failed")
-                self._session._on_ui(lambda exc=exc: self._coverage_failed(exc))
+                session._on_ui(lambda exc=exc: self._coverage_failed(exc))
                 return
-            self._session._on_ui(lambda: self._coverage_done(rep, settings))
+            session._on_ui(lambda: self._coverage_done(rep, settings))
 
         thread = threading.Thread(target=run, daemon=True, name="hedgerow-coverage")
         thread.start()
@@ -205,12 +232,17 @@ class TuningView(View):
 
     def _coverage_failed(self, exc):
         self.coverage_status, self.coverage_button.disabled = "failed", False
+        self.coverage_cancel_button.disabled = True
         self.coverage_progress.bar_style = "danger"
         self.error = f"coverage readout failed: {type(exc).__name__}: {exc}"
 
     def _coverage_done(self, rep, settings):
-        self.coverage_status, self.coverage_button.disabled = "done", False
-        self.coverage_progress.value, self.coverage_progress.bar_style = 1.0, "success"
+        self.coverage_button.disabled, self.coverage_cancel_button.disabled = False, True
+        if rep.reps_done < rep.reps:
+            self.coverage_status, self.coverage_progress.bar_style = "cancelled", "warning"
+        else:
+            self.coverage_status, self.coverage_progress.bar_style = "done", "success"
+        self.coverage_progress.value = rep.reps_done / rep.reps
         rows = "".join(
             f"<tr><td>{html.escape(r['method'])}</td><td>{html.escape(r['part'])}</td>"
             f"<td class='hedgerow-value'>{fmt(r['coverage'], 3)}</td>"

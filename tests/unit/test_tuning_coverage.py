@@ -129,3 +129,19 @@ def test_coverage_readout_with_truth_on_softplus_design():
     cov = cr.coverage("local linear forest")
     assert abs(cov - 0.932) <= 0.03, cr.frame
     assert cr.coverage("honest forest", "edge") < cr.coverage("local linear forest", "edge")
+
+
+def test_run_control_follows_and_stops_a_long_run():
+    """A RunControl sees every step and stops the run at the next step after cancel()."""
+    from hedgerow._progress import RunCancelled, RunControl, progress_bar
+
+    seen = []
+    control = RunControl(lambda done, total: seen.append((done, total)))
+    bar = progress_bar(4, "steps", control)
+    bar.update(1)
+    bar.update(1)
+    control.cancel()
+    with pytest.raises(RunCancelled, match="after 3 of 4"):
+        bar.update(1)
+    assert seen == [(1, 4), (2, 4), (3, 4)]
+    assert isinstance(RunCancelled(), KeyboardInterrupt)

@@ -294,3 +294,35 @@ def test_hedgerow_explore_entry_point(data):
     app = lazy(X, y, n_estimators=50, compare=False, feature="sun_hours")
     assert app.probe_view.feature == "sun_hours"
     assert app.probe_view.shown_rows == 300
+
+
+def test_coverage_readout_reports_progress_and_matches_the_function(app):
+    view = app.tuning_view
+    view.coverage_reps = 2
+    seen = []
+    view.coverage_progress.observe(lambda ch: seen.append(ch["new"]), "value")
+    view.start_coverage().join(120)
+    assert view.coverage_status == "done", view.error
+    assert seen[-1] == 1.0 and 0.5 in seen  # one step per replication
+    direct = D.coverage_readout(app.session.penalised_model(), reps=2, progress=False)
+    shown = view.coverage_html.value
+    from hedgerow.widgets._style import fmt
+
+    for cov in direct.frame["coverage"]:
+        assert f"'hedgerow-value'>{fmt(cov, 3)}<" in shown
+
+
+def test_coverage_readout_stops_when_asked(app):
+    view = app.tuning_view
+    view.coverage_reps = 50
+    started = []
+    view.coverage_progress.observe(lambda ch: started.append(ch["new"]), "value")
+    thread = view.start_coverage()
+    assert not view.coverage_cancel_button.disabled
+    view._on_coverage_cancel_clicked(view.coverage_cancel_button)
+    thread.join(120)
+    assert not thread.is_alive()
+    assert view.coverage_status == "cancelled", view.error
+    assert view.coverage_cancel_button.disabled and not view.coverage_button.disabled
+    assert "of 50 replications" in view.coverage_html.value
+    assert 0.0 < view.coverage_progress.value < 1.0
