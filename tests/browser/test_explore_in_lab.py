@@ -242,3 +242,34 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
     except BaseException:
         _save_failure(page, "explore")
         raise
+
+
+def test_every_tab_draws_its_figures_without_errors(lab, page):
+    """Runs after the drag test on the same page: each view's figures are on screen."""
+    try:
+        rec = _wait_until(lambda: _read_record(lab["record"]), 10, "the kernel record")
+        for tab in ("neighbour weights", "edges", "verdict", "tuning", "probe"):
+            page.locator(".lm-TabBar-tabLabel", has_text=tab).first.click()
+            # a visible bqplot figure (or, for the verdict, its conclusion) with real size
+            shown = page.locator(".hedgerow-explorer .bqplot:visible, "
+                                 ".hedgerow-explorer .hedgerow-verdict-conclusion:visible")
+            _wait_until(lambda: shown.count() > 0, 20, f"the {tab} view")
+            box = shown.first.bounding_box()
+            assert box and box["width"] > 100 and box["height"] > 20, (tab, box)
+            if tab != "verdict":
+                # each figure drew marks: lines or points
+                marks = page.locator(".hedgerow-explorer .bqplot:visible "
+                                     "path.line, .hedgerow-explorer .bqplot:visible path.dot")
+                _wait_until(lambda: marks.count() > 0, 20, f"marks in the {tab} view")
+            errors = page.locator(".hedgerow-explorer .hedgerow-error:visible")
+            assert all(not e.inner_text().strip() for e in errors.all()), tab
+            page.screenshot(path=str(ARTIFACTS / f"explore-tab-{tab.replace(' ', '-')}.png"))
+        page.locator(".lm-TabBar-tabLabel", has_text="verdict").first.click()
+        conclusion = page.locator(".hedgerow-verdict-conclusion:visible").first
+        assert rec["verdict"][:60] in conclusion.inner_text()
+        page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
+        page.locator(".hedgerow-explorer").first.screenshot(
+            path=str(ARTIFACTS / "explorer.png"))
+    except BaseException:
+        _save_failure(page, "explore-tabs")
+        raise
