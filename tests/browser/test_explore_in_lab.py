@@ -273,3 +273,36 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
     except BaseException:
         _save_failure(page, "explore-tabs")
         raise
+
+
+@pytest.mark.skipif(importlib.util.find_spec("notebook") is None,
+                    reason="Notebook 7 (the 'notebook' package) is not installed")
+def test_the_explorer_renders_in_notebook_7(lab, page):
+    """The same notebook opened in the Notebook 7 interface draws the explorer."""
+    pg = page.context.new_page()
+    try:
+        pg.goto(f"{lab['url']}/notebooks/{NOTEBOOK.name}?token={lab['token']}",
+                timeout=60_000)
+        readout = pg.locator(".hedgerow-probe-readout")
+        # Run All can be lost while the kernel is still starting: retry a few times
+        for _ in range(6):
+            pg.locator(".lm-MenuBar-itemLabel", has_text="Run").first.click()
+            pg.locator(".lm-Menu-itemLabel", has_text="Run All Cells").first.click()
+            try:
+                readout.wait_for(state="visible", timeout=20_000)
+                break
+            except Exception:  # noqa: BLE001 - playwright's timeout; try again
+                continue
+        _wait_until(lambda: "±" in readout.inner_text(), 30, "the probe readout")
+        rec = _wait_until(lambda: _read_record(lab["record"]), 10, "the kernel record")
+        text = readout.inner_text()
+        for name, row in rec["readout"].items():
+            assert f"{row['prediction']:.4g}" in text, (name, text)
+        assert pg.locator(".hedgerow-probe-figure path.dot").count() > 10
+        pg.screenshot(path=str(ARTIFACTS / "explore-notebook7.png"))
+    except BaseException:
+        pg.console_lines = []
+        _save_failure(pg, "explore-notebook7")
+        raise
+    finally:
+        pg.close()
