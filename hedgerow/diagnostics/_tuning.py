@@ -65,53 +65,109 @@ def _check_grid(name, values, low, high, closed_low):
     return arr
 
 
+def _fit_rate(X, y, rate, random_state, n_jobs, forest_params):
+    """Return (the forest of one subsample rate, seconds spent fitting it)."""
+    from hedgerow.estimators import LocalLinearForestRegressor
+
+    t = time.perf_counter()
+    model = LocalLinearForestRegressor(
+        subsample_rate=float(rate), random_state=random_state, n_jobs=n_jobs, **forest_params,
+    ).fit(X, y)
+    return model, time.perf_counter() - t
+
+
+def _cell(model, rate, lam, level) -> dict:
+    """Return one row of the surface: out-of-bag RMSE and mean width at penalty ``lam``."""
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        # rows without out-of-bag trees are counted in n_rows instead
+        warnings.simplefilter("ignore", RuntimeWarning)
+        try:
+            mean, std = model.oob_predict(return_std=True, ridge_penalty=lam)
+            lo, hi = normal_interval(mean, std, level)
+            width = float(np.nanmean(hi - lo))
+        except ValueError:  # no little bags at this rate: no intervals
+            mean = model.oob_predict(ridge_penalty=lam)
+            width = np.nan
+    ok = np.isfinite(mean)
+    rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
+    return {"subsample_rate": float(rate), "ridge_penalty": float(lam), "oob_rmse": rmse,
+            "mean_width": width, "n_rows": int(ok.sum())}
+
+
+def _rate_task(task, X, y):
+    """Return (cells, refit seconds) of one subsample rate: the unit of distributed work."""
+    rate, lams, level, random_state, n_jobs, forest_params = task
+    model, refit = _fit_rate(X, y, rate, random_state, n_jobs, forest_params)
+    return [_cell(model, rate, lam, level) for lam in lams], refit
+
+
 def tuning_surface(X, y, subsample_rates, ridge_penalties, *, level=0.95, progress=True,
-                   random_state=0, n_jobs=None, **forest_params) -> TuningSurface:
+                   random_state=0, n_jobs=None, client=None, **forest_params) -> TuningSurface:
     """Return the ``TuningSurface`` of a local linear forest over two axes.
 
     Each subsample rate grows one forest (``LocalLinearForestRegressor(**forest_params)``
     with that ``subsample_rate``); every ridge penalty is then solved from that forest's
     cached out-of-bag moments, without refitting. A ``KeyboardInterrupt`` (Ctrl-C, kernel
     interrupt) stops the run and returns the cells completed so far (``complete=False``).
+
+    With a ``dask.distributed.Client`` as ``client``, each subsample rate is one task on
+    its workers (the data are sent once; the costliest rates, the largest, go first) and
+    the surface is the same as without it; an interruption cancels the tasks not finished.
+    ``refit_seconds`` then adds up the workers' fitting time.
     """
-    from hedgerow.estimators import LocalLinearForestRegressor
+    from hedgerow._distributed import check_client
 
     rates = _check_grid("subsample_rates", subsample_rates, 0.0, 1.0, closed_low=False)
     lams = _check_grid("ridge_penalties", ridge_penalties, 0.0, np.inf, closed_low=True)
+    client = check_client(client)
     t0 = time.perf_counter()
-    refit = 0.0
-    rows = []
+    refit = [0.0]  # a list, so that the cluster path's callback adds to it
+    by_rate = {}
     complete = True
     bar = progress_bar(rates.size * lams.size, "tuning surface", progress)
     try:
-        for rate in rates:
-            t = time.perf_counter()
-            model = LocalLinearForestRegressor(
-                subsample_rate=float(rate), random_state=random_state, n_jobs=n_jobs,
-                **forest_params,
-            ).fit(X, y)
-            refit += time.perf_counter() - t
-            for lam in lams:
-                with np.errstate(invalid="ignore"), warnings.catch_warnings():
-                    # rows without out-of-bag trees are counted in n_rows instead
-                    warnings.simplefilter("ignore", RuntimeWarning)
-                    try:
-                        mean, std = model.oob_predict(return_std=True, ridge_penalty=lam)
-                        lo, hi = normal_interval(mean, std, level)
-                        width = float(np.nanmean(hi - lo))
-                    except ValueError:  # no little bags at this rate: no intervals
-                        mean = model.oob_predict(ridge_penalty=lam)
-                        width = np.nan
-                ok = np.isfinite(mean)
-                rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
-                rows.append({"subsample_rate": float(rate), "ridge_penalty": float(lam),
-                             "oob_rmse": rmse, "mean_width": width, "n_rows": int(ok.sum())})
-                bar.update(1)
+        if client is None:
+            for i, rate in enumerate(rates):
+                model, seconds = _fit_rate(X, y, rate, random_state, n_jobs, forest_params)
+                refit[0] += seconds
+                by_rate[i] = []
+                for lam in lams:
+                    by_rate[i].append(_cell(model, rate, lam, level))
+                    bar.update(1)
+        else:
+            _surface_on_cluster(client, X, y, rates, lams, level, random_state, n_jobs,
+                                forest_params, by_rate, refit, bar)
     except KeyboardInterrupt:
         complete = False
     finally:
         bar.close()
+    # cells in grid order whatever order the rates finished in
+    rows = [row for i in sorted(by_rate) for row in by_rate[i]]
     frame = pd.DataFrame(rows, columns=["subsample_rate", "ridge_penalty", "oob_rmse",
                                         "mean_width", "n_rows"])
-    return TuningSurface(frame=frame, complete=complete, refit_seconds=refit,
+    return TuningSurface(frame=frame, complete=complete, refit_seconds=refit[0],
                          total_seconds=time.perf_counter() - t0, level=level)
+
+
+def _surface_on_cluster(client, X, y, rates, lams, level, random_state, n_jobs,
+                        forest_params, by_rate, refit, bar) -> None:
+    """Fill ``by_rate`` from one task per subsample rate, adding fit times to ``refit``."""
+    from hedgerow._distributed import run_tasks
+    from hedgerow._validation import check_fit_data
+    from hedgerow.estimators import LocalLinearForestRegressor
+
+    # bad data fail here, as in the local path, rather than once per task on the workers
+    check_fit_data(LocalLinearForestRegressor(), X, y)
+
+    def finished(i, result):
+        cells, seconds = result
+        by_rate[i] = cells
+        refit[0] += seconds
+        bar.update(len(cells))
+
+    tasks = [(float(rate), lams, level, random_state, n_jobs, forest_params) for rate in rates]
+    # a tree's cost grows with the rows it draws: the largest rates first, so that the
+    # last task to start is a cheap one and workers finish together (longest first)
+    rank = np.argsort(np.argsort(rates, kind="stable"), kind="stable")
+    run_tasks(client, _rate_task, tasks, shared=(X, y), what="subsample rate",
+              priorities=rank, on_result=finished)

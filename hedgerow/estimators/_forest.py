@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 import math
 import warnings
 from numbers import Integral, Real
@@ -14,8 +15,10 @@ from sklearn.utils._param_validation import Interval, RealNotInt, StrOptions
 from sklearn.utils.validation import check_is_fitted
 
 from hedgerow._cache import array_key, lru_lookup
+from hedgerow._distributed import check_client, is_dask_collection, lazy_predict
 from hedgerow._validation import (
     check_fit_data,
+    check_level,
     check_predict_data,
     preserve_fitted_state,
     validate_params,
@@ -114,7 +117,8 @@ class _ForestBase(RegressorMixin, BaseEstimator):
     def _n_threads(self) -> int:
         return max(1, effective_n_jobs(self.n_jobs))
 
-    def _grow(self, X, y, *, rule=RULE_MEAN, Z=None, split_penalty=0.0, progress=None):
+    def _grow(self, X, y, *, rule=RULE_MEAN, Z=None, split_penalty=0.0, progress=None,
+              client=None):
         """Validate, then return (forest, trees_per_bag, max_features, subsample size)."""
         n, d = X.shape
         l, mtry, s = self._check_forest_params(n, d)
@@ -123,8 +127,14 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         forest = grow_forest(
             X, y, plan, min_samples_leaf=self.min_samples_leaf, max_features=mtry,
             max_depth=self.max_depth, rule=rule, Z=Z, ridge_penalty=split_penalty,
-            n_jobs=self._n_threads(), progress=progress,
+            n_jobs=self._n_threads(), progress=progress, client=client,
         )
+        n_trees = forest.node_start.shape[0] - 1
+        if n_trees != self.n_estimators:  # never keep a silently smaller forest
+            raise RuntimeError(
+                f"Growing the forest gave {n_trees} trees instead of "
+                f"n_estimators={self.n_estimators}; the estimator is left unchanged."
+            )
         return forest, l, mtry, s
 
     def _set_forest_state(self, X, y, forest, l, mtry, s):
@@ -242,9 +252,43 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         return self._predict_from_leaves(self._leaves(X), None, return_std)
 
     def predict_interval(self, X, level=0.95):
-        """Return ``(lower, upper)`` pointwise normal confidence intervals at ``level``."""
+        """Return ``(lower, upper)`` pointwise normal confidence intervals at ``level``.
+
+        For a dask array or DataFrame ``X``, two lazy dask arrays or Series.
+        """
+        if is_dask_collection(X):
+            check_level(level)
+            self._check_lazy(True)
+            return lazy_predict(self, X, "predict_interval", ("lower", "upper"), level=level)
         mean, std = self.predict(X, return_std=True)
         return normal_interval(mean, std, level)
+
+    # -- lazy (dask) predictions ------------------------------------------------------------
+    #: entries of ``_fit_cache`` that depend on the query rows (LRU caches); the others
+    #: depend on the fit only and are shared by every block of a lazy prediction
+    _QUERY_CACHES = ("leaves",)
+
+    def _check_lazy(self, with_std: bool):
+        """Raise now, not at compute time, what a lazy prediction would raise per block."""
+        check_is_fitted(self)
+        if with_std:
+            self._require_bags()
+
+    def _prime_fit_caches(self, with_std: bool):
+        """Compute the fit-scoped pieces every prediction needs (none for local averages)."""
+
+    def _block_view(self, with_std: bool):
+        """Return a shallow copy for one block of a lazy prediction.
+
+        It shares the fit-scoped caches (computed once per worker copy of the model) but
+        keeps its own query caches, so that concurrent blocks neither hold each other's
+        leaf matrices in memory nor race on one LRU.
+        """
+        self._prime_fit_caches(with_std)
+        view = copy.copy(self)
+        view._fit_cache = {k: v for k, v in self._fit_cache.items()
+                           if k not in self._QUERY_CACHES}
+        return view
 
     def __copy__(self):
         # a shallow copy shares the fit-scoped caches (pickling drops them instead)
@@ -318,20 +362,42 @@ class HonestForestRegressor(_ForestBase):
         self.random_state = random_state
         self.n_jobs = n_jobs
 
-    def fit(self, X, y, *, progress=None):
+    def fit(self, X, y, *, progress=None, client=None):
         """Grow the forest on ``(X, y)`` and return ``self``.
 
-        ``progress``, if given, is called with the number of trees finished so far.
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+        progress : callable, optional
+            Called with the number of trees finished so far.
+        client : dask.distributed.Client, optional
+            Grow chunks of trees on its workers (the data are sent once); the forest is
+            the same as without it. A chunk the cluster loses for good raises a
+            ``RuntimeError`` and leaves an earlier fit in place.
+
+        Returns
+        -------
+        self
         """
         with preserve_fitted_state(self):
             validate_params(self)
+            client = check_client(client)
             X, y = check_fit_data(self, X, y)
-            forest, l, mtry, s = self._grow(X, y, progress=progress)
+            forest, l, mtry, s = self._grow(X, y, progress=progress, client=client)
         self._set_forest_state(X, y, forest, l, mtry, s)
         return self
 
     def predict(self, X, return_std=False):
-        """Return forest predictions (and their little-bags standard errors)."""
+        """Return forest predictions (and their little-bags standard errors).
+
+        For a dask array or DataFrame ``X``, the same as lazy dask arrays or Series
+        (computed block by block on the dask scheduler in use).
+        """
+        if is_dask_collection(X):
+            self._check_lazy(return_std)
+            names = ("mean", "std") if return_std else ("mean",)
+            return lazy_predict(self, X, "predict", names, return_std=bool(return_std))
         return self.local_average(X, return_std=return_std)
 
     def predict_variance(self, X):

@@ -16,6 +16,7 @@ from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted
 
 from hedgerow._cache import array_key, lru_lookup
+from hedgerow._distributed import is_dask_collection, lazy_predict
 from hedgerow._validation import (
     as_float_array_1d,
     check_fit_data,
@@ -169,6 +170,24 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         state["_variance_cache"] = {}  # derived from the fit; rebuilt on demand
         return state
 
+    def _block_view(self, with_std: bool):
+        """Return a shallow copy for one block of a lazy prediction.
+
+        The fit-scoped pieces (training moment features, smoothed squared residuals) are
+        computed once on this object and shared; the per-query local fits (an m × n
+        weight matrix each) stay with the block, so concurrent blocks do not pile up in
+        one LRU.
+        """
+        cache = self._variance_cache
+        if self._degree == 1 and "features" not in cache:
+            cache["features"] = moment_features(self.X_train_, self.y_train_, self.scale_)
+        if with_std:
+            self._training_variance()
+        view = type(self).__new__(type(self))
+        view.__dict__.update(self.__dict__)
+        view._variance_cache = {k: v for k, v in cache.items() if k != "local fits"}
+        return view
+
     def loo_predict(self):
         """Return leave-one-out predictions of the training rows (hat-matrix diagonal).
 
@@ -208,7 +227,8 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
 
         Parameters
         ----------
-        X : array-like of shape (m, n_features)
+        X : array-like of shape (m, n_features), dask array or dask DataFrame
+            For a dask collection the outputs are lazy dask arrays or Series.
         return_std : bool, default=False
             Also return the standard error of each estimate.
 
@@ -222,6 +242,10 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             equivalent kernel and ``sigma^2(x_i)`` the squared residuals smoothed with the
             same weights (Fan & Gijbels 1996, ch. 4). It ignores smoothing bias.
         """
+        if is_dask_collection(X):
+            check_is_fitted(self)
+            names = ("mean", "std") if return_std else ("mean",)
+            return lazy_predict(self, X, "predict", names, return_std=bool(return_std))
         X = check_predict_data(self, X)
         W, fit = self._local_fit(X)
         if not return_std:
@@ -242,15 +266,19 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
 
         Parameters
         ----------
-        X : array-like of shape (m, n_features)
+        X : array-like of shape (m, n_features), dask array or dask DataFrame
         level : float, default=0.95
             Nominal coverage, in (0, 1).
 
         Returns
         -------
         lower, upper : ndarray of shape (m,)
+            Lazy dask arrays or Series for a dask collection ``X``.
         """
         level = check_level(level)
+        if is_dask_collection(X):
+            check_is_fitted(self)
+            return lazy_predict(self, X, "predict_interval", ("lower", "upper"), level=level)
         mean, std = self.predict(X, return_std=True)
         z = norm.ppf(0.5 + 0.5 * level)
         return mean - z * std, mean + z * std

@@ -11,6 +11,7 @@ from sklearn.utils._param_validation import StrOptions
 from sklearn.utils.validation import check_is_fitted
 
 from hedgerow._cache import array_key, lru_lookup
+from hedgerow._distributed import check_client, is_dask_collection, lazy_predict
 from hedgerow._validation import (
     check_fit_data,
     check_predict_data,
@@ -221,10 +222,28 @@ class LocalLinearForestRegressor(_ForestBase):
                 )
         return np.array(sorted(set(out)), dtype=np.int64)
 
-    def fit(self, X, y, *, progress=None):
-        """Grow the forest, choose the correction columns and penalty; return ``self``."""
+    def fit(self, X, y, *, progress=None, client=None):
+        """Grow the forest, choose the correction columns and penalty; return ``self``.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+        progress : callable, optional
+            Called with the number of trees finished so far.
+        client : dask.distributed.Client, optional
+            Grow chunks of trees on its workers (the data are sent once); screening and
+            the penalty choice stay here. The fit is the same as without it; a chunk the
+            cluster loses for good raises a ``RuntimeError`` and leaves an earlier fit in
+            place.
+
+        Returns
+        -------
+        self
+        """
         with preserve_fitted_state(self):
             validate_params(self)
+            client = check_client(client)
             _check_finite_penalty(self.ridge_penalty)
             if not isinstance(self.ridge_penalty, str) and self.ridge_penalty < 0:
                 raise ValueError(
@@ -240,7 +259,8 @@ class LocalLinearForestRegressor(_ForestBase):
             split_penalty = SPLIT_PENALTY_AUTO if auto else float(self.ridge_penalty)
             rule = RULE_RIDGE_RESIDUAL if self.split_rule == "ridge_residual" else RULE_MEAN
             forest, l, mtry, s = self._grow(
-                X, y, rule=rule, Z=Z, split_penalty=split_penalty, progress=progress
+                X, y, rule=rule, Z=Z, split_penalty=split_penalty, progress=progress,
+                client=client,
             )
         self._set_forest_state(X, y, forest, l, mtry, s)
         self.correction_features_ = cols
@@ -257,6 +277,11 @@ class LocalLinearForestRegressor(_ForestBase):
         return self
 
     # -- cached pieces -------------------------------------------------------------------
+    _QUERY_CACHES = ("leaves", "query state")
+
+    def _prime_fit_caches(self, with_std: bool):
+        self._leaf_features()
+
     def _query_state(self, X):
         """Return (leaves, None, moments) of the queries X, cached by the bytes of X."""
         def compute():
@@ -342,8 +367,15 @@ class LocalLinearForestRegressor(_ForestBase):
         """Return predictions (and little-bags standard errors) at the rows of X.
 
         ``ridge_penalty`` overrides the fitted penalty for this call; the weighted moments
-        of X are cached, so another penalty re-solves only the small local systems.
+        of X are cached, so another penalty re-solves only the small local systems. For a
+        dask array or DataFrame ``X``, the same as lazy dask arrays or Series.
         """
+        if is_dask_collection(X):
+            self._check_lazy(return_std)
+            self._penalty(ridge_penalty)
+            names = ("mean", "std") if return_std else ("mean",)
+            return lazy_predict(self, X, "predict", names, return_std=bool(return_std),
+                                ridge_penalty=ridge_penalty)
         X = check_predict_data(self, X)
         lam = self._penalty(ridge_penalty)
         if return_std:

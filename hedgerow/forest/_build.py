@@ -21,7 +21,8 @@ import numpy as np
 from hedgerow.forest._grow import RULE_MEAN, grow_tree, presort
 from hedgerow.forest._storage import ForestArrays
 
-__all__ = ["TreePlan", "plan_samples", "grow_forest", "subsample_size"]
+__all__ = ["TreePlan", "check_chunks", "grow_chunk", "grow_forest", "plan_samples",
+           "subsample_size"]
 
 
 @dataclass(frozen=True)
@@ -79,17 +80,25 @@ def plan_samples(
     return TreePlan(rows, grows, fills, seeds, trees_per_bag)
 
 
-def _grow_range(args):
-    (a, b, XT, y, Z, order, plan, msl, mtry, max_depth, rule, lam) = args
-    out = []
-    for t in range(a, b):
-        out.append(
-            grow_tree(
-                XT, y, Z, order, plan.sample_rows[t], plan.grow_masks[t], plan.fill_masks[t],
-                msl, mtry, max_depth, rule, lam, int(plan.seeds[t]),
-            )
-        )
-    return out
+def _plan_part(plan: TreePlan, a: int, b: int) -> tuple:
+    """Return the slice of ``plan`` for trees ``a:b`` (what one chunk of growth needs)."""
+    return (plan.sample_rows[a:b], plan.grow_masks[a:b], plan.fill_masks[a:b],
+            plan.seeds[a:b])
+
+
+def grow_chunk(task, XT, y, Z, order) -> list:
+    """Return the ``grow_tree`` outputs of one chunk of trees, in plan order.
+
+    ``task`` is ``(plan part, settings)`` with the plan part from ``_plan_part`` and
+    settings ``(min_samples_leaf, max_features, max_depth, rule, ridge_penalty)``. A
+    pure function of its inputs: the same chunk gives the same trees on any worker.
+    """
+    (rows, grows, fills, seeds), (msl, mtry, max_depth, rule, lam) = task
+    return [
+        grow_tree(XT, y, Z, order, rows[t], grows[t], fills[t], msl, mtry, max_depth, rule,
+                  lam, int(seeds[t]))
+        for t in range(len(rows))
+    ]
 
 
 def grow_forest(
@@ -105,12 +114,17 @@ def grow_forest(
     ridge_penalty: float = 0.0,
     n_jobs: int = 1,
     progress=None,
-    chunk: int = 16,
+    chunk: int | None = None,
+    client=None,
 ) -> ForestArrays:
     """Return the forest grown from ``plan``, trees in parallel threads (numba nogil).
 
-    ``progress`` is called with the number of trees finished so far. A
-    ``KeyboardInterrupt`` cancels the trees not yet started and propagates.
+    With a ``dask.distributed.Client`` as ``client`` the chunks of trees are grown on its
+    workers instead (``hedgerow._distributed.run_tasks``), with the same trees. ``chunk``
+    is the number of trees per unit of work (default 16 locally; on a cluster about four
+    units per worker thread, at most 64 trees each). ``progress`` is called with the number
+    of trees finished so far. A ``KeyboardInterrupt`` cancels the trees not yet started and
+    propagates; a chunk lost by the cluster raises a ``RuntimeError``.
     """
     X = np.ascontiguousarray(X, dtype=np.float64)
     y = np.ascontiguousarray(y, dtype=np.float64)
@@ -123,23 +137,41 @@ def grow_forest(
     XT = np.ascontiguousarray(X.T)  # each column contiguous for the per-tree sweeps
     B = len(plan.sample_rows)
     md = -1 if max_depth is None else int(max_depth)
+    settings = (int(min_samples_leaf), int(max_features), md, int(rule), float(ridge_penalty))
+    if chunk is None:
+        if client is None:
+            chunk = 16
+        else:
+            from hedgerow._distributed import total_threads
+
+            # a few units per thread even out uneven trees without drowning in overhead
+            chunk = max(1, min(64, -(-B // (4 * total_threads(client)))))
     ranges = [(a, min(B, a + chunk)) for a in range(0, B, chunk)]
-    args = [
-        (a, b, XT, y, Z, order, plan, int(min_samples_leaf), int(max_features), md, int(rule),
-         float(ridge_penalty))
-        for a, b in ranges
-    ]
+    tasks = [(_plan_part(plan, a, b), settings) for a, b in ranges]
     results = [None] * len(ranges)
     done_trees = 0
-    if n_jobs <= 1:
-        for i, arg in enumerate(args):
-            results[i] = _grow_range(arg)
-            done_trees += arg[1] - arg[0]
+    if client is not None:
+        from hedgerow._distributed import run_tasks
+
+        def finished(i, part):
+            nonlocal done_trees
+            done_trees += len(part)
+            if progress is not None:
+                progress(done_trees)
+
+        parts = run_tasks(client, grow_chunk, tasks, shared=(XT, y, Z, order),
+                          what="chunk of trees", on_result=finished)
+        results = [parts[i] for i in range(len(ranges))]
+    elif n_jobs <= 1:
+        for i, task in enumerate(tasks):
+            results[i] = grow_chunk(task, XT, y, Z, order)
+            done_trees += len(results[i])
             if progress is not None:
                 progress(done_trees)
     else:
         pool = ThreadPoolExecutor(max_workers=n_jobs)
-        futures = {pool.submit(_grow_range, arg): i for i, arg in enumerate(args)}
+        futures = {pool.submit(grow_chunk, task, XT, y, Z, order): i
+                   for i, task in enumerate(tasks)}
         try:
             pending = set(futures)
             while pending:
@@ -156,8 +188,20 @@ def grow_forest(
             raise
         finally:
             pool.shutdown(wait=True, cancel_futures=True)
+    check_chunks(results, ranges)
     trees = [tree for part in results for tree in part]
     return assemble(trees, plan, X.shape[0])
+
+
+def check_chunks(results: list, ranges: list) -> None:
+    """Raise a ``RuntimeError`` unless every chunk holds exactly its planned trees."""
+    for part, (a, b) in zip(results, ranges, strict=True):
+        got = None if part is None else len(part)
+        if got != b - a:
+            raise RuntimeError(
+                f"Growing the forest returned {got} trees for trees {a}..{b - 1} "
+                f"(expected {b - a}); refusing to assemble an incomplete forest."
+            )
 
 
 def assemble(trees: list, plan: TreePlan, n_train: int) -> ForestArrays:
