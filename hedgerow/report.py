@@ -36,15 +36,15 @@ from hedgerow import diagnostics as D
 from hedgerow._progress import progress_bar
 from hedgerow.diagnostics._report import check_probe_point
 
-__all__ = ["DataSummary", "Report", "Settings", "build_report", "save_html", "MIN_ROWS",
-           "SECTIONS", "REPORT_COLOURS"]
+__all__ = ["DataSummary", "Report", "Settings", "build_report", "save_html", "write_html",
+           "MIN_ROWS", "SECTIONS", "REPORT_COLOURS"]
 
 #: Fewest rows a report is built on: below this, held-out comparisons and edge bands
 #: hold a handful of rows each and say nothing.
 MIN_ROWS = 20
 
 #: Section ids of the page, in order (``coverage`` only when a readout was run).
-SECTIONS = ("data", "settings", "verdict", "probe", "slice", "edges", "neighbour-weights",
+SECTIONS = ("verdict", "data", "settings", "probe", "slice", "edges", "neighbour-weights",
             "out-of-bag", "coverage", "cautions")
 
 #: Method colours: the same values as the interactive views use (kept here so that the
@@ -628,7 +628,7 @@ def _weights_figure(Figure, pr, weights):
     a.set_xlabel("distance from the probe (training s.d.)")
     a.set_ylabel("weight")
     a.set_title("who the probe listens to", loc="left", fontsize=10)
-    a.legend(fontsize=7.5, loc="upper right")
+    a.legend(fontsize=7.5, loc="best")
     b.set_xscale("log")
     b.set_ylim(0.0, 1.02)
     b.set_xlabel("rows, heaviest first")
@@ -656,6 +656,7 @@ table{border-collapse:collapse;margin:.4rem 0 .8rem;font-size:.88rem;
  font-variant-numeric:tabular-nums}
 th,td{padding:.25rem .6rem;border-bottom:1px solid var(--rule);text-align:right;
  vertical-align:top}
+.hr-grid{display:flex;flex-wrap:wrap;gap:0 2.2rem;align-items:flex-start}
 th{background:var(--band);font-weight:600}
 th:first-child,td:first-child{text-align:left}
 td.hr-text{text-align:left}
@@ -747,30 +748,35 @@ def _data_html(r: Report) -> str:
           "value: a report built on the same table shows the same fingerprint.</p>")
 
 
+def _block(heading, table) -> str:
+    return f"<div><h3>{_e(heading)}</h3>{table}</div>"
+
+
 def _settings_html(r: Report) -> str:
     s = r.settings
-    out = [_kv_table([
-        ("estimator", f"<code>{_e(s.estimator)}</code>"),
-        ("seed", _e(s.seed)),
-        ("sliced column", f"<code>{_e(s.feature)}</code>"),
-        ("hedgerow version", _e(s.version)),
-    ])]
-    out.append("<h3>Estimator parameters</h3>")
-    out.append(_table(["parameter", "value"],
-                      [[_e(k), _e(v)] for k, v in sorted(s.parameters.items())]))
-    out.append("<h3>Chosen when fitting</h3>")
-    out.append(_table(["quantity", "value"],
-                      [[_e(k), _num(v) if not isinstance(v, str) else _e(v)]
-                       for k, v in s.fitted.items()]))
+    blocks = [
+        _block("Model", _kv_table([
+            ("estimator", f"<code>{_e(s.estimator)}</code>"),
+            ("seed", _e(s.seed)),
+            ("sliced column", f"<code>{_e(s.feature)}</code>"),
+            ("hedgerow version", _e(s.version)),
+        ])),
+        _block("Estimator parameters", _table(
+            ["parameter", "value"], [[_e(k), _e(v)] for k, v in sorted(s.parameters.items())])),
+        _block("Chosen when fitting", _table(
+            ["quantity", "value"], [[_e(k), _num(v) if not isinstance(v, str) else _e(v)]
+                                    for k, v in s.fitted.items()])),
+        _block("Probe point", _table(
+            ["column", "value"], [[_e(c), _num(v)] for c, v in s.probe.items()])),
+    ]
+    out = f'<div class="hr-grid">{"".join(blocks)}</div>'
     if s.smoothers:
-        out.append("<h3>Kernel smoothers: bandwidths (column units, by cross-validation)</h3>")
         cols = list(s.probe)
-        out.append(_table(["method", *cols],
-                          [[_method_cell(m), *(_num(bw.get(c)) for c in cols)]
-                           for m, bw in s.smoothers.items()]))
-    out.append("<h3>Probe point</h3>")
-    out.append(_table(["column", "value"], [[_e(c), _num(v)] for c, v in s.probe.items()]))
-    return "".join(out)
+        out += _block("Kernel smoothers: bandwidths (column units, by cross-validation)",
+                      _table(["method", *cols],
+                             [[_method_cell(m), *(_num(bw.get(c)) for c in cols)]
+                              for m, bw in s.smoothers.items()]))
+    return out
 
 
 def _verdict_html(r: Report) -> str:

@@ -1,0 +1,231 @@
+"""The ``hedgerow`` command: batch reviews without a notebook.
+
+``hedgerow report DATA.csv --target COLUMN [--out FILE] [--features A B ...]
+[--feature COLUMN] [--seed N] [--trees N]`` reads a CSV, fits a local linear forest and
+writes the self-contained HTML report of ``hedgerow.report``. Bad input gives one line on
+stderr and exit code 2; the report is written atomically, so an earlier file survives a
+failed run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import warnings
+from pathlib import Path
+
+__all__ = ["main", "EXIT_OK", "EXIT_USAGE", "EXIT_INTERRUPTED"]
+
+EXIT_OK = 0
+EXIT_USAGE = 2  # bad input or bad arguments
+EXIT_INTERRUPTED = 130
+
+PROG = "hedgerow"
+
+
+class InputError(Exception):
+    """Bad input the user can fix; shown as one line, exit code 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line instead of usage + message
+        raise InputError(f"{message} (see '{self.prog} --help')")
+
+
+def _positive_int(text):
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a number >= 1, got {value}")
+    return value
+
+
+def _non_negative_int(text):
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {value}")
+    return value
+
+
+def _parser() -> argparse.ArgumentParser:
+    from hedgerow import __version__
+
+    parser = _Parser(prog=PROG, description="Smoothing diagnostics for forest regression.")
+    parser.add_argument("--version", action="version", version=f"hedgerow {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    rep = sub.add_parser(
+        "report", help="write a self-contained HTML report for a CSV file",
+        description="Fit a local linear forest to a CSV file and write a self-contained "
+                    "HTML report (verdict, tables, figures) that opens offline.")
+    rep.add_argument("data", metavar="DATA.csv", help="the table, one row per observation, "
+                     "with a header row")
+    rep.add_argument("--target", required=True, metavar="COLUMN",
+                     help="the column to predict")
+    rep.add_argument("--out", metavar="FILE", type=Path, default=None,
+                     help="where to write the report (default: DATA-report.html in the "
+                          "current folder)")
+    rep.add_argument("--features", nargs="+", metavar="COLUMN", default=None,
+                     help="the columns to predict from (default: every column but the "
+                          "target)")
+    rep.add_argument("--feature", metavar="COLUMN", default=None,
+                     help="the column the slice runs along (default: the forest's first "
+                          "correction column)")
+    rep.add_argument("--seed", type=_non_negative_int, default=0, metavar="N",
+                     help="random seed of the forest (default: 0)")
+    rep.add_argument("--trees", type=_positive_int, default=None, metavar="N",
+                     help="number of trees (default: the estimator's default)")
+    rep.add_argument("--title", default=None, help="page title")
+    rep.add_argument("--coverage-reps", type=_non_negative_int, default=0, metavar="N",
+                     help="replications of the coverage readout (default: 0, none; each "
+                          "refits the forest twice)")
+    rep.add_argument("--no-compare", action="store_true",
+                     help="leave out the kernel smoothers")
+    rep.add_argument("--quiet", action="store_true", help="no progress bar")
+    return parser
+
+
+def _columns_text(columns) -> str:
+    return ", ".join(repr(str(c)) for c in columns)
+
+
+def read_table(path: Path, target: str, features=None, feature=None):
+    """Return ``(X, y)`` read from the CSV at ``path``, or raise ``InputError``."""
+    import pandas as pd
+
+    from hedgerow.report import MIN_ROWS
+
+    if not path.exists():
+        raise InputError(f"data file '{path}' not found")
+    if path.is_dir():
+        raise InputError(f"data file '{path}' is a folder, not a CSV file")
+    try:
+        frame = pd.read_csv(path)
+    except pd.errors.EmptyDataError:
+        raise InputError(f"data file '{path}' is empty (expected a header row and data "
+                         f"rows)") from None
+    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InputError(f"data file '{path}' could not be read as CSV: {first}") from None
+    except OSError as exc:
+        raise InputError(f"data file '{path}' could not be read: {exc.strerror}") from None
+    frame.columns = [str(c) for c in frame.columns]
+    available = list(frame.columns)
+    chose_features = features is not None
+    dup = sorted({c for c in available if available.count(c) > 1})
+    if dup:
+        raise InputError(f"data file '{path}' has repeated column names: {_columns_text(dup)}")
+    if target not in available:
+        raise InputError(f"target column {target!r} not found in '{path}'; available "
+                         f"columns: {_columns_text(available)}")
+    if features is None:
+        features = [c for c in available if c != target]
+    else:
+        missing = [c for c in features if c not in available]
+        if missing:
+            raise InputError(f"feature column{'s' if len(missing) > 1 else ''} "
+                             f"{_columns_text(missing)} not found in '{path}'; available "
+                             f"columns: {_columns_text(available)}")
+        if target in features:
+            raise InputError(f"the target column {target!r} cannot also be a feature "
+                             f"(--features)")
+        if len(set(features)) < len(features):
+            raise InputError("--features names a column more than once")
+    if not features:
+        raise InputError(f"data file '{path}' has no column besides the target {target!r}")
+    if feature is not None and feature not in features:
+        where = "the feature columns" if feature in available else f"'{path}'"
+        raise InputError(f"--feature column {feature!r} not found in {where}; feature "
+                         f"columns: {_columns_text(features)}")
+    if frame.shape[0] == 0:
+        raise InputError(f"data file '{path}' has a header but no data rows")
+    used = [target, *features]
+    bad = [c for c in used if not pd.api.types.is_numeric_dtype(frame[c])
+           or pd.api.types.is_bool_dtype(frame[c])]
+    if bad:
+        examples = []
+        for c in bad:
+            col = frame[c].dropna()
+            if pd.api.types.is_bool_dtype(col):
+                examples.append(f"{c!r} (true/false)")
+                continue
+            num = pd.to_numeric(col, errors="coerce")
+            sample = col[num.isna()]
+            examples.append(f"{c!r} (e.g. {str(sample.iloc[0])!r})" if len(sample)
+                            else repr(c))
+        hint = ("; leave such columns out with --features"
+                if not chose_features and target not in bad else "")
+        raise InputError(f"non-numeric data in '{path}': column{'s' if len(bad) > 1 else ''} "
+                         f"{', '.join(examples)}{hint}")
+    gaps = [c for c in used if frame[c].isna().any()]
+    if gaps:
+        raise InputError(f"missing values in '{path}': column{'s' if len(gaps) > 1 else ''} "
+                         f"{_columns_text(gaps)}; fill or drop those rows first")
+    if frame.shape[0] < MIN_ROWS:
+        raise InputError(f"too few rows in '{path}': {frame.shape[0]}; a report needs at "
+                         f"least {MIN_ROWS}")
+    X = frame[features].astype("float64")
+    y = frame[target].astype("float64")
+    return X, y
+
+
+def _report(args) -> int:
+    from hedgerow.report import build_report, write_html
+
+    data = Path(args.data)
+    out = args.out if args.out is not None else Path(f"{data.stem}-report.html")
+    if out.is_dir():
+        raise InputError(f"--out '{out}' is a folder; give a file name")
+    parent = out.parent if str(out.parent) else Path(".")
+    if not parent.is_dir():
+        raise InputError(f"--out folder '{parent}' does not exist")
+    X, y = read_table(data, args.target, args.features, args.feature)
+
+    from hedgerow import LocalLinearForestRegressor
+
+    params = {"random_state": args.seed}
+    if args.trees is not None:
+        params["n_estimators"] = args.trees
+    model = LocalLinearForestRegressor(**params)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            report = build_report(X, y, model=model, feature=args.feature,
+                                  title=args.title, compare=not args.no_compare,
+                                  coverage_reps=args.coverage_reps,
+                                  progress=not args.quiet, random_state=args.seed)
+            path = write_html(report, out)
+        except (ValueError, TypeError) as exc:
+            raise InputError(str(exc).splitlines()[0]) from None
+        except OSError as exc:
+            raise InputError(f"could not write '{out}': {exc.strerror or exc}") from None
+    seen = set()
+    for w in caught:
+        text = f"{w.category.__name__}: {str(w.message).splitlines()[0]}"
+        if text not in seen:
+            seen.add(text)
+            print(f"{PROG}: warning: {text}", file=sys.stderr)
+    print(f"wrote {path}")
+    print(f"verdict: {report.verdict.conclusion}")
+    return EXIT_OK
+
+
+def main(argv=None) -> int:
+    """Run the ``hedgerow`` command with ``argv`` (default: ``sys.argv[1:]``); return the
+    exit code (0 done, 2 bad input, 130 interrupted)."""
+    try:
+        args = _parser().parse_args(argv)
+        if args.command is None:
+            _parser().print_help(sys.stderr)
+            return EXIT_USAGE
+        return _report(args)
+    except InputError as exc:
+        print(f"{PROG}: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print(f"{PROG}: interrupted; no report written", file=sys.stderr)
+        return EXIT_INTERRUPTED
