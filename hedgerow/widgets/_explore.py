@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import warnings
+
 import ipywidgets as W
 
+from hedgerow.snapshot import Snapshot
 from hedgerow.widgets._edges_view import EdgesView
 from hedgerow.widgets._probe_view import ProbeView
 from hedgerow.widgets._session import ExploreSession
@@ -35,9 +38,51 @@ class Explorer(W.Tab):
     def views(self):
         return list(self.children)
 
+    # -- view state (what a snapshot records besides the session) -------------------------
+    def _legend(self):
+        """Return {legend entry: (checkbox, mark)} of the probe view's show/hide toggles."""
+        pv = self.probe_view
+        marks = {**pv.slice_marks, "95% band": pv.band_mark, "local line": pv.line_mark}
+        out = {}
+        for row in pv._toggles.children:
+            box = row.children[-1]
+            out[box.description] = (box, marks[box.description])
+        return out
 
-def explore(X, y, *, model=None, feature=None, compare=True, refit_delay=0.5,
-            **forest_params) -> Explorer:
+    def view_state(self) -> dict:
+        """Return the column shown, the legend toggles and the active tab."""
+        tab = self.selected_index
+        return {"feature": self.probe_view.feature,
+                "shown": {name: bool(box.value) for name, (box, _) in self._legend().items()},
+                "tab": TAB_TITLES[tab] if tab is not None else None}
+
+    def apply_view_state(self, *, feature=None, shown=None, tab=None):
+        """Show ``feature`` on the probe view, set the legend toggles, open tab ``tab``.
+
+        Unknown legend entries (a snapshot from a session with other methods) are skipped
+        with a warning; an unknown column or tab is an error.
+        """
+        if tab is not None and tab not in TAB_TITLES:
+            raise ValueError(f"The 'tab' parameter must be one of {list(TAB_TITLES)}. "
+                             f"Got {tab!r} instead.")
+        if feature is not None:
+            self.probe_view.feature = feature  # validated by the view
+        legend = self._legend()
+        unknown = sorted(set(shown or {}) - set(legend))
+        if unknown:
+            warnings.warn(f"Legend entries {unknown} are not in this explorer; they were "
+                          f"left out. Known: {sorted(legend)}.", UserWarning, stacklevel=2)
+        for name, value in (shown or {}).items():
+            if name in legend:
+                box, mark = legend[name]
+                box.value = bool(value)
+                mark.visible = bool(value)  # the jslink does this once a front end is there
+        if tab is not None:
+            self.selected_index = TAB_TITLES.index(tab)
+
+
+def explore(X, y, *, model=None, feature=None, compare=True, refit_delay=0.5, snapshot=None,
+            allow_data_mismatch=False, **forest_params) -> Explorer:
     """Return an ``Explorer``: probe, neighbour weights, edges, tuning and verdict views.
 
     Parameters
@@ -49,7 +94,43 @@ def explore(X, y, *, model=None, feature=None, compare=True, refit_delay=0.5,
         column of the local line).
     compare : also fit Nadaraya-Watson and kernel local linear regression.
     refit_delay : seconds a settings change waits for the next before refitting.
+    snapshot : a ``hedgerow.snapshot.Snapshot`` or the path of a saved one. The explorer
+        then fits the saved settings with the saved seed on (X, y) and restores the
+        probe, column, ridge penalty, legend toggles, active tab and ``compare``; do not
+        pass ``model``, ``feature`` or forest settings with it.
+    allow_data_mismatch : with ``snapshot``, proceed (with a warning) when (X, y) differ
+        from the snapshot's data fingerprint instead of raising.
     """
-    session = ExploreSession(X, y, model=model, compare=compare, refit_delay=refit_delay,
-                             **forest_params)
-    return Explorer(session, feature=feature)
+    if snapshot is None:
+        session = ExploreSession(X, y, model=model, compare=compare, refit_delay=refit_delay,
+                                 **forest_params)
+        return Explorer(session, feature=feature)
+    clash = [k for k, v in (("model", model), ("feature", feature)) if v is not None]
+    clash += sorted(forest_params)
+    if clash:
+        raise ValueError(f"The 'snapshot' parameter fixes the model, its settings and the "
+                         f"view; pass none of {clash} with it. Got snapshot={snapshot!r}.")
+    snap = snapshot if isinstance(snapshot, Snapshot) else Snapshot.load(snapshot)
+    snap.check_data(X, y, allow_data_mismatch=allow_data_mismatch)
+    if snap.estimator != "LocalLinearForestRegressor":
+        raise ValueError(f"The 'snapshot' parameter must hold a LocalLinearForestRegressor "
+                         f"to open in the explorer. Got {snap.estimator} instead; use "
+                         f"snapshot.make_estimator() to refit it.")
+    params = snap.make_estimator().get_params(deep=False)
+    session = ExploreSession(X, y, compare=snap.view["compare"], refit_delay=refit_delay,
+                             **params)
+    view = snap.view
+    probe = view["probe"]
+    if probe is not None and len(probe) != session.X_train.shape[1]:
+        warnings.warn("The snapshot's probe has another number of columns than X; the probe "
+                      "starts at the column medians.", UserWarning, stacklevel=2)
+        probe = None
+    session.restore_view(probe=probe, ridge_penalty=view["ridge_penalty"])
+    feature = view["feature"]
+    if feature is not None and feature not in session.feature_names:
+        warnings.warn(f"The snapshot's column {feature!r} is not in X; showing the default "
+                      f"column.", UserWarning, stacklevel=2)
+        feature = None
+    explorer = Explorer(session, feature=feature)
+    explorer.apply_view_state(shown=view["shown"], tab=view["tab"])
+    return explorer

@@ -208,6 +208,44 @@ class ExploreSession(t.HasTraits):
                             lambda: D.weight_profile(self.probe_report(), self.X_train,
                                                      method))
 
+    # -- snapshots ---------------------------------------------------------------------
+    def snapshot_state(self) -> dict:
+        """Return what ``hedgerow.snapshot.Snapshot.capture`` records of this session.
+
+        The current forest and the data it was fitted on, the probe, the ridge penalty the
+        views show, whether smoothers are compared, and the headline numbers the views
+        show (from the cached diagnostics: nothing is recomputed that a view has drawn).
+        """
+        summary = self.oob_summary()
+        report = self.probe_report()
+        return {
+            "model": self._model, "X": self._X, "y": self._y,
+            "probe": [float(v) for v in self.probe_x],
+            "ridge_penalty": float(self.ridge_penalty),
+            "compare": bool(self._smoothers),
+            "headline": {
+                "oob_rmse": summary["oob_rmse"], "mean_interval_width": summary["mean_width"],
+                "interval_level": summary["level"],
+                "verdict": self.verdict_report().conclusion,
+                "probe_prediction": report.method("local linear forest").prediction,
+            },
+        }
+
+    def restore_view(self, *, probe=None, ridge_penalty=None):
+        """Put the probe and the ridge penalty where a snapshot had them (None: leave)."""
+        if probe is not None:
+            p = [float(v) for v in probe]
+            if len(p) != self.X_train.shape[1]:
+                raise ValueError(f"The 'probe' parameter must hold {self.X_train.shape[1]} "
+                                 f"values (one per column). Got {len(p)} instead.")
+            self.probe_x = p
+        if ridge_penalty is not None:
+            lam = float(ridge_penalty)
+            if not np.isfinite(lam) or lam < 0:
+                raise ValueError(f"The 'ridge_penalty' parameter must be a finite float >= 0. "
+                                 f"Got {ridge_penalty!r} instead.")
+            self.ridge_penalty = lam
+
     # -- settings ----------------------------------------------------------------------
     @t.observe("ridge_penalty")
     def _ridge_changed(self, change):
