@@ -299,16 +299,19 @@ def grow_tree(
                 if gv[ge - 1] <= gv[gs] + _FEATURE_THRESHOLD:
                     continue
                 n_visited += 1
-                q = fs  # fill rows with value <= threshold: [fs, q)
-                # candidate between grow positions p-1 and p: left = [gs, p)
+                # The fill-role constraint is a window of thresholds: at least msl fill
+                # rows <= thr needs thr >= fv[fs + msl - 1]; at least msl above needs
+                # thr < fv[fe - msl]. Thresholds rise with p, so two comparisons replace
+                # a running count; the winner's fill count is found after the scan.
+                lo_f = fv[fs + msl - 1]
+                hi_f = fv[fe - msl]
+                # candidate between grow positions p-1 and p: left = [gs, p); both
+                # sides keep at least msl grow rows
                 sum_l = 0.0
-                for p in range(gs + 1, ge):
+                for p in range(gs, gs + msl - 1):
+                    sum_l += resp[go[p]]
+                for p in range(gs + msl, ge - msl + 1):
                     sum_l += resp[go[p - 1]]
-                    gl = p - gs
-                    if gl < msl:
-                        continue
-                    if ge - p < msl:
-                        break
                     u = gv[p - 1]
                     v = gv[p]
                     if v <= u + _FEATURE_THRESHOLD:
@@ -316,14 +319,11 @@ def grow_tree(
                     thr = u / 2.0 + v / 2.0
                     if thr == v or thr == np.inf or thr == -np.inf:
                         thr = u
-                    while q < fe and fv[q] <= thr:
-                        q += 1
-                    fl = q - fs
-                    if fl < msl:
+                    if thr < lo_f:
                         continue
-                    if fe - q < msl:
-                        # fill counts on the left only grow from here on
+                    if thr >= hi_f:
                         break
+                    gl = p - gs
                     gr = g_cnt - gl
                     sum_r = tot - sum_l
                     proxy = sum_l * sum_l / gl + sum_r * sum_r / gr
@@ -332,7 +332,12 @@ def grow_tree(
                         best_feat = f
                         best_thr = thr
                         best_gl = gl
-                        best_fl = fl
+        if best_feat >= 0:
+            fv = f_vals[best_feat]
+            q = fs
+            while q < fe and fv[q] <= best_thr:
+                q += 1
+            best_fl = q - fs
         if best_feat < 0:
             leaf_id = n_leaves
             n_leaves += 1
