@@ -37,6 +37,7 @@ from hedgerow._progress import progress_bar
 from hedgerow.diagnostics._report import check_probe_point
 
 __all__ = ["DataSummary", "Report", "Settings", "build_report", "save_html", "write_html",
+           "data_fingerprint",
            "MIN_ROWS", "SECTIONS", "REPORT_COLOURS"]
 
 #: Fewest rows a report is built on: below this, held-out comparisons and edge bands
@@ -163,7 +164,8 @@ def _check_flag(name, value):
     return bool(value)
 
 
-def _check_data(X, y):
+def _as_arrays(X, y):
+    """Return ``(X, y, columns, target)`` as float arrays and names, or raise naming X or y."""
     if isinstance(X, pd.DataFrame):
         bad = [str(c) for c in X.columns if not pd.api.types.is_numeric_dtype(X[c])]
         if bad:
@@ -196,6 +198,11 @@ def _check_data(X, y):
     if Xa.shape[0] != ya.shape[0]:
         raise ValueError(f"y must have one value per row of X ({Xa.shape[0]} rows). "
                          f"Got {ya.shape[0]} values instead.")
+    return Xa, ya, columns, target
+
+
+def _check_data(X, y):
+    Xa, ya, columns, target = _as_arrays(X, y)
     if Xa.shape[0] < MIN_ROWS:
         raise ValueError(f"A report needs at least {MIN_ROWS} rows. Got {Xa.shape[0]} "
                          f"instead.")
@@ -210,6 +217,15 @@ def _check_data(X, y):
             raise ValueError(f"{name} must be finite: missing or infinite values{where}. "
                              f"Drop or fill those rows first.")
     return Xa, ya, columns, target
+
+
+def data_fingerprint(X, y) -> str:
+    """Return the data fingerprint a report shows for ``(X, y)`` (16 hex digits).
+
+    SHA-256 over the shape, the column names, the target name and the float64 values:
+    equal tables give equal fingerprints; one changed value, name or row order changes it.
+    """
+    return _fingerprint(*_as_arrays(X, y))
 
 
 def _fingerprint(Xa, ya, columns, target) -> str:
