@@ -308,10 +308,11 @@ def _probe_input(probe, columns, anchor):
 _STEPS = ("fit", "smoothers", "verdict", "probe", "slice", "edges", "out-of-bag",
           "coverage", "figures")
 
-CAUTIONS_BASE = (
+CAUTION_KERNEL = (
     "Intervals of the kernel smoothers (Nadaraya-Watson, local linear) ignore smoothing "
     "bias: they measure how much the smoothed curve varies, not how far it sits from the "
-    "truth, so they are too narrow where the curve bends and near the edges of the data.",
+    "truth, so they are too narrow where the curve bends and near the edges of the data.")
+CAUTIONS_BASE = (
     "Observational data: every number here is a predictive diagnostic, how well each method "
     "predicts rows it did not see. A slice or a local slope is not a causal effect; setting "
     "a column to a new value in the world need not move the response the way the slice "
@@ -449,7 +450,7 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
         version=__version__,
         created=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
     )
-    cautions = CAUTIONS_BASE + ((
+    cautions = ((CAUTION_KERNEL,) if smoothers else ()) + CAUTIONS_BASE + ((
         "No coverage readout was run for this report (coverage_reps=0): the forests' "
         "intervals were not checked by simulation.",) if coverage is None else ())
     return Report(

@@ -262,6 +262,7 @@ def test_coverage_section_when_requested(data, model):
     assert rep.smoothers == ()
     assert "Nadaraya-Watson" not in rep.figures["slice"]
     assert "bandwidths" not in _section(rep.to_html(), "settings")
+    assert "smoothing bias" not in _section(rep.to_html(), "cautions")
 
 
 def test_unfitted_model_is_fitted_on_a_clone(data):
