@@ -123,17 +123,26 @@ def probe_readout(report) -> pd.DataFrame:
     return pd.DataFrame(rows).set_index("method")
 
 
-def oob_summary(model, ridge_penalty=None, level: float = 0.95) -> dict:
-    """Return out-of-bag RMSE, mean interval width and usable rows at one ridge penalty."""
+def oob_summary(model, ridge_penalty=None, level: float = 0.95, *,
+                interval_width: bool = True) -> dict:
+    """Return out-of-bag RMSE, mean interval width and usable rows at one ridge penalty.
+
+    ``interval_width=False`` skips the little-bags standard errors of every training row
+    (the expensive part: one linearised term per row and tree) and reports the width as
+    NaN; the interactive views show the RMSE at once and the width when it is ready.
+    """
     with np.errstate(invalid="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
-        try:
-            mean, std = model.oob_predict(return_std=True, ridge_penalty=ridge_penalty)
-            lo, hi = normal_interval(mean, std, level)
-            width = float(np.nanmean(hi - lo))
-        except ValueError:  # no little bags: no intervals
+        width = float("nan")
+        if interval_width:
+            try:
+                mean, std = model.oob_predict(return_std=True, ridge_penalty=ridge_penalty)
+                lo, hi = normal_interval(mean, std, level)
+                width = float(np.nanmean(hi - lo))
+            except ValueError:  # no little bags: no intervals
+                interval_width = False
+        if not interval_width:
             mean = model.oob_predict(ridge_penalty=ridge_penalty)
-            width = float("nan")
     ok = np.isfinite(mean)
     rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
     return {"ridge_penalty": float(model._penalty(ridge_penalty)), "oob_rmse": rmse,

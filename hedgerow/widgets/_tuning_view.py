@@ -5,12 +5,14 @@ from __future__ import annotations
 import html
 import logging
 import threading
+import time
 
 import bqplot as bq
 import ipywidgets as W
 import numpy as np
 import traitlets as t
 
+from hedgerow import diagnostics as D
 from hedgerow.widgets._base import View, held
 from hedgerow.widgets._style import CSS, PROBE_COLOUR, colour_of, fmt
 
@@ -77,6 +79,11 @@ class TuningView(View):
                                                disabled=True, layout=W.Layout(width="200px"))
         self.coverage_cancel_button.on_click(self._on_coverage_cancel_clicked)
         self._coverage_control = None
+        self._full_summaries = {}  # (generation, penalty) -> oob summary with the width
+        self._width_lock = threading.Lock()
+        self._draw_lock = threading.RLock()
+        self._width_thread = None
+        self._width_wanted = None
         self.coverage_progress = W.FloatProgress(value=0.0, min=0.0, max=1.0,
                                                  layout=W.Layout(width="200px"))
         self.coverage_html = W.HTML("<small>not run yet</small>")
@@ -157,16 +164,81 @@ class TuningView(View):
         self._redraw()
 
     def _redraw(self):
-        with self._shown_errors("drawing the tuning view"):
-            self._draw(self._session.oob_summary(), self._session.ridge_curve(CURVE_PENALTIES),
-                       self._session.verdict_report())
+        # without an event loop (scripts, tests) the width thread redraws itself: one
+        # redraw at a time, so a slow one never overwrites a newer readout
+        with self._draw_lock, self._shown_errors("drawing the tuning view"):
+            s = self._session
+            key = (s.generation, s.ridge_penalty)
+            summary = self._full_summaries.get(key)
+            pending = summary is None
+            if pending:
+                # RMSE now; the interval width (little-bags errors of every training row,
+                # the slow part) follows from a background thread
+                summary = s._cached(("oob quick",), lambda: D.oob_summary(
+                    s.penalised_model(), interval_width=False))
+                self._start_width(key)
+            self._draw(summary, s.ridge_curve(CURVE_PENALTIES), s.verdict_report(),
+                       width_pending=pending)
 
-    def _draw(self, summary, curve, verdict):
+    def _start_width(self, key):
+        with self._width_lock:
+            self._width_wanted = key
+            if self._width_thread is not None and self._width_thread.is_alive():
+                return  # the running one starts the newest request when it ends
+            self._width_thread = threading.Thread(target=self._width_worker, daemon=True,
+                                                  name="hedgerow-oob-width")
+            self._width_thread.start()
+
+    def _width_worker(self):
+        s = self._session
+        while True:
+            with self._width_lock:
+                key, self._width_wanted = self._width_wanted, None
+                if key is None:
+                    return
+            if key != (s.generation, s.ridge_penalty):
+                continue  # the slider moved on before we started
+            try:
+                summary = s.oob_summary()  # session cache: the full summary at this key
+            except Exception as exc:  # shown in the view, never lost
+                log.exception("out-of-bag interval width failed")
+                s._on_ui(lambda exc=exc: setattr(
+                    self, "error", f"computing the interval width: {type(exc).__name__}: "
+                                   f"{exc}"))
+                continue
+            self._full_summaries[key] = summary
+            while len(self._full_summaries) > 32:
+                self._full_summaries.pop(next(iter(self._full_summaries)))
+            s._on_ui(lambda key=key: self._width_ready(key))
+
+    def _width_ready(self, key):
+        s = self._session
+        if key == (s.generation, s.ridge_penalty):
+            self._redraw()
+
+    def wait_for_width(self, timeout=60.0) -> bool:
+        """Block until the interval-width readout is filled (tests, scripts); True if so."""
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            thread = self._width_thread
+            if thread is None or not thread.is_alive():
+                s = self._session
+                return (s.generation, s.ridge_penalty) in self._full_summaries
+            thread.join(min(0.5, max(0.0, deadline - time.monotonic())))
+        return False
+
+    def _draw(self, summary, curve, verdict, width_pending=False):
         s = self._session
         with held(self.curve_mark, self.current_mark):
             self.curve_mark.y = curve["oob_rmse"].to_numpy()
             self.current_mark.x = np.array([self._slider_value(summary["ridge_penalty"])])
             self.current_mark.y = np.array([summary["oob_rmse"]])
+        if width_pending:
+            width = "computing&hellip;"
+        elif np.isfinite(summary["mean_width"]):
+            width = fmt(summary["mean_width"])
+        else:
+            width = "none (no little bags)"
         value = self._slider_value(s.ridge_penalty)
         if not np.isclose(self.ridge_slider.value, value):
             self.ridge_slider.value = value
@@ -176,7 +248,7 @@ class TuningView(View):
             f"<tr><td>out-of-bag RMSE</td><td class='hedgerow-value'>"
             f"{fmt(summary['oob_rmse'])}</td></tr>"
             f"<tr><td>mean width of {100 * summary['level']:.0f}% intervals</td>"
-            f"<td class='hedgerow-value'>{fmt(summary['mean_width'])}</td></tr>"
+            f"<td class='hedgerow-value'>{width}</td></tr>"
             f"<tr><td>rows with an out-of-bag prediction</td><td>{summary['n_rows']}</td></tr>"
             f"</table>")
         self.verdict_html.value = f"<p>{html.escape(verdict.conclusion)}</p>"

@@ -326,3 +326,27 @@ def test_coverage_readout_stops_when_asked(app):
     assert view.coverage_cancel_button.disabled and not view.coverage_button.disabled
     assert "of 50 replications" in view.coverage_html.value
     assert 0.0 < view.coverage_progress.value < 1.0
+
+
+def test_ridge_step_shows_rmse_at_once_and_the_interval_width_when_ready(app, session):
+    """The width (little-bags errors of every training row) follows from a thread and
+    equals oob_summary's; a newer step supersedes an older one."""
+    from hedgerow.widgets._style import fmt
+
+    tuning = app.tuning_view
+    for lam in (0.7, 0.07):  # two quick steps: only the last one's width is shown
+        session.ridge_penalty = lam
+    assert tuning.wait_for_width(60)
+    expected = D.oob_summary(D.at_ridge_penalty(session.model, 0.07))
+    shown = tuning.readout_html.value
+    assert f"'hedgerow-value'>{fmt(expected['mean_width'])}<" in shown
+    assert f"'hedgerow-value'>{fmt(expected['oob_rmse'])}<" in shown
+    assert "computing" not in shown
+
+
+def test_interval_width_readout_without_little_bags(data):
+    X, y = data
+    app = explore(X, y, n_estimators=40, trees_per_bag=1, compare=False)
+    assert app.tuning_view.wait_for_width(60)
+    assert "none (no little bags)" in app.tuning_view.readout_html.value
+    assert app.tuning_view.error == ""
