@@ -3,9 +3,9 @@
 n = 10,000, d = 10 (make_friedman1), 1000 trees. Times, without a browser, the handler
 a drag end calls (`ProbeView._on_probe_moved`: diagnostics plus every mark update of the
 views that follow the probe) and one ridge-slider step (`session.ridge_penalty = λ`:
-everything redrawn without refitting; the out-of-bag interval-width readout follows from a
-background thread, and the time until it is shown is printed too). Budgets: probe move <= 30 ms median, ridge step
-<= 250 ms. The browser round trip (mouse-up to readout) is measured by
+everything redrawn without refitting; the out-of-bag interval-width readout follows from
+a background thread, and the time until it is shown is printed too). Budgets: probe move
+<= 30 ms median, ridge step <= 250 ms. The browser round trip (mouse-up to readout) is measured by
 tests/browser/test_explore_in_lab.py and written to tests/browser/artifacts/timings.json.
 
 The kernel smoothers are fitted here with Silverman bandwidths (`--bandwidth cv` to use

@@ -253,14 +253,14 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
             # a visible bqplot figure (or, for the verdict, its conclusion) with real size
             shown = page.locator(".hedgerow-explorer .bqplot:visible, "
                                  ".hedgerow-explorer .hedgerow-verdict-conclusion:visible")
-            _wait_until(lambda: shown.count() > 0, 20, f"the {tab} view")
+            _wait_until(lambda shown=shown: shown.count() > 0, 20, f"the {tab} view")
             box = shown.first.bounding_box()
             assert box and box["width"] > 100 and box["height"] > 20, (tab, box)
             if tab != "verdict":
                 # each figure drew marks: lines or points
                 marks = page.locator(".hedgerow-explorer .bqplot:visible "
                                      "path.line, .hedgerow-explorer .bqplot:visible path.dot")
-                _wait_until(lambda: marks.count() > 0, 20, f"marks in the {tab} view")
+                _wait_until(lambda marks=marks: marks.count() > 0, 20, f"marks in the {tab} view")
             errors = page.locator(".hedgerow-explorer .hedgerow-error:visible")
             assert all(not e.inner_text().strip() for e in errors.all()), tab
             page.screenshot(path=str(ARTIFACTS / f"explore-tab-{tab.replace(' ', '-')}.png"))
