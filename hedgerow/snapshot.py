@@ -538,11 +538,13 @@ class Snapshot:
                           f"this hedgerow version.", UserWarning, stacklevel=2)
         return cls(**self.params)
 
-    def compare(self, other: Snapshot, labels=("this", "other")) -> pd.DataFrame:
+    def compare(self, other: Snapshot, labels=("this", "other"), *, view=True) -> pd.DataFrame:
         """Return the headline numbers and settings of two snapshots side by side.
 
-        One row per headline number, then per setting or view field that differs; the
-        ``same`` column is True where the values agree (numbers to 1e-9 relative).
+        One row per headline number, then per setting (and, with ``view``, per view field)
+        that differs, then the data if their fingerprints differ; the ``same`` column is
+        True where the values agree (numbers to 1e-9 relative). ``view=False`` suits a
+        snapshot made by ``from_model``, which records no legend or tab.
         """
         if not isinstance(other, Snapshot):
             raise TypeError(f"The 'other' parameter must be a Snapshot. Got "
@@ -555,7 +557,7 @@ class Snapshot:
             a, b = self.params.get(k), other.params.get(k)
             if a != b:
                 rows.append((f"setting: {k}", a, b))
-        for k in self.view:
+        for k in self.view if view else ():
             a, b = self.view.get(k), other.view.get(k)
             if a != b and not (isinstance(a, list) and _same(a, b)):
                 rows.append((f"view: {k}", a, b))

@@ -95,6 +95,9 @@ def test_compare_shows_what_differs(snap, model, data):
     assert not table.loc["headline: probe_prediction", "same"]
     assert table.loc["headline: oob_rmse", "same"]  # same forest, same penalty
     assert "headline: verdict" in table.index and not table.loc["headline: verdict", "same"]
+    quiet = snap.compare(other, view=False)
+    assert not any(i.startswith("view:") for i in quiet.index)
+    assert not quiet.loc["headline: probe_prediction", "same"]
 
 
 def test_file_is_plain_json_with_format_marker(saved):
