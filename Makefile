@@ -15,8 +15,20 @@ $(VENV)/.installed-test: $(VENV)/bin/python pyproject.toml
 	$(MAKE) --no-print-directory warm
 	touch $@
 
-$(VENV)/.installed-demo: $(VENV)/bin/python pyproject.toml
-	$(PY) -m pip install --quiet -e .
+# `make demo` opens the quickstart notebook in JupyterLab; `make demo DEMO_CHECK=1` runs it
+# headless with nbclient instead and exits 0 when every cell ran.
+DEMO_NOTEBOOK ?= notebooks/01-quickstart.ipynb
+DEMO_CHECK    ?=
+
+# The lab extra (JupyterLab + widgets) is part of the test extra: a .venv that `make test`
+# installed since the last change to pyproject.toml is reused as it is.
+$(VENV)/.installed-lab: $(VENV)/bin/python pyproject.toml
+	@if [ -f $(VENV)/.installed-test ] && [ $(VENV)/.installed-test -nt pyproject.toml ]; then \
+		echo "demo: reusing $(VENV) (its test extra includes JupyterLab and the widgets)"; \
+	else \
+		echo "$(PY) -m pip install --quiet -e \".[lab]\""; \
+		$(PY) -m pip install --quiet -e ".[lab]"; \
+	fi
 	$(MAKE) --no-print-directory warm
 	touch $@
 
@@ -26,8 +38,12 @@ warm:
 
 venv: $(VENV)/.installed-test
 
-demo: $(VENV)/.installed-demo
-	$(PY) examples/demo_fit.py
+demo: $(VENV)/.installed-lab
+ifeq ($(DEMO_CHECK),1)
+	$(PY) examples/run_notebook.py $(DEMO_NOTEBOOK)
+else
+	$(PY) -m jupyter lab $(DEMO_NOTEBOOK)
+endif
 
 lint: $(VENV)/.installed-test
 	$(PY) -m ruff check .
