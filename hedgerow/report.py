@@ -34,7 +34,7 @@ import pandas as pd
 
 from hedgerow import diagnostics as D
 from hedgerow._progress import progress_bar
-from hedgerow.diagnostics._report import check_probe_point
+from hedgerow.diagnostics import check_probe_point
 
 __all__ = ["DataSummary", "Report", "Settings", "build_report", "save_html", "write_html",
            "data_fingerprint",

@@ -25,13 +25,14 @@ from hedgerow.diagnostics._interactive import (
     weight_profile,
 )
 from hedgerow.diagnostics._probe import TOP_ROWS, MethodAtProbe, ProbeReport, probe
-from hedgerow.diagnostics._report import kish_ess
+from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
 from hedgerow.diagnostics._verdict import EDGE_BAND, Verdict, paired_relative_gain, verdict
 
 __all__ = [
     "at_ridge_penalty",
+    "check_probe_point",
     "local_average_model",
     "local_line",
     "method_label",
