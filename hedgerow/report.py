@@ -18,7 +18,6 @@ This module formats what the diagnostics functions return; it computes no statis
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import html
 import io
 import os
@@ -89,8 +88,10 @@ def _dash(name: str) -> str:
 class DataSummary:
     """Rows, columns, target name and a fingerprint of the data a report was built on.
 
-    ``fingerprint``: the first 16 hex digits of SHA-256 over the shape, the column and
-    target names and the float64 bytes of X and y: equal data give equal fingerprints,
+    ``fingerprint``: the first 16 hex digits of the data SHA-256 a ``Snapshot`` stores
+    (``hedgerow.snapshot.DataFingerprint``: over the shape and the float64 bytes of X and
+    y; the names are listed beside it), so a report and a snapshot of the same data can be
+    matched by eye; equal data give equal fingerprints,
     so a reviewer can tell whether two reports (or a refit) used the same table.
     """
 
@@ -222,18 +223,17 @@ def _check_data(X, y):
 def data_fingerprint(X, y) -> str:
     """Return the data fingerprint a report shows for ``(X, y)`` (16 hex digits).
 
-    SHA-256 over the shape, the column names, the target name and the float64 values:
-    equal tables give equal fingerprints; one changed value, name or row order changes it.
+    The first 16 hex digits of ``hedgerow.snapshot.DataFingerprint``'s SHA-256 (shape and
+    float64 values of X and y): one changed value or row order changes it; the column
+    and target names are shown beside it, not hashed, exactly as a snapshot keeps them.
     """
     return _fingerprint(*_as_arrays(X, y))
 
 
 def _fingerprint(Xa, ya, columns, target) -> str:
-    h = hashlib.sha256()
-    h.update(repr((Xa.shape, tuple(columns), target)).encode())
-    h.update(np.ascontiguousarray(Xa, dtype="<f8").tobytes())
-    h.update(np.ascontiguousarray(ya, dtype="<f8").tobytes())
-    return h.hexdigest()[:16]
+    from hedgerow.snapshot import DataFingerprint
+
+    return DataFingerprint.from_data(Xa, ya).sha256[:16]
 
 
 def _is_fitted(model) -> bool:
@@ -761,8 +761,9 @@ def _data_html(r: Report) -> str:
         ("target", _e(d.target)),
         ("column names", ", ".join(f"<code>{_e(c)}</code>" for c in d.columns)),
         ("data fingerprint", f"<code>{_e(d.fingerprint)}</code>"),
-    ]) + ("<p class='hr-meta'>The fingerprint is a hash of the shape, the names and every "
-          "value: a report built on the same table shows the same fingerprint.</p>")
+    ]) + ("<p class='hr-meta'>The fingerprint is a hash of the shape and every value (the "
+          "first 16 digits of the SHA-256 a snapshot of the same data stores): a report "
+          "built on the same table shows the same fingerprint.</p>")
 
 
 def _block(heading, table) -> str:
