@@ -32,6 +32,7 @@ import numpy as np
 import pandas as pd
 
 from hedgerow import diagnostics as D
+from hedgerow._palette import METHOD_COLOURS, colour_of, dash_of
 from hedgerow._progress import progress_bar
 from hedgerow.diagnostics import check_probe_point
 
@@ -47,23 +48,10 @@ MIN_ROWS = 20
 SECTIONS = ("verdict", "data", "settings", "probe", "slice", "edges", "neighbour-weights",
             "out-of-bag", "coverage", "cautions")
 
-#: Method colours: the same values as the interactive views use (kept here so that the
-#: report needs nothing from ``hedgerow.widgets``). Distinct in hue and lightness; lines
-#: add a dash pattern as a second cue.
-REPORT_COLOURS = {
-    "local linear forest": "#1d5fa8",
-    "honest forest": "#e3891b",
-    "Nadaraya-Watson": "#7f4fb0",
-    "local linear (kernel)": "#2a9d7c",
-    "random forest (scikit-learn)": "#777777",
-}
-_DASHES = {
-    "local linear forest": "-",
-    "honest forest": "-",
-    "Nadaraya-Watson": "--",
-    "local linear (kernel)": "-.",
-    "random forest (scikit-learn)": ":",
-}
+#: Method colours: the palette the interactive views use (``hedgerow._palette``).
+REPORT_COLOURS = METHOD_COLOURS
+#: matplotlib line styles for the palette's named dash patterns
+_DASH_STYLES = {"solid": "-", "dashed": "--", "dash_dotted": "-.", "dotted": ":"}
 _ROW_COLOUR = "#5b6470"
 _INK = "#1b1f24"
 
@@ -71,16 +59,12 @@ _HONEST = "honest forest (same trees)"
 _LLF = "local linear forest"
 
 
-def _base(name: str) -> str:
-    return "honest forest" if name.startswith("honest forest") else name
-
-
 def _colour(name: str) -> str:
-    return REPORT_COLOURS.get(_base(name), "#999999")
+    return colour_of(name)
 
 
 def _dash(name: str) -> str:
-    return _DASHES.get(_base(name), "-")
+    return _DASH_STYLES[dash_of(name)]
 
 
 # -- value objects --------------------------------------------------------------------

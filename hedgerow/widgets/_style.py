@@ -9,23 +9,9 @@ import numpy as np
 __all__ = ["METHOD_COLOURS", "METHOD_DASHES", "colour_of", "dash_of", "marker_scaling",
            "display_rows", "DISPLAY_LIMIT", "CSS", "swatch", "fmt"]
 
-#: One fixed colour per method in every view. Chosen for distinct hue *and* lightness so
-#: the pairs stay apart under the common colour-vision deficiencies; lines add a dash
-#: pattern as a second cue.
-METHOD_COLOURS = {
-    "local linear forest": "#1d5fa8",  # cobalt
-    "honest forest": "#e3891b",  # amber
-    "Nadaraya-Watson": "#7f4fb0",  # violet
-    "local linear (kernel)": "#2a9d7c",  # sea green
-    "random forest (scikit-learn)": "#777777",  # mid grey
-}
-METHOD_DASHES = {
-    "local linear forest": "solid",
-    "honest forest": "solid",
-    "Nadaraya-Watson": "dashed",
-    "local linear (kernel)": "dash_dotted",
-    "random forest (scikit-learn)": "dotted",
-}
+# the palette lives in the ground layer so the static report shares it
+from hedgerow._palette import METHOD_COLOURS, METHOD_DASHES, colour_of, dash_of  # noqa: E402
+
 ROW_COLOUR = "#5b6470"  # slate: training rows
 PROBE_COLOUR = "#111111"  # near black: the probe marker
 HIGHLIGHT_COLOUR = "#111111"
@@ -46,19 +32,6 @@ class CSS:
     verdict_conclusion = "hedgerow-verdict-conclusion"
     coverage_result = "hedgerow-coverage-result"
     ridge_slider = "hedgerow-ridge-slider"
-
-
-def _base_name(name: str) -> str:
-    return "honest forest" if name.startswith("honest forest") else name
-
-
-def colour_of(name: str) -> str:
-    """Return the fixed colour of a method (grey for one we do not know)."""
-    return METHOD_COLOURS.get(_base_name(name), "#999999")
-
-
-def dash_of(name: str) -> str:
-    return METHOD_DASHES.get(_base_name(name), "solid")
 
 
 def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):

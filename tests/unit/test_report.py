@@ -244,9 +244,15 @@ def test_cautions(report, page):
     assert len(report.cautions) == sec.count("<li>")
 
 
-def test_palette_matches_the_views():
-    style = pytest.importorskip("hedgerow.widgets._style")
-    assert R.REPORT_COLOURS == style.METHOD_COLOURS
+def test_figures_draw_each_method_in_its_palette_colour(report):
+    """Views and report share hedgerow._palette; the SVG must actually use it."""
+    from hedgerow._palette import METHOD_COLOURS, METHOD_DASHES
+
+    slice_svg = report.figures["slice"].lower()
+    for name in ("local linear forest", "honest forest"):
+        assert METHOD_COLOURS[name].lower() in slice_svg, name
+    # every named dash pattern has a matplotlib style
+    assert {R._dash(m) for m in METHOD_DASHES} <= {"-", "--", "-.", ":"}
 
 
 def test_report_needs_neither_widgets_nor_matplotlib_at_import():
