@@ -32,24 +32,22 @@ class _Parser(argparse.ArgumentParser):
         raise InputError(f"{message} (see '{self.prog} --help')")
 
 
-def _positive_int(text):
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a number >= 1, got {value}")
-    return value
+def _int_at_least(minimum):
+    def parse(text):
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"expected a whole number, got {text!r}") from None
+        if value < minimum:
+            raise argparse.ArgumentTypeError(f"expected a number >= {minimum}, got {value}")
+        return value
+
+    return parse
 
 
-def _non_negative_int(text):
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {value}")
-    return value
+_positive_int = _int_at_least(1)
+_non_negative_int = _int_at_least(0)
 
 
 def _parser() -> argparse.ArgumentParser:
