@@ -162,6 +162,10 @@ def _gather_chunk(leaves, usable, leaf_ptr, leaf_means):
     return out, n_used
 
 
+#: From this many queries on, weights are built with the queries grouped by leaf.
+_GROUP_QUERIES = 256
+
+
 def _chunks(m: int, n_jobs: int, size: int = 512):
     step = max(1, min(size, -(-m // max(1, n_jobs))))
     return [(a, min(m, a + step)) for a in range(0, m, step)]
@@ -228,7 +232,28 @@ class ForestArrays:
         )
 
     def weights(self, leaves: np.ndarray, usable: np.ndarray | None = None, n_jobs: int = 1):
-        """Return (CSR weights m × n_train, number of usable trees per query)."""
+        """Return (CSR weights m × n_train, number of usable trees per query).
+
+        Queries are visited grouped by their leaves in the first trees (queries that share
+        those leaves are close and share many leaves elsewhere, so the leaf rows they read
+        are still in cache), then the rows are put back in the given order; the result
+        does not depend on the grouping.
+        """
+        m = leaves.shape[0]
+        if m >= _GROUP_QUERIES and leaves.shape[1] > 0:
+            keys = tuple(leaves[:, t] for t in range(min(3, leaves.shape[1]) - 1, -1, -1))
+            order = np.lexsort(keys)
+            W, n_used = self._weights_in_order(
+                np.ascontiguousarray(leaves[order]),
+                None if usable is None else np.ascontiguousarray(usable[order]), n_jobs)
+            back = np.empty_like(order)
+            back[order] = np.arange(m)
+            W = W[back]
+            W.has_sorted_indices = True
+            return W, n_used[back]
+        return self._weights_in_order(leaves, usable, n_jobs)
+
+    def _weights_in_order(self, leaves, usable, n_jobs):
         m = leaves.shape[0]
         empty = np.zeros((0, 0), dtype=np.bool_)
         pieces = _chunks(m, n_jobs)

@@ -75,6 +75,28 @@ def test_weights_rebuilt_from_leaf_rows(bagged, friedman_query):
         np.testing.assert_allclose(W[q], w, atol=1e-14)
 
 
+def test_weights_of_many_queries_do_not_depend_on_leaf_grouping(bagged, friedman_small):
+    """From _GROUP_QUERIES queries on, rows are built grouped by leaf and put back: the
+    matrix must equal the one built query by query in the given order (also OOB)."""
+    from hedgerow.forest import _storage
+
+    forest = bagged.forest_
+    X, _ = friedman_small
+    rng = np.random.default_rng(4)
+    Q = np.vstack([X[rng.permutation(X.shape[0])], X[:37] + 0.01])
+    assert Q.shape[0] >= _storage._GROUP_QUERIES
+    leaves = forest.apply(Q)
+    usable = ~forest.inbag(np.arange(X.shape[0]))
+    for use, L in ((None, leaves), (usable, forest.apply(X))):
+        grouped, n_grouped = forest.weights(L, use, n_jobs=2)
+        plain, n_plain = forest._weights_in_order(L, use, n_jobs=1)
+        assert grouped.has_sorted_indices
+        np.testing.assert_array_equal(grouped.indptr, plain.indptr)
+        np.testing.assert_array_equal(grouped.indices, plain.indices)
+        np.testing.assert_array_equal(grouped.data, plain.data)
+        np.testing.assert_array_equal(n_grouped, n_plain)
+
+
 def test_apply_descends_by_threshold(bagged, friedman_query):
     # Rebuild the leaf of each query by walking the stored nodes in Python.
     forest = bagged.forest_
