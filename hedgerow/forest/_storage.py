@@ -97,7 +97,20 @@ def _weights_chunk(leaves, usable, leaf_ptr, leaf_rows, n):
             acc[r] = 0.0
         nnz += n_t
         indptr[i + 1] = nnz
-    return indptr, indices[:nnz].copy(), data[:nnz].copy(), n_used
+    # views: the caller copies each row once into the final matrix
+    return indptr, indices[:nnz], data[:nnz], n_used
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _place_rows(indptr, indices, data, dest, out_indptr, out_indices, out_data):
+    """Copy the CSR rows of one chunk to rows ``dest`` of the final matrix."""
+    for r in range(dest.shape[0]):
+        a = indptr[r]
+        length = indptr[r + 1] - a
+        o = out_indptr[dest[r]]
+        for q in range(length):
+            out_indices[o + q] = indices[a + q]
+            out_data[o + q] = data[a + q]
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -236,24 +249,21 @@ class ForestArrays:
 
         Queries are visited grouped by their leaves in the first trees (queries that share
         those leaves are close and share many leaves elsewhere, so the leaf rows they read
-        are still in cache), then the rows are put back in the given order; the result
-        does not depend on the grouping.
+        are still in cache); each row is then copied once to its place in the given order.
+        The result does not depend on the grouping.
         """
         m = leaves.shape[0]
         if m >= _GROUP_QUERIES and leaves.shape[1] > 0:
             keys = tuple(leaves[:, t] for t in range(min(3, leaves.shape[1]) - 1, -1, -1))
             order = np.lexsort(keys)
-            W, n_used = self._weights_in_order(
-                np.ascontiguousarray(leaves[order]),
-                None if usable is None else np.ascontiguousarray(usable[order]), n_jobs)
-            back = np.empty_like(order)
-            back[order] = np.arange(m)
-            W = W[back]
-            W.has_sorted_indices = True
-            return W, n_used[back]
-        return self._weights_in_order(leaves, usable, n_jobs)
+            leaves = np.ascontiguousarray(leaves[order])
+            usable = None if usable is None else np.ascontiguousarray(usable[order])
+        else:
+            order = None
+        return self._weights_in_order(leaves, usable, n_jobs, order)
 
-    def _weights_in_order(self, leaves, usable, n_jobs):
+    def _weights_in_order(self, leaves, usable, n_jobs, order=None):
+        """Weights of the queries in ``leaves``; row r belongs to query ``order[r]``."""
         m = leaves.shape[0]
         empty = np.zeros((0, 0), dtype=np.bool_)
         pieces = _chunks(m, n_jobs)
@@ -269,15 +279,19 @@ class ForestArrays:
         parts = _map(run, pieces, n_jobs)
         if not parts:
             return sp.csr_matrix((0, self.n_train)), np.zeros(0, dtype=np.int64)
-        offsets = np.cumsum([0] + [p[1].shape[0] for p in parts])
-        indptr = np.concatenate(
-            [np.zeros(1, dtype=np.int64)]
-            + [p[0][1:] + off for p, off in zip(parts, offsets[:-1], strict=True)]
-        )
-        indices = np.concatenate([p[1] for p in parts])
-        data = np.concatenate([p[2] for p in parts])
-        n_used = np.concatenate([p[3] for p in parts])
-        W = sp.csr_matrix((data, indices, indptr), shape=(m, self.n_train))
+        dest = np.arange(m) if order is None else np.asarray(order, dtype=np.int64)
+        lengths = np.empty(m, dtype=np.int64)
+        n_used = np.empty(m, dtype=np.int64)
+        for (a, b), part in zip(pieces, parts, strict=True):
+            lengths[dest[a:b]] = np.diff(part[0])
+            n_used[dest[a:b]] = part[3]
+        indptr = np.zeros(m + 1, dtype=np.int64)
+        np.cumsum(lengths, out=indptr[1:])
+        indices = np.empty(indptr[-1], dtype=np.int32)
+        data = np.empty(indptr[-1])
+        for (a, b), part in zip(pieces, parts, strict=True):
+            _place_rows(part[0], part[1], part[2], dest[a:b], indptr, indices, data)
+        W = sp.csr_matrix((data, indices, indptr), shape=(m, self.n_train), copy=False)
         W.has_sorted_indices = True
         return W, n_used
 

@@ -89,7 +89,7 @@ def test_weights_of_many_queries_do_not_depend_on_leaf_grouping(bagged, friedman
     usable = ~forest.inbag(np.arange(X.shape[0]))
     for use, L in ((None, leaves), (usable, forest.apply(X))):
         grouped, n_grouped = forest.weights(L, use, n_jobs=2)
-        plain, n_plain = forest._weights_in_order(L, use, n_jobs=1)
+        plain, n_plain = forest._weights_in_order(L, use, 1)
         assert grouped.has_sorted_indices
         np.testing.assert_array_equal(grouped.indptr, plain.indptr)
         np.testing.assert_array_equal(grouped.indices, plain.indices)
