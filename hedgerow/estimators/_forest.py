@@ -115,7 +115,12 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         return l, mtry, s
 
     def _n_threads(self) -> int:
-        return max(1, effective_n_jobs(self.n_jobs))
+        with warnings.catch_warnings():
+            # inside a dask worker joblib answers 1 with a warning about processes; ours
+            # are threads, but one per task is right there (the worker's threads are the
+            # parallelism), so only the warning goes
+            warnings.filterwarnings("ignore", message=".*Dask worker", category=UserWarning)
+            return max(1, effective_n_jobs(self.n_jobs))
 
     def _grow(self, X, y, *, rule=RULE_MEAN, Z=None, split_penalty=0.0, progress=None,
               client=None):

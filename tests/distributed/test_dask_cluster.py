@@ -138,6 +138,20 @@ def test_worker_error_propagates_unchanged(client, data):
     assert _wait_until_no_hedgerow_tasks(client) == []
 
 
+def test_tasks_get_inputs_in_memory_of_their_own(client, data):
+    # arrays received from the network sat at odd addresses (17, 29 mod 64) and a 2-worker
+    # tuning surface then differed from the local one in the 6th digit
+    from hedgerow._distributed import run_tasks
+
+    X, _ = data
+    big = np.repeat(X, 20, axis=0)  # large enough to travel as its own frame
+    out = run_tasks(client, lambda item, a: (a.ctypes.data % 16, a.flags.owndata,
+                                             float(a.sum())),
+                    list(range(4)), shared=(big,), what="probe")
+    assert sorted(out) == [0, 1, 2, 3]
+    assert all(v == (0, True, float(big.sum())) for v in out.values()), out
+
+
 # -- distributed fit --------------------------------------------------------------------
 @pytest.mark.parametrize("make", [
     lambda: HonestForestRegressor(n_estimators=48, trees_per_bag=6, random_state=4),
@@ -180,21 +194,30 @@ def models(data):
 @pytest.mark.parametrize("which", range(4), ids=["honest", "llf", "nw", "llr"])
 @pytest.mark.parametrize("scheduler", ["cluster", "threads"])
 def test_lazy_predict_on_dask_array(client, models, query, which, scheduler):
+    import contextlib
+
+    import dask
+
+    from hedgerow._distributed import _scheduler_client
+
     model = models[which]
     # columns split in two chunks too: the model needs whole rows
     Xd = da.from_array(query, chunks=(25, 2))
-    kw = {} if scheduler == "cluster" else {"scheduler": "threads"}
-    mean = model.predict(Xd)
-    assert isinstance(mean, da.Array) and mean.shape == (query.shape[0],)
-    np.testing.assert_array_equal(mean.compute(**kw), model.predict(query))
-    lazy_mean, lazy_std = model.predict(Xd, return_std=True)
-    got_mean, got_std = da.compute(lazy_mean, lazy_std, **kw)
-    want_mean, want_std = model.predict(query, return_std=True)
-    np.testing.assert_array_equal(got_mean, want_mean)
-    np.testing.assert_array_equal(got_std, want_std)
-    lo, hi = model.predict_interval(Xd, level=0.9)
-    want_lo, want_hi = model.predict_interval(query, level=0.9)
-    got_lo, got_hi = da.compute(lo, hi, **kw)
+    # "threads": no cluster involved (the model travels inside the graph as a Delayed)
+    with (dask.config.set(scheduler="threads") if scheduler == "threads"
+          else contextlib.nullcontext()):
+        assert (_scheduler_client() is client) == (scheduler == "cluster")
+        mean = model.predict(Xd)
+        assert isinstance(mean, da.Array) and mean.shape == (query.shape[0],)
+        np.testing.assert_array_equal(mean.compute(), model.predict(query))
+        lazy_mean, lazy_std = model.predict(Xd, return_std=True)
+        got_mean, got_std = da.compute(lazy_mean, lazy_std)
+        want_mean, want_std = model.predict(query, return_std=True)
+        np.testing.assert_array_equal(got_mean, want_mean)
+        np.testing.assert_array_equal(got_std, want_std)
+        lo, hi = model.predict_interval(Xd, level=0.9)
+        want_lo, want_hi = model.predict_interval(query, level=0.9)
+        got_lo, got_hi = da.compute(lo, hi)
     np.testing.assert_array_equal(got_lo, want_lo)
     np.testing.assert_array_equal(got_hi, want_hi)
 
