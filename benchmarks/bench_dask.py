@@ -52,6 +52,13 @@ def _read_peak(dask_worker):
     return dask_worker._bench_rss["peak"]
 
 
+def _cpu_seconds(dask_worker=None):
+    import psutil
+
+    t = psutil.Process(os.getpid()).cpu_times()
+    return t.user + t.system
+
+
 def _warm(dask_worker=None):
     from hedgerow.forest import warm_up
 
@@ -71,12 +78,14 @@ def surface_on(n_workers, X, y, rates, lams, trees):
                       dashboard_address=None) as cluster, Client(cluster) as client:
         client.run(_warm)
         client.run(_start_sampler)
+        cpu0 = client.run(_cpu_seconds)
         t = time.perf_counter()
         ts = tuning_surface(X, y, rates, lams, n_estimators=trees, progress=False,
                             random_state=0, client=client)
         seconds = time.perf_counter() - t
+        cpu = sum(client.run(_cpu_seconds).values()) - sum(cpu0.values())
         peaks = client.run(_read_peak)
-    return ts, seconds, peaks
+    return ts, seconds, peaks, cpu
 
 
 def main():
@@ -108,11 +117,13 @@ def main():
         print(f"  local, 1 thread:          {time.perf_counter() - t:7.1f} s")
     results = {}
     for workers in (1, 2):
-        ts, seconds, peaks = surface_on(workers, X, y, rates, lams, args.trees)
+        ts, seconds, peaks, cpu = surface_on(workers, X, y, rates, lams, args.trees)
         results[workers] = (ts, seconds)
         peak_text = ", ".join(f"{_mib(p):.0f}" for p in peaks.values())
-        print(f"  {workers} worker process(es): {seconds:7.1f} s   peak RSS per worker "
-              f"(MiB): {peak_text}")
+        # CPU seconds the workers got per wall second: 2.0 would be both cores to
+        # ourselves; less means other processes took their share of the machine
+        print(f"  {workers} worker process(es): {seconds:7.1f} s   workers used "
+              f"{cpu / seconds:4.2f} cores   peak RSS per worker (MiB): {peak_text}")
     same = results[1][0].frame.equals(results[2][0].frame)
     if args.local:
         same = same and local.frame.equals(results[2][0].frame)

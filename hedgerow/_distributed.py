@@ -132,12 +132,15 @@ def run_tasks(client, fn, items, *, shared=(), what="task", priorities=None,
     token = uuid.uuid4().hex[:12]
     data = client.scatter(list(shared), broadcast=True, hash=False) if shared else []
     prefix = f"hedgerow-{what.replace(' ', '-')}-{token}"
+    # submitted highest priority first as well: the first tasks go to idle workers as
+    # soon as they arrive, before the scheduler has seen the priorities of the others
+    order = sorted(range(n), key=lambda i: -priorities[i])
     futures = [
-        client.submit(_run_unit, fn, item, *data, key=f"{prefix}-{i}",
+        client.submit(_run_unit, fn, items[i], *data, key=f"{prefix}-{i}",
                       priority=int(priorities[i]))
-        for i, item in enumerate(items)
+        for i in order
     ]
-    index = {f.key: i for i, f in enumerate(futures)}
+    index = {f.key: i for i, f in zip(order, futures, strict=True)}
     results: dict = {}
     try:
         for fut in as_completed(futures):

@@ -145,3 +145,24 @@ def test_run_control_follows_and_stops_a_long_run():
         bar.update(1)
     assert seen == [(1, 4), (2, 4), (3, 4)]
     assert isinstance(RunCancelled(), KeyboardInterrupt)
+
+
+@pytest.mark.parametrize("seed", [-1, 2.5, "x", True])
+def test_coverage_bad_random_state(data, seed):
+    X, y = data
+    m = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(X, y)
+    with pytest.raises(ValueError, match="The 'random_state' parameter must be None, an int"):
+        coverage_readout(m, reps=1, progress=False, random_state=seed)
+
+
+def test_coverage_seed_sequence_is_the_same_as_its_int(data):
+    # replications draw from children of SeedSequence(random_state): an int and the
+    # sequence made from it give the same report, another int another one
+    X, y = data
+    m = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(X, y)
+    kw = dict(reps=2, n_eval=30, progress=False)
+    a = coverage_readout(m, random_state=5, **kw).frame
+    b = coverage_readout(m, random_state=np.random.SeedSequence(5), **kw).frame
+    c = coverage_readout(m, random_state=6, **kw).frame
+    assert a.equals(b)
+    assert not a["mean_width"].equals(c["mean_width"])
