@@ -106,7 +106,7 @@ def _fresh(value):
 
 
 def _run_unit(fn, item, *shared):
-    # An array received from another worker sits at an arbitrary offset of its frame
+    # An array received over the network sits at an arbitrary offset of its frame
     # (seen: addresses 17 and 29 mod 64, not even 8-byte aligned), and the results were
     # then not bit-identical: a 2-worker tuning surface differed from the local one by
     # ~1e-6 in RMSE until the inputs were copied. A fresh allocation is laid out as the

@@ -152,6 +152,25 @@ def test_tasks_get_inputs_in_memory_of_their_own(client, data):
     assert all(v == (0, True, float(big.sum())) for v in out.values()), out
 
 
+def test_lost_task_is_a_clear_error(client):
+    # what the scheduler raises for a task whose workers died too often
+    from hedgerow._distributed import run_tasks
+
+    def doomed(item):
+        import types
+
+        import distributed
+
+        if item == 2:
+            gone = types.SimpleNamespace(address="tcp://gone:1")
+            raise distributed.KilledWorker("task", gone, 3)
+        return item
+
+    with pytest.raises(RuntimeError, match="The dask cluster lost probe 2 of 4 .*KilledWorker"):
+        run_tasks(client, doomed, [0, 1, 2, 3], what="probe")
+    assert _wait_until_no_hedgerow_tasks(client) == []
+
+
 # -- distributed fit --------------------------------------------------------------------
 @pytest.mark.parametrize("make", [
     lambda: HonestForestRegressor(n_estimators=48, trees_per_bag=6, random_state=4),
