@@ -26,6 +26,7 @@ from hedgerow.inference import (
     little_bags_variance,
 )
 from hedgerow.local import (
+    LocalFit,
     default_scale,
     moment_features,
     moments_from_sums,
@@ -33,6 +34,9 @@ from hedgerow.local import (
 )
 
 __all__ = ["LocalLinearForestRegressor", "RIDGE_GRID", "SPLIT_PENALTY_AUTO"]
+
+#: Largest number of (query, tree) terms slope_std stacks into one pass.
+_STACKED_TERMS = 20_000_000
 
 #: Penalties tried by ``ridge_penalty="auto"`` (on standardised slopes; see the solver).
 RIDGE_GRID = (0.0, 1e-4, 3e-4, 1e-3, 3e-3, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0)
@@ -408,10 +412,28 @@ class LocalLinearForestRegressor(_ForestBase):
         leaves, W, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
         Qc = X[:, self.correction_features_]
+        m, k = fit.slopes.shape
         out = np.empty_like(fit.slopes)
-        for j in range(out.shape[1]):
-            psi = self._tree_terms(leaves, None, Qc, fit, row=j + 1)
-            out[:, j] = little_bags_variance(psi, self.trees_per_bag_).std
+        if k == 0:
+            return out
+        # all k rows of the inverse Gram in one pass (a probe asks for one point, where
+        # per-call overhead dominates); loop over rows when the stacked terms grow large
+        step = max(1, min(k, _STACKED_TERMS // max(1, m * leaves.shape[1])))
+        for j0 in range(0, k, step):
+            js = range(j0, min(k, j0 + step))
+            n_j = len(js)
+            stacked = LocalFit(
+                intercept=np.tile(fit.intercept, n_j),
+                slopes=np.tile(fit.slopes, (n_j, 1)),
+                slopes_std=np.tile(fit.slopes_std, (n_j, 1)),
+                gram_inv=np.concatenate([fit.gram_inv[:, [0, j + 1], :] for j in js]),
+                fallback=np.tile(fit.fallback, n_j),
+                ridge_penalty=fit.ridge_penalty,
+            )
+            psi = self._tree_terms(np.tile(leaves, (n_j, 1)), None, np.tile(Qc, (n_j, 1)),
+                                   stacked, row=1)
+            std = little_bags_variance(psi, self.trees_per_bag_).std
+            out[:, j0:j0 + n_j] = std.reshape(n_j, m).T
         return out / self.correction_scale_
 
     def predict_variance(self, X, *, ridge_penalty=None):
