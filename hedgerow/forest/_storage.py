@@ -289,8 +289,11 @@ class ForestArrays:
         np.cumsum(lengths, out=indptr[1:])
         indices = np.empty(indptr[-1], dtype=np.int32)
         data = np.empty(indptr[-1])
-        for (a, b), part in zip(pieces, parts, strict=True):
-            _place_rows(part[0], part[1], part[2], dest[a:b], indptr, indices, data)
+        # chunks write disjoint rows: copy them in parallel (the first touch of the
+        # fresh output pages is a large share of this step)
+        _map(lambda job: _place_rows(job[1][0], job[1][1], job[1][2], dest[job[0][0]:job[0][1]],
+                                     indptr, indices, data),
+             list(zip(pieces, parts, strict=True)), n_jobs)
         W = sp.csr_matrix((data, indices, indptr), shape=(m, self.n_train), copy=False)
         W.has_sorted_indices = True
         return W, n_used
