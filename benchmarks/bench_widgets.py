@@ -43,6 +43,8 @@ def main(argv=None):
     # the comparison smoothers, fitted once (see the module docstring)
     app.session._smoothers = [NadarayaWatsonRegressor(bandwidth=args.bandwidth).fit(X, y),
                               LocalLinearRegressor(bandwidth=args.bandwidth).fit(X, y)]
+    # the explorer just opened: let its background interval-width readout finish first
+    assert app.tuning_view.wait_for_width(120)
     view = app.probe_view
     j = app.session.feature_names.index(view.feature)
     xs = np.quantile(X[:, j], np.linspace(0.02, 0.98, 41))

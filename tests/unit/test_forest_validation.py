@@ -446,3 +446,33 @@ def test_failed_first_fit_leaves_estimator_unfitted(Xy):
     assert not hasattr(est, "n_features_in_")
     with pytest.raises(ValueError, match="not fitted"):
         est.predict(X)
+
+
+def test_fast_predict_path_keeps_the_checks_of_the_general_one():
+    """Well-formed float64 input skips scikit-learn's general checks; everything else
+    still gets them: wrong names or order raise, a plain array for a named fit warns,
+    NaN raises, and the values reaching the model are the same either way."""
+
+    from hedgerow._validation import _fast_predict_data, check_predict_data
+
+    rng = np.random.default_rng(0)
+    X = rng.uniform(size=(120, 3))
+    y = X[:, 0] + rng.normal(0, 0.1, 120)
+    frame = pd.DataFrame(X, columns=["a", "b", "c"])
+    named = HonestForestRegressor(n_estimators=10, random_state=0).fit(frame, y)
+    plain = HonestForestRegressor(n_estimators=10, random_state=0).fit(X, y)
+    np.testing.assert_array_equal(_fast_predict_data(plain, X[:5]), X[:5])
+    np.testing.assert_array_equal(_fast_predict_data(named, frame.iloc[:5]), X[:5])
+    assert _fast_predict_data(named, frame[["b", "a", "c"]]) is None
+    assert _fast_predict_data(named, X[:5]) is None
+    assert _fast_predict_data(plain, X[:5, :2]) is None
+    with pytest.raises(ValueError, match="feature names"):
+        check_predict_data(named, frame[["b", "a", "c"]])
+    with pytest.warns(UserWarning, match="valid feature names"):
+        check_predict_data(named, X[:5])
+    bad = X[:5].copy()
+    bad[2, 1] = np.nan
+    assert _fast_predict_data(plain, bad) is None
+    with pytest.raises(ValueError, match="NaN"):
+        check_predict_data(plain, bad)
+    np.testing.assert_array_equal(named.predict(frame.iloc[:7]), plain.predict(X[:7]))
