@@ -62,7 +62,7 @@ class RunControl:
 
     # the progress-bar protocol used by the loops
     def _start(self, total, desc):
-        self.total, self.desc, self.done = int(total), desc, 0
+        self.total, self.desc, self.done = (None if total is None else int(total)), desc, 0
         return self
 
     def update(self, n=1):
@@ -70,7 +70,8 @@ class RunControl:
         if self._on_update is not None:
             self._on_update(self.done, self.total)
         if self._cancel.is_set():
-            raise RunCancelled(f"{self.desc} cancelled after {self.done} of {self.total} steps")
+            of = "" if self.total is None else f" of {self.total}"
+            raise RunCancelled(f"{self.desc} cancelled after {self.done}{of} steps")
 
     def set_postfix_str(self, s):
         pass
@@ -79,7 +80,7 @@ class RunControl:
         pass
 
 
-def progress_bar(total: int, desc: str, enabled=True):
+def progress_bar(total: int | None, desc: str, enabled=True):
     """Return a progress bar (a notebook widget under Jupyter), a run control or a stand-in.
 
     ``enabled`` is a bool or a :class:`RunControl` (which is returned, set to ``total``).

@@ -70,14 +70,15 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         tags.input_tags.sparse = False
         return tags
 
-    def _resolve_bandwidth(self, X, y, scale):
+    def _resolve_bandwidth(self, X, y, scale, progress=False):
         """Return ``(bandwidth in the units of X, CVCurve or None)``."""
         bw = self.bandwidth
         d = X.shape[1]
         if isinstance(bw, str):
             if bw == "silverman":
                 return silverman_bandwidth(X), None
-            curve = select_bandwidth_cv(X, y, kernel=self.kernel, degree=self._degree)
+            curve = select_bandwidth_cv(X, y, kernel=self.kernel, degree=self._degree,
+                                        progress=progress)
             return curve.bandwidth.copy(), curve
         if isinstance(bw, bool | np.bool_):
             raise ValueError(
@@ -103,13 +104,17 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             )
         return values * scale, None
 
-    def fit(self, X, y):
+    def fit(self, X, y, *, progress=False):
         """Return the fitted estimator after choosing the bandwidths.
 
         Parameters
         ----------
         X : array-like of shape (n_samples, n_features)
         y : array-like of shape (n_samples,)
+        progress : bool or RunControl, default=False
+            With ``bandwidth="cv"``, a bar counting the leave-one-out evaluations of the
+            search (it can take a while on wide data); Ctrl-C stops it and the
+            estimator keeps its earlier fitted state.
 
         Returns
         -------
@@ -120,7 +125,7 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         try:
             X, y = check_fit_data(self, X, y)
             scale = default_scale(X)
-            bandwidth, curve = self._resolve_bandwidth(X, y, scale)
+            bandwidth, curve = self._resolve_bandwidth(X, y, scale, progress)
         except BaseException:
             for a in _INPUT_ATTRS:
                 self.__dict__.pop(a, None)

@@ -175,7 +175,8 @@ class CVCurve:
     loo_error: float
 
 
-def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0) -> CVCurve:
+def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
+                        progress=False) -> CVCurve:
     """Return the bandwidths minimising leave-one-out CV, one per column, with the search.
 
     Stage 1 evaluates :data:`CV_GRID_FACTORS` times the Silverman bandwidths (a common
@@ -191,11 +192,17 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0) -> CVCu
     y : array-like of shape (n,)
     kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
     degree : {0, 1}, default=0
+    progress : bool or RunControl, default=False
+        Show a bar counting the leave-one-out evaluations (their number depends on the
+        search, so the bar has no total). Ctrl-C (or a cancelled RunControl) stops the
+        search by raising; an estimator's fit then keeps its earlier state.
 
     Returns
     -------
     CVCurve
     """
+    from hedgerow._progress import progress_bar
+
     X = np.asarray(X, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64).ravel()
     d = X.shape[1]
@@ -206,17 +213,29 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0) -> CVCu
     path_h: list[np.ndarray] = []
     path_e: list[float] = []
 
+    label = "local linear" if degree else "Nadaraya-Watson"
+    bar = progress_bar(None, f"{label} bandwidths (leave-one-out CV)", progress)
+
     def evaluate(h, record=True):
         key = tuple(np.round(np.log(h), 12))
         if key not in seen:
             resid = _loo_residuals(X, y, h, kernel, degree, scale)
             ok = np.all(np.isfinite(resid))
             seen[key] = float(np.mean(resid**2)) if ok else np.inf
+            bar.update(1)
             if record:
                 path_h.append(h.copy())
                 path_e.append(seen[key])
         return seen[key]
 
+    try:
+        return _search(base, lo, hi, d, evaluate, path_h, path_e)
+    finally:
+        bar.close()
+
+
+def _search(base, lo, hi, d, evaluate, path_h, path_e):
+    """Grid over a common factor, then per-column pattern search (see the caller)."""
     grid_h = np.clip(CV_GRID_FACTORS[:, None] * base[None, :], lo, hi)
     grid_e = np.array([evaluate(h, record=False) for h in grid_h])
     best = int(np.argmin(grid_e))

@@ -115,9 +115,10 @@ class ExploreSession(t.HasTraits):
     def _fit_smoothers(self):
         from hedgerow.estimators._kernel import LocalLinearRegressor, NadarayaWatsonRegressor
 
+        # cross-validating bandwidths can take a while on wide data: show a bar each
         with _quiet():
-            return [NadarayaWatsonRegressor().fit(self._X, self._y),
-                    LocalLinearRegressor().fit(self._X, self._y)]
+            return [NadarayaWatsonRegressor().fit(self._X, self._y, progress=True),
+                    LocalLinearRegressor().fit(self._X, self._y, progress=True)]
 
     @property
     def model(self):

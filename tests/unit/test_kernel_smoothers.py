@@ -357,3 +357,25 @@ def test_float_bandwidth_means_standard_deviations():
     b = clone(a).set_params(bandwidth=[0.7, 0.7]).fit(X, y)
     np.testing.assert_allclose(a.bandwidth_, 0.7 * X.std(axis=0))
     np.testing.assert_array_equal(a.predict(X), b.predict(X))
+
+
+def test_cv_search_reports_each_evaluation_and_can_be_stopped():
+    """progress=RunControl sees one step per leave-one-out evaluation of the search; a
+    cancel stops the fit, which keeps the earlier fitted state."""
+    from hedgerow._progress import RunCancelled, RunControl
+
+    rng = np.random.default_rng(1)
+    X = rng.uniform(size=(120, 2))
+    y = np.sin(3 * X[:, 0]) + rng.normal(0, 0.1, 120)
+    seen = []
+    est = NadarayaWatsonRegressor(bandwidth="cv")
+    est.fit(X, y, progress=RunControl(lambda done, total: seen.append((done, total))))
+    curve = est.cv_curve_
+    # every distinct bandwidth evaluated once: the grid plus the recorded refinement path
+    assert seen[-1][0] == len(curve.grid_loo_error) + len(curve.path_loo_error)
+    assert all(total is None for _, total in seen)
+    before = est.predict(X[:5])
+    control = RunControl(lambda done, total: control.cancel() if done == 3 else None)
+    with pytest.raises(RunCancelled):
+        est.fit(X[::-1] * 2.0, y[::-1], progress=control)
+    np.testing.assert_array_equal(est.predict(X[:5]), before)
