@@ -179,8 +179,13 @@ def _gather_chunk(leaves, usable, leaf_ptr, leaf_means):
 _GROUP_QUERIES = 256
 
 
+#: Fewest rows a thread gets: below this, starting threads costs more than it saves (a
+#: probe asks about one point, a slice about a few dozen).
+_MIN_PIECE = 256
+
+
 def _chunks(m: int, n_jobs: int, size: int = 512):
-    step = max(1, min(size, -(-m // max(1, n_jobs))))
+    step = max(1, min(size, max(_MIN_PIECE, -(-m // max(1, n_jobs)))))
     return [(a, min(m, a + step)) for a in range(0, m, step)]
 
 
