@@ -89,12 +89,23 @@ def _weights_chunk(leaves, usable, leaf_ptr, leaf_rows, n):
             indices = ni
             data = nd
             cap = new_cap
-        rows = np.sort(touched[:n_t])
-        for q in range(n_t):
-            r = rows[q]
-            indices[nnz + q] = r
-            data[nnz + q] = acc[r] / used
-            acc[r] = 0.0
+        if n_t * 16 >= n:
+            # dense enough: a scan of the accumulator in row order beats sorting
+            q = nnz
+            for r in range(n):
+                v = acc[r]
+                if v != 0.0:
+                    indices[q] = r
+                    data[q] = v / used
+                    acc[r] = 0.0
+                    q += 1
+        else:
+            rows = np.sort(touched[:n_t])
+            for q in range(n_t):
+                r = rows[q]
+                indices[nnz + q] = r
+                data[nnz + q] = acc[r] / used
+                acc[r] = 0.0
         nnz += n_t
         indptr[i + 1] = nnz
     # views: the caller copies each row once into the final matrix
