@@ -25,8 +25,9 @@ __all__ = ["ForestArrays"]
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _apply_chunk(X, feature, threshold, left, right, node_start, leaf_start):
-    # tree-major: one tree's nodes stay in cache while every query descends it
+def _apply_chunk(X, feature, threshold, left, right, node_start, leaf_start, dest):
+    # tree-major: one tree's nodes stay in cache while every query descends it; the
+    # (B, m) scratch is transposed straight into the caller's rows ``dest`` (m, B)
     m = X.shape[0]
     B = node_start.shape[0] - 1
     out = np.empty((B, m), dtype=np.int32)
@@ -41,16 +42,18 @@ def _apply_chunk(X, feature, threshold, left, right, node_start, leaf_start):
                 else:
                     node = off + right[node]
             out[t, i] = ls + left[node]
-    return out.T.copy()
+    dest[:, :] = out.T
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _weights_chunk(leaves, usable, leaf_ptr, leaf_rows, n):
-    """CSR pieces (indptr, indices, data, n_used) of the forest weights of a query chunk.
+def _weights_chunk(leaves, queries, usable, leaf_ptr, leaf_rows, n):
+    """CSR pieces (indptr, indices, data, n_used) of the forest weights of the queries
+    ``queries`` (row numbers of ``leaves``, visited in that order).
 
-    ``usable`` is (m, B) bool, or (0, 0) meaning every tree is usable.
+    ``usable`` is (M, B) bool like ``leaves``, or (0, 0) meaning every tree is usable.
     """
-    m, B = leaves.shape
+    m = queries.shape[0]
+    B = leaves.shape[1]
     all_usable = usable.shape[0] == 0
     acc = np.zeros(n)
     touched = np.empty(n, dtype=np.int64)
@@ -61,12 +64,13 @@ def _weights_chunk(leaves, usable, leaf_ptr, leaf_rows, n):
     n_used = np.zeros(m, dtype=np.int64)
     nnz = 0
     for i in range(m):
+        row = queries[i]
         n_t = 0
         used = 0
         for t in range(B):
-            if not all_usable and not usable[i, t]:
+            if not all_usable and not usable[row, t]:
                 continue
-            leaf = leaves[i, t]
+            leaf = leaves[row, t]
             a = leaf_ptr[leaf]
             b = leaf_ptr[leaf + 1]
             if b <= a:
@@ -241,18 +245,16 @@ class ForestArrays:
     def apply(self, X: np.ndarray, n_jobs: int = 1) -> np.ndarray:
         """Return the (m, B) int32 matrix of global leaf ids of every query in every tree."""
         X = np.ascontiguousarray(X, dtype=np.float64)
-        pieces = _chunks(X.shape[0], n_jobs, size=2048)
-        parts = _map(
+        out = np.empty((X.shape[0], self.n_trees), dtype=np.int32)
+        _map(
             lambda ab: _apply_chunk(
                 X[ab[0]:ab[1]], self.feature, self.threshold, self.left, self.right,
-                self.node_start, self.leaf_start,
+                self.node_start, self.leaf_start, out[ab[0]:ab[1]],
             ),
-            pieces,
+            _chunks(X.shape[0], n_jobs, size=2048),
             n_jobs,
         )
-        if not parts:
-            return np.empty((0, self.n_trees), dtype=np.int32)
-        return np.concatenate(parts, axis=0)
+        return out
 
     def inbag(self, rows: np.ndarray) -> np.ndarray:
         """Return the (len(rows), B) bool matrix: True where tree t drew training row i."""
@@ -272,30 +274,27 @@ class ForestArrays:
         if m >= _GROUP_QUERIES and leaves.shape[1] > 0:
             keys = tuple(leaves[:, t] for t in range(min(3, leaves.shape[1]) - 1, -1, -1))
             order = np.lexsort(keys)
-            leaves = np.ascontiguousarray(leaves[order])
-            usable = None if usable is None else np.ascontiguousarray(usable[order])
         else:
             order = None
         return self._weights_in_order(leaves, usable, n_jobs, order)
 
     def _weights_in_order(self, leaves, usable, n_jobs, order=None):
-        """Weights of the queries in ``leaves``; row r belongs to query ``order[r]``."""
+        """Weights of the queries in ``leaves``, visited in ``order`` (default: as given)."""
         m = leaves.shape[0]
-        empty = np.zeros((0, 0), dtype=np.bool_)
+        leaves = np.ascontiguousarray(leaves)
+        u = (np.zeros((0, 0), dtype=np.bool_) if usable is None
+             else np.ascontiguousarray(usable))
         pieces = _chunks(m, n_jobs)
+        dest = np.arange(m) if order is None else np.asarray(order, dtype=np.int64)
 
         def run(ab):
             a, b = ab
-            u = empty if usable is None else np.ascontiguousarray(usable[a:b])
-            return _weights_chunk(
-                np.ascontiguousarray(leaves[a:b]), u, self.leaf_ptr, self.leaf_rows,
-                self.n_train,
-            )
+            return _weights_chunk(leaves, dest[a:b], u, self.leaf_ptr, self.leaf_rows,
+                                  self.n_train)
 
         parts = _map(run, pieces, n_jobs)
         if not parts:
             return sp.csr_matrix((0, self.n_train)), np.zeros(0, dtype=np.int64)
-        dest = np.arange(m) if order is None else np.asarray(order, dtype=np.int64)
         lengths = np.empty(m, dtype=np.int64)
         n_used = np.empty(m, dtype=np.int64)
         for (a, b), part in zip(pieces, parts, strict=True):
