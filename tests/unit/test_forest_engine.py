@@ -97,6 +97,26 @@ def test_weights_of_many_queries_do_not_depend_on_leaf_grouping(bagged, friedman
         np.testing.assert_array_equal(n_grouped, n_plain)
 
 
+def test_branch_free_descent_equals_the_general_one(bagged, friedman_query):
+    """Our trees number children consecutively, so apply takes the arithmetic descent;
+    it must land in the same leaves as the general left/right descent (any remainder of
+    the four-query interleave included)."""
+    from hedgerow.forest._storage import _apply_chunk, _apply_chunk_adjacent
+
+    forest = bagged.forest_
+    assert forest._children_adjacent
+    for m in (1, 3, 4, 7, friedman_query.shape[0]):
+        Q = np.ascontiguousarray(friedman_query[:m])
+        general = np.empty((m, forest.n_trees), dtype=np.int32)
+        fast = np.empty_like(general)
+        _apply_chunk(Q, forest.feature, forest.threshold, forest.left, forest.right,
+                     forest.node_start, forest.leaf_start, general)
+        _apply_chunk_adjacent(Q, forest.feature, forest.threshold, forest.left,
+                              forest.node_start, forest.leaf_start, fast)
+        np.testing.assert_array_equal(fast, general)
+        np.testing.assert_array_equal(forest.apply(Q), general)
+
+
 def test_apply_descends_by_threshold(bagged, friedman_query):
     # Rebuild the leaf of each query by walking the stored nodes in Python.
     forest = bagged.forest_
