@@ -148,6 +148,13 @@ class ExploreSession(t.HasTraits):
                 self._cache.popitem(last=False)
         return value
 
+    def peek(self, key, per_penalty=True):
+        """Return what ``_cached`` holds under ``key`` for the current state, or None."""
+        key = ((self.generation, self.ridge_penalty) if per_penalty
+               else (self.generation, "any penalty")) + key
+        with self._lock:
+            return self._cache.get(key)
+
     def penalised_model(self):
         """The current forest seen at the session's ridge penalty (shared trees, no refit)."""
         return self._cached(("model",), lambda: D.at_ridge_penalty(self._model,

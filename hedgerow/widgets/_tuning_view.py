@@ -79,7 +79,6 @@ class TuningView(View):
                                                disabled=True, layout=W.Layout(width="200px"))
         self.coverage_cancel_button.on_click(self._on_coverage_cancel_clicked)
         self._coverage_control = None
-        self._full_summaries = {}  # (generation, penalty) -> oob summary with the width
         self._width_lock = threading.Lock()
         self._draw_lock = threading.RLock()
         self._width_thread = None
@@ -169,7 +168,7 @@ class TuningView(View):
         with self._draw_lock, self._shown_errors("drawing the tuning view"):
             s = self._session
             key = (s.generation, s.ridge_penalty)
-            summary = self._full_summaries.get(key)
+            summary = s.peek(("oob",))  # the full summary, once the width thread has it
             pending = summary is None
             if pending:
                 # RMSE now; the interval width (little-bags errors of every training row,
@@ -199,16 +198,13 @@ class TuningView(View):
             if key != (s.generation, s.ridge_penalty):
                 continue  # the slider moved on before we started
             try:
-                summary = s.oob_summary()  # session cache: the full summary at this key
+                s.oob_summary()  # fills the session cache: the full summary at this key
             except Exception as exc:  # shown in the view, never lost
                 log.exception("out-of-bag interval width failed")
                 s._on_ui(lambda exc=exc: setattr(
                     self, "error", f"computing the interval width: {type(exc).__name__}: "
                                    f"{exc}"))
                 continue
-            self._full_summaries[key] = summary
-            while len(self._full_summaries) > 32:
-                self._full_summaries.pop(next(iter(self._full_summaries)))
             s._on_ui(lambda key=key: self._width_ready(key))
 
     def _width_ready(self, key):
@@ -223,7 +219,7 @@ class TuningView(View):
             thread = self._width_thread
             if thread is None or not thread.is_alive():
                 s = self._session
-                return (s.generation, s.ridge_penalty) in self._full_summaries
+                return s.peek(("oob",)) is not None
             thread.join(min(0.5, max(0.0, deadline - time.monotonic())))
         return False
 
