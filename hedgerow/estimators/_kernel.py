@@ -26,6 +26,7 @@ from hedgerow._validation import (
 )
 from hedgerow.kernels import (
     KERNELS,
+    kernel_sums,
     kernel_weights,
     loo_residuals,
     select_bandwidth_cv,
@@ -34,7 +35,6 @@ from hedgerow.kernels import (
 from hedgerow.local import (
     default_scale,
     equivalent_kernel,
-    local_moments,
     moment_features,
     moments_from_sums,
     solve_local,
@@ -141,33 +141,42 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         return self
 
     def _local_fit(self, X):
+        """Return the local fits at the rows of ``X`` (cached by the contents of ``X``)."""
         return lru_lookup(self._variance_cache, "local fits", array_key(X),
                           lambda: self._compute_local_fit(X))
 
-    def _compute_local_fit(self, X):
-        # Row scaling does not change a local fit, so the weights need no normalising.
-        W = kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel, normalize=False)
-        if self._degree == 0:
-            moments = local_moments(
-                W, self.X_train_, self.y_train_, X, degree=0, scale=self.scale_
+    def _query_weights(self, X):
+        """Return the unnormalised kernel weights at ``X`` (standard errors need them)."""
+        return lru_lookup(self._variance_cache, "query weights", array_key(X),
+                          lambda: kernel_weights(self.X_train_, X, self.bandwidth_,
+                                                 self.kernel, normalize=False))
+
+    def _features(self):
+        """Return ``(B, centre)`` of the training rows (fit-scoped, built once)."""
+        cache = self._variance_cache
+        if "features" not in cache:
+            cache["features"] = moment_features(
+                self.X_train_, self.y_train_, self.scale_, degree=self._degree
             )
-        else:
-            # the training rows' moment features depend on the fit only: built once
-            feats = self._variance_cache
-            if "features" not in feats:
-                feats["features"] = moment_features(self.X_train_, self.y_train_, self.scale_)
-            B, centre = feats["features"]
-            moments = moments_from_sums(np.asarray(W @ B), X, centre, self.scale_)
-        return W, solve_local(moments, 0.0)
+        return cache["features"]
+
+    def _compute_local_fit(self, X):
+        # The weighted sums come from dense kernel blocks without forming the weight
+        # matrix; a local fit does not depend on the scaling of a row of weights.
+        B, centre = self._features()
+        R = kernel_sums(self.X_train_, X, self.bandwidth_, B, self.kernel)
+        moments = moments_from_sums(R, X, centre, self.scale_, degree=self._degree)
+        return solve_local(moments, 0.0)
 
     def _training_variance(self):
         """Return sigma^2(x_i) at the training rows: smoothed squared residuals."""
         if "sigma2" not in self._variance_cache:
             X = self.X_train_
-            W, fit = self._compute_local_fit(X)  # not kept: an n × n weight matrix
+            fit = self._compute_local_fit(X)  # not cached: one of n queries
             resid2 = (self.y_train_ - fit.intercept) ** 2
-            total = np.asarray(W.sum(axis=1)).ravel()
-            self._variance_cache["sigma2"] = np.asarray(W @ resid2).ravel() / total
+            R = kernel_sums(X, X, self.bandwidth_, np.stack([np.ones_like(resid2), resid2], 1),
+                            self.kernel)
+            self._variance_cache["sigma2"] = R[:, 1] / R[:, 0]
         return self._variance_cache["sigma2"]
 
     def __getstate__(self):
@@ -179,18 +188,19 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         """Return a shallow copy for one block of a lazy prediction.
 
         The fit-scoped pieces (training moment features, smoothed squared residuals) are
-        computed once on this object and shared; the per-query local fits (an m × n
-        weight matrix each) stay with the block, so concurrent blocks do not pile up in
-        one LRU.
+        computed once on this object and shared; the per-query caches (local fits, and
+        the m × n weight matrices of standard errors) stay with the block, so concurrent
+        blocks do not pile up in one LRU.
         """
-        cache = self._variance_cache
-        if self._degree == 1 and "features" not in cache:
-            cache["features"] = moment_features(self.X_train_, self.y_train_, self.scale_)
+        self._features()
         if with_std:
             self._training_variance()
         view = type(self).__new__(type(self))
         view.__dict__.update(self.__dict__)
-        view._variance_cache = {k: v for k, v in cache.items() if k != "local fits"}
+        view._variance_cache = {
+            k: v for k, v in self._variance_cache.items()
+            if k not in ("local fits", "query weights")
+        }
         return view
 
     def loo_predict(self):
@@ -252,10 +262,10 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             names = ("mean", "std") if return_std else ("mean",)
             return lazy_predict(self, X, "predict", names, return_std=bool(return_std))
         X = check_predict_data(self, X)
-        W, fit = self._local_fit(X)
+        fit = self._local_fit(X)
         if not return_std:
             return fit.intercept
-        L = equivalent_kernel(W, self.X_train_, X, fit, self.scale_)
+        L = equivalent_kernel(self._query_weights(X), self.X_train_, X, fit, self.scale_)
         var = np.asarray(L.multiply(L) @ self._training_variance()).ravel()
         std = np.sqrt(np.maximum(var, 0.0))
         std[np.isnan(fit.intercept)] = np.nan
@@ -353,7 +363,7 @@ class LocalLinearRegressor(_KernelSmoother):
             design was singular and the fit fell back to the weighted mean).
         """
         X = check_predict_data(self, X)
-        return self._local_fit(X)[1].slopes
+        return self._local_fit(X).slopes
 
 
 # One parameter section for both smoothers, kept in one place.

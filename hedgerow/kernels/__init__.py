@@ -1,4 +1,4 @@
-"""Kernel functions, sparse kernel weight matrices and bandwidth rules."""
+"""Kernel functions, sparse kernel weight matrices, dense weighted sums, bandwidth rules."""
 
 from hedgerow.kernels._bandwidth import (
     CV_GRID_FACTORS,
@@ -14,6 +14,7 @@ from hedgerow.kernels._kernels import (
     GAUSSIAN_TRUNCATION,
     KERNELS,
     kernel_profile,
+    kernel_sums,
     kernel_weights,
 )
 
@@ -25,6 +26,7 @@ __all__ = [
     "KERNELS",
     "LOO_DIRECT_LEVERAGE",
     "kernel_profile",
+    "kernel_sums",
     "kernel_weights",
     "loo_cv_error",
     "loo_residuals",

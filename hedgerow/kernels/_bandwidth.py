@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from hedgerow.kernels._kernels import kernel_weights
-from hedgerow.local import default_scale, local_moments, solve_local
+from hedgerow.kernels._kernels import kernel_sums
+from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
 
 __all__ = [
     "CV_GRID_FACTORS",
@@ -84,21 +84,25 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
     digits, and Gaussian truncation against the row's own (self) weight may have dropped
     all of its neighbours.
     """
-    # Unnormalised rows: leverages and fits do not depend on the scaling of a row.
-    W = kernel_weights(X, X, bandwidth, kernel, normalize=False)
-    moments = local_moments(W, X, y, X, degree=degree, scale=scale)
+    # Unnormalised rows: leverages and fits do not depend on the scaling of a row. The
+    # weighted sums come from dense kernel blocks; no n x n matrix is formed.
+    B, centre = moment_features(X, y, scale, degree=degree)
+    moments = moments_from_sums(kernel_sums(X, X, bandwidth, B, kernel), X, centre, scale,
+                                degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
         warnings.simplefilter("ignore", RuntimeWarning)
         fit = solve_local(moments, 0.0)
-        leverage = W.diagonal() * fit.gram_inv[:, 0, 0]
+        # A row's own unnormalised weight is k(0) = 1: it is its own nearest row, so the
+        # Gaussian shift is zero (a test checks the diagonal).
+        leverage = fit.gram_inv[:, 0, 0]
         with np.errstate(divide="ignore", invalid="ignore"):
             resid = (y - fit.intercept) / (1.0 - leverage)
         direct = np.flatnonzero(~(leverage <= LOO_DIRECT_LEVERAGE))
         if direct.size:
             Xd = X[direct]
-            Wd = kernel_weights(X, Xd, bandwidth, kernel, exclude=direct)
-            fd = solve_local(local_moments(Wd, X, y, Xd, degree=degree, scale=scale), 0.0)
+            Rd = kernel_sums(X, Xd, bandwidth, B, kernel, exclude=direct)
+            fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0)
             resid[direct] = y[direct] - fd.intercept
     return resid
 

@@ -230,19 +230,8 @@ def local_moments(W, X_c, y, Q_c, *, degree: int, scale=None) -> LocalMoments:
             f"Got {y.shape[0]} instead."
         )
     if degree == 0:
-        B = np.stack([np.ones(n), y], axis=1)
-        R = _weighted_sums(W, B)
-        empty = np.zeros((m, 0))
-        return LocalMoments(
-            degree=0,
-            scale=np.ones(0),
-            s0=R[:, 0].copy(),
-            s1=empty,
-            s2=np.zeros((m, 0, 0)),
-            t0=R[:, 1].copy(),
-            t1=empty.copy(),
-            roundoff=empty.copy(),
-        )
+        B, centre = moment_features(None, y, None, degree=0)
+        return moments_from_sums(_weighted_sums(W, B), None, centre, None, degree=0)
 
     X_c = np.asarray(X_c, dtype=np.float64)
     Q_c = np.asarray(Q_c, dtype=np.float64)
@@ -267,16 +256,19 @@ def local_moments(W, X_c, y, Q_c, *, degree: int, scale=None) -> LocalMoments:
     return moments_from_sums(_weighted_sums(W, B), Q_c, centre, scale)
 
 
-def moment_features(X_c, y, scale):
+def moment_features(X_c, y, scale, *, degree: int = 1):
     """Return ``(B, centre)``: per-row features whose weighted sums give the moments.
 
     ``B = [1, u, u u^T (upper triangle), y, u y]`` with ``u = (x - centre) / scale`` and
     ``centre`` the training mean of each column. Any weighting that can produce the
-    weighted sums ``W @ B`` (a sparse product, or averages of per-leaf means of ``B``)
-    can then call :func:`moments_from_sums`.
+    weighted sums ``W @ B`` (a sparse product, dense kernel blocks, or averages of
+    per-leaf means of ``B``) can then call :func:`moments_from_sums`. For ``degree=0``
+    ``B = [1, y]`` and ``X_c`` and ``scale`` are not used (``centre`` is empty).
     """
-    X_c = np.asarray(X_c, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64).ravel()
+    if degree == 0:
+        return np.ascontiguousarray(np.stack([np.ones(y.shape[0]), y], axis=1)), np.zeros(0)
+    X_c = np.asarray(X_c, dtype=np.float64)
     n, k = X_c.shape
     centre = X_c.mean(axis=0) if n else np.zeros(k)
     Xs = (X_c - centre) / scale
@@ -287,12 +279,27 @@ def moment_features(X_c, y, scale):
     return np.ascontiguousarray(B), centre
 
 
-def moments_from_sums(R, Q_c, centre, scale) -> LocalMoments:
-    """Return the degree-1 ``LocalMoments`` from weighted sums ``R = W @ B``.
+def moments_from_sums(R, Q_c, centre, scale, *, degree: int = 1) -> LocalMoments:
+    """Return the ``LocalMoments`` from weighted sums ``R = W @ B``.
 
-    ``B``, ``centre`` and ``scale`` as from :func:`moment_features`; the sums are centred
-    at each query algebraically.
+    ``B``, ``centre`` and ``scale`` as from :func:`moment_features` with the same
+    ``degree``; the degree-1 sums are centred at each query algebraically. For
+    ``degree=0`` only ``R`` is used.
     """
+    R = np.asarray(R, dtype=np.float64)
+    if degree == 0:
+        m = R.shape[0]
+        empty = np.zeros((m, 0))
+        return LocalMoments(
+            degree=0,
+            scale=np.ones(0),
+            s0=R[:, 0].copy(),
+            s1=empty,
+            s2=np.zeros((m, 0, 0)),
+            t0=R[:, 1].copy(),
+            t1=empty.copy(),
+            roundoff=empty.copy(),
+        )
     Q_c = np.asarray(Q_c, dtype=np.float64)
     m, k = Q_c.shape
     Qs = (Q_c - centre) / scale

@@ -12,12 +12,13 @@ from hedgerow.kernels import (
     KERNELS,
     CVCurve,
     kernel_profile,
+    kernel_sums,
     kernel_weights,
     loo_cv_error,
     select_bandwidth_cv,
     silverman_bandwidth,
 )
-from hedgerow.local import local_moments, solve_local
+from hedgerow.local import default_scale, local_moments, moment_features, solve_local
 
 SMOOTHERS = (NadarayaWatsonRegressor, LocalLinearRegressor)
 
@@ -127,6 +128,86 @@ def test_kernel_weight_arguments_are_checked():
         kernel_weights(X, X, [1.0, -1.0])
     with pytest.raises(ValueError, match=r"'Q' parameter must be a 2-d array with 2 columns"):
         kernel_weights(X, np.zeros((3, 3)), [1.0, 1.0])
+
+
+@pytest.mark.parametrize("kernel", KERNELS)
+@pytest.mark.parametrize("d", [1, 2, 3])
+def test_dense_sums_equal_the_sparse_product(kernel, d, monkeypatch):
+    import hedgerow.kernels._kernels as module
+
+    rng = np.random.default_rng(40 + d)
+    X = rng.normal(size=(150, d)) * np.arange(1.0, d + 1.0)
+    # queries inside the data, beside it and far outside (empty compact rows, Gaussian
+    # rows that only the shift keeps from underflowing)
+    Q = np.vstack([rng.normal(size=(30, d)), np.full((2, d), 40.0)])
+    y = np.sin(X[:, 0]) + rng.normal(size=150)
+    h = 0.4 * np.arange(1.0, d + 1.0)
+    exclude = rng.integers(-1, 150, size=Q.shape[0])
+    B, _ = moment_features(X, y, default_scale(X))
+    for excl in (None, exclude):
+        W = kernel_weights(X, Q, h, kernel, normalize=False, exclude=excl)
+        ref = W @ B
+        monkeypatch.setattr(module, "_DENSE_BLOCK_ENTRIES", 1 << 16)
+        whole = kernel_sums(X, Q, h, B, kernel, exclude=excl)
+        monkeypatch.setattr(module, "_DENSE_BLOCK_ENTRIES", 700)  # four queries a block
+        blocked = kernel_sums(X, Q, h, B, kernel, exclude=excl)
+        # the same entries summed in another order: equal up to round-off
+        np.testing.assert_allclose(whole, ref, rtol=1e-12, atol=1e-12 * np.abs(ref).max())
+        np.testing.assert_allclose(blocked, whole, rtol=1e-13, atol=1e-13 * np.abs(ref).max())
+        empty = np.asarray(W.sum(axis=1)).ravel() == 0
+        assert empty[-2:].all() == (kernel != "gaussian")
+        np.testing.assert_array_equal(whole[empty], 0.0)
+        assert np.all(whole[~empty, 0] > 0)
+
+
+@pytest.mark.parametrize("kernel", KERNELS)
+def test_own_unnormalised_weight_is_one(kernel):
+    # Leave-one-out leverages rely on it: L_ii = w_ii (M_i^-1)_00 with w_ii = k(0) = 1.
+    rng = np.random.default_rng(8)
+    X = rng.normal(size=(60, 3)) * [1.0, 100.0, 0.01] + [0.0, 1e4, -3.0]
+    X[10] = X[11]  # a tied pair
+    W = kernel_weights(X, X, [0.3, 20.0, 0.004], kernel, normalize=False)
+    np.testing.assert_array_equal(W.diagonal(), 1.0)
+
+
+def test_dense_sums_leave_out_the_excluded_row_entirely():
+    X = np.array([[0.0], [5.0]])
+    B = np.array([[1.0, 2.0], [1.0, 3.0]])
+    # Row 0 is its own nearest row; without it the Gaussian row is rescaled to row 1 alone.
+    np.testing.assert_array_equal(kernel_sums(X, X[:1], [0.5], B, exclude=[0]), [[1.0, 3.0]])
+    got = kernel_sums(X, X[:1], [0.5], B, "tricube", exclude=[0])
+    np.testing.assert_array_equal(got, [[0.0, 0.0]])
+    assert kernel_sums(X, np.zeros((0, 1)), [0.5], B).shape == (0, 2)
+
+
+def test_dense_sum_arguments_are_checked():
+    X = np.zeros((5, 2))
+    with pytest.raises(ValueError, match=r"'B' parameter must be a 2-d array with 5 rows"):
+        kernel_sums(X, X, [1.0, 1.0], np.zeros((4, 2)))
+    with pytest.raises(ValueError, match=r"'kernel' parameter must be one of .*Got 'box'"):
+        kernel_sums(X, X, [1.0, 1.0], np.zeros((5, 2)), "box")
+    with pytest.raises(ValueError, match=r"'exclude' parameter must hold 5 indices"):
+        kernel_sums(X, X, [1.0, 1.0], np.zeros((5, 2)), exclude=[0, 1])
+
+
+def test_compiled_exponential_is_within_one_ulp_of_numpy():
+    # numpy's exp is the reference (its float64 loops are accurate to within about one
+    # ulp, common practice); the Gaussian weights use the compiled one on [-700, 0].
+    from hedgerow.kernels._kernels import _EXP_LOWEST, _exp_inplace
+
+    rng = np.random.default_rng(3)
+    x = np.concatenate([
+        rng.uniform(_EXP_LOWEST, 0.0, 400_000),
+        rng.uniform(-1.0, 0.0, 100_000),
+        -np.log(2.0) * np.arange(0.0, 1000.0, 0.5),  # reduction boundaries
+        [0.0, -0.0, -1e-300, -5e-324, _EXP_LOWEST],
+    ])
+    x = x[x >= _EXP_LOWEST]
+    got = x.copy()
+    _exp_inplace(got)
+    ref = np.exp(x)
+    assert np.all(np.abs(got - ref) <= np.spacing(ref))
+    assert got[x == 0.0].tolist() == [1.0] * int((x == 0.0).sum())
 
 
 # ---------------------------------------------------------------------- bandwidth rules
