@@ -87,8 +87,9 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
     # Unnormalised rows: leverages and fits do not depend on the scaling of a row. The
     # weighted sums come from dense kernel blocks; no n x n matrix is formed.
     B, centre = moment_features(X, y, scale, degree=degree)
-    moments = moments_from_sums(kernel_sums(X, X, bandwidth, B, kernel), X, centre, scale,
-                                degree=degree)
+    # one fixed set of queries (the training rows): BLAS products (stable=False)
+    R = kernel_sums(X, X, bandwidth, B, kernel, stable=False)
+    moments = moments_from_sums(R, X, centre, scale, degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
         warnings.simplefilter("ignore", RuntimeWarning)
