@@ -34,7 +34,6 @@ from hedgerow.kernels import (
 )
 from hedgerow.local import (
     default_scale,
-    equivalent_kernel,
     moment_features,
     moments_from_sums,
     solve_local,
@@ -145,12 +144,6 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         return lru_lookup(self._variance_cache, "local fits", array_key(X),
                           lambda: self._compute_local_fit(X))
 
-    def _query_weights(self, X):
-        """Return the unnormalised kernel weights at ``X`` (standard errors need them)."""
-        return lru_lookup(self._variance_cache, "query weights", array_key(X),
-                          lambda: kernel_weights(self.X_train_, X, self.bandwidth_,
-                                                 self.kernel, normalize=False))
-
     def _features(self):
         """Return ``(B, centre)`` of the training rows (fit-scoped, built once)."""
         cache = self._variance_cache
@@ -160,22 +153,63 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             )
         return cache["features"]
 
-    def _compute_local_fit(self, X):
+    def _compute_local_fit(self, X, stable=True):
         # The weighted sums come from dense kernel blocks without forming the weight
         # matrix; a local fit does not depend on the scaling of a row of weights.
         B, centre = self._features()
-        R = kernel_sums(self.X_train_, X, self.bandwidth_, B, self.kernel)
+        R = kernel_sums(self.X_train_, X, self.bandwidth_, B, self.kernel, stable=stable)
         moments = moments_from_sums(R, X, centre, self.scale_, degree=self._degree)
         return solve_local(moments, 0.0)
+
+    def _variance_features(self):
+        """Return ``sigma^2(x_i) [1, u_i, u_i u_i^T]`` of the training rows (fit-scoped).
+
+        Their sums under squared weights are the moments from which
+        :meth:`_mean_variance` forms the variance of the fit.
+        """
+        cache = self._variance_cache
+        if "variance features" not in cache:
+            B, _ = self._features()
+            k = self.n_features_in_ if self._degree else 0
+            width = 1 + k + k * (k + 1) // 2  # the [1, u, u u^T] columns of B
+            cache["variance features"] = np.ascontiguousarray(
+                B[:, :width] * self._training_variance()[:, None]
+            )
+        return cache["variance features"]
+
+    def _mean_variance(self, X, fit):
+        """Return ``Var yhat(x) = sum_i l_i(x)^2 sigma^2(x_i)`` at the rows of ``X``.
+
+        The equivalent kernel is ``l_i(x) = w_i(x) g(x)^T [1, z_i(x)]`` with ``g`` the
+        first row of the inverse local Gram matrix (:func:`hedgerow.local.equivalent_kernel`),
+        so the sum is ``g^T V g`` with ``V = sum_i w_i^2 sigma^2(x_i) [1, z_i][1, z_i]^T``:
+        the local moments of the squared weights, summed in dense blocks like the fit.
+        """
+        V = kernel_sums(self.X_train_, X, self.bandwidth_, self._variance_features(),
+                        self.kernel, power=2)
+        g = fit.gram_inv[:, 0, :]
+        if self._degree == 0:
+            return g[:, 0] ** 2 * V[:, 0]
+        m, k = V.shape[0], self.n_features_in_
+        _, centre = self._features()
+        # moments_from_sums expects the response columns too; they are not needed here
+        mom = moments_from_sums(np.hstack([V, np.zeros((m, 1 + k))]), X, centre, self.scale_)
+        gram = np.empty((m, k + 1, k + 1))
+        gram[:, 0, 0] = mom.s0
+        gram[:, 0, 1:] = mom.s1
+        gram[:, 1:, 0] = mom.s1
+        gram[:, 1:, 1:] = mom.s2
+        return np.einsum("mi,mij,mj->m", g, gram, g)
 
     def _training_variance(self):
         """Return sigma^2(x_i) at the training rows: smoothed squared residuals."""
         if "sigma2" not in self._variance_cache:
             X = self.X_train_
-            fit = self._compute_local_fit(X)  # not cached: one of n queries
+            # The training rows are one fixed set of queries: BLAS products (stable=False).
+            fit = self._compute_local_fit(X, stable=False)  # not cached: one of n queries
             resid2 = (self.y_train_ - fit.intercept) ** 2
             R = kernel_sums(X, X, self.bandwidth_, np.stack([np.ones_like(resid2), resid2], 1),
-                            self.kernel)
+                            self.kernel, stable=False)
             self._variance_cache["sigma2"] = R[:, 1] / R[:, 0]
         return self._variance_cache["sigma2"]
 
@@ -188,18 +222,17 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         """Return a shallow copy for one block of a lazy prediction.
 
         The fit-scoped pieces (training moment features, smoothed squared residuals) are
-        computed once on this object and shared; the per-query caches (local fits, and
-        the m × n weight matrices of standard errors) stay with the block, so concurrent
-        blocks do not pile up in one LRU.
+        computed once on this object and shared; the per-query local fits stay with the
+        block, so concurrent blocks do not pile up in one LRU.
         """
         self._features()
         if with_std:
-            self._training_variance()
+            self._variance_features()
         view = type(self).__new__(type(self))
         view.__dict__.update(self.__dict__)
         view._variance_cache = {
             k: v for k, v in self._variance_cache.items()
-            if k not in ("local fits", "query weights")
+            if k != "local fits"
         }
         return view
 
@@ -265,9 +298,7 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         fit = self._local_fit(X)
         if not return_std:
             return fit.intercept
-        L = equivalent_kernel(self._query_weights(X), self.X_train_, X, fit, self.scale_)
-        var = np.asarray(L.multiply(L) @ self._training_variance()).ravel()
-        std = np.sqrt(np.maximum(var, 0.0))
+        std = np.sqrt(np.maximum(self._mean_variance(X, fit), 0.0))
         std[np.isnan(fit.intercept)] = np.nan
         return fit.intercept, std
 

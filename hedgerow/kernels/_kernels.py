@@ -396,7 +396,8 @@ def kernel_weights(
 
 
 def kernel_sums(
-    X_train, Q, bandwidth, B, kernel: str = "gaussian", *, exclude=None, stable: bool = True
+    X_train, Q, bandwidth, B, kernel: str = "gaussian", *, exclude=None, stable: bool = True,
+    power: int = 1,
 ):
     """Return ``W @ B`` for the unnormalised kernel weights ``W``, without forming ``W``.
 
@@ -426,14 +427,19 @@ def kernel_sums(
         whole blocks to BLAS: about 2-3x faster with many feature columns, but BLAS
         may sum in another order for another block layout; for sums over one fixed set of
         queries (leave-one-out over the training rows).
+    power : {1, 2}, default=1
+        Sum ``W[q, i] ** power * B[i]``: squared weights give the variance of a linear
+        smoother, ``sum_i l_i(q)^2 s_i``, as a quadratic form in its local fit.
 
     Returns
     -------
     ndarray of shape (m, p)
-        Row ``q`` is ``sum_i W[q, i] * B[i]``; all zero for a query with no training row
+        Row ``q`` is ``sum_i W[q, i] ** power * B[i]``; all zero for a query with no training row
         inside a compact kernel's support.
     """
     code, XT, Qs, skip = _prepare(X_train, Q, bandwidth, kernel, exclude)
+    if isinstance(power, bool) or power not in (1, 2):
+        raise ValueError(f"The 'power' parameter must be 1 or 2. Got {power!r} instead.")
     m, n = Qs.shape[0], XT.shape[1]
     B = np.asarray(B, dtype=np.float64)
     if B.ndim != 2 or B.shape[0] != n:
@@ -457,6 +463,8 @@ def kernel_sums(
             # numpy's row minimum is vectorised; a compiled loop is not (no reassociation)
             sh = np.min(part, axis=1, out=shift[: stop - start])
             _gaussian_weights(part, sh, log_cut)
+        if power == 2:
+            np.square(part, out=part)
         if stable:
             _row_products(part, BT, out[start:stop])
         else:
