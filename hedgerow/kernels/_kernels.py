@@ -56,6 +56,10 @@ _BLOCK_ENTRIES = 16_000_000
 # still in cache when the exponential and the product read it again.
 _DENSE_BLOCK_ENTRIES = 1 << 16
 
+# A row of weights with fewer than 1/8 of its entries non-zero is summed sparsely (only
+# its non-zero rows of B); a block that sparse skips BLAS too.
+_SPARSE_ROW_SHARE = 8
+
 
 
 def _check_kernel(kernel) -> int:
@@ -264,22 +268,38 @@ def _gaussian_weights_py(out, shift, log_cut):
             row[j] = w if v <= cut else 0.0
 
 
-def _row_products_py(part, BT, out):
-    """Write ``part @ BT.T`` into ``out``, one query row at a time.
+def _row_products_py(part, B, BT, out):
+    """Write ``part @ B`` into ``out``, one query row at a time.
 
-    Every row runs the same loop, so its result does not depend on the other rows of the
-    block (BLAS may tile differently by position). Reassociation lets the loop vectorise;
-    the order it picks is fixed by the compiled code and the length of the row.
+    Every row runs the same loops, chosen by its own number of non-zero weights, so its
+    result does not depend on the other rows of the block (BLAS may tile differently by
+    position). A dense row is one reduction per column of ``B`` (reassociation lets it
+    vectorise; the order is fixed by the compiled code and the row length); a row with
+    few non-zero weights (narrow bandwidths, many columns) adds up only those rows of
+    ``B``, in order.
     """
-    p, n = BT.shape
+    n, p = B.shape
     for r in range(part.shape[0]):
         row = part[r]
-        for c in range(p):
-            col = BT[c]
-            acc = 0.0
+        res = out[r]
+        nnz = 0
+        for j in range(n):
+            nnz += row[j] != 0.0
+        if nnz * _SPARSE_ROW_SHARE < n:
+            res[:] = 0.0
             for j in range(n):
-                acc += row[j] * col[j]
-            out[r, c] = acc
+                w = row[j]
+                if w != 0.0:
+                    Bj = B[j]
+                    for c in range(p):
+                        res[c] += w * Bj[c]
+        else:
+            for c in range(p):
+                col = BT[c]
+                acc = 0.0
+                for j in range(n):
+                    acc += row[j] * col[j]
+                res[c] = acc
 
 
 def _exp_inplace_py(data):
@@ -424,9 +444,10 @@ def kernel_sums(
         Sum each query's row with one compiled loop that does not depend on the other
         queries, so that a query gets the same bits whether it is asked alone, in chunks
         or with others (predictions stay reproducible under chunking). ``False`` hands
-        whole blocks to BLAS: about 2-3x faster with many feature columns, but BLAS
-        may sum in another order for another block layout; for sums over one fixed set of
-        queries (leave-one-out over the training rows).
+        whole blocks to BLAS (unless fewer than 1/8 of their weights are non-zero): about
+        2-3x faster with many feature columns, but BLAS may sum in another order for
+        another block layout; for sums over one fixed set of queries (leave-one-out over
+        the training rows).
     power : {1, 2}, default=1
         Sum ``W[q, i] ** power * B[i]``: squared weights give the variance of a linear
         smoother, ``sum_i l_i(q)^2 s_i``, as a quadratic form in its local fit.
@@ -454,7 +475,7 @@ def kernel_sums(
     block = max(1, min(m, _DENSE_BLOCK_ENTRIES // n))
     buf = np.empty((block, n))
     shift = np.empty(block)
-    BT = np.ascontiguousarray(B.T) if stable else None
+    BT = np.ascontiguousarray(B.T)
     for start in range(0, m, block):
         stop = min(m, start + block)
         part = buf[: stop - start]
@@ -465,8 +486,8 @@ def kernel_sums(
             _gaussian_weights(part, sh, log_cut)
         if power == 2:
             np.square(part, out=part)
-        if stable:
-            _row_products(part, BT, out[start:stop])
+        if stable or np.count_nonzero(part) * _SPARSE_ROW_SHARE < part.size:
+            _row_products(part, B, BT, out[start:stop])
         else:
             np.matmul(part, B, out=out[start:stop])
     return out

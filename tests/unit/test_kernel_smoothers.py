@@ -141,7 +141,8 @@ def test_kernel_weight_arguments_are_checked():
 
 @pytest.mark.parametrize("kernel", KERNELS)
 @pytest.mark.parametrize("d", [1, 2, 3])
-def test_dense_sums_equal_the_sparse_product(kernel, d, monkeypatch):
+@pytest.mark.parametrize("width", ["wide", "narrow"])
+def test_dense_sums_equal_the_sparse_product(kernel, d, width, monkeypatch):
     import hedgerow.kernels._kernels as module
 
     rng = np.random.default_rng(40 + d)
@@ -150,11 +151,14 @@ def test_dense_sums_equal_the_sparse_product(kernel, d, monkeypatch):
     # rows that only the shift keeps from underflowing)
     Q = np.vstack([rng.normal(size=(30, d)), np.full((2, d), 40.0)])
     y = np.sin(X[:, 0]) + rng.normal(size=150)
-    h = 0.4 * np.arange(1.0, d + 1.0)
+    h = (2.0 if width == "wide" else 0.01) * np.arange(1.0, d + 1.0)
     exclude = rng.integers(-1, 150, size=Q.shape[0])
     B, _ = moment_features(X, y, default_scale(X))
     for excl in (None, exclude):
         W = kernel_weights(X, Q, h, kernel, normalize=False, exclude=excl)
+        # narrow rows take the sparse loop (fewer than 1/8 non-zero), wide ones mostly not
+        sparse_rows = np.diff(W.indptr) * module._SPARSE_ROW_SHARE < W.shape[1]
+        assert sparse_rows.all() if width == "narrow" else sparse_rows.mean() < 0.5
         ref = W @ B
         monkeypatch.setattr(module, "_DENSE_BLOCK_ENTRIES", 1 << 16)
         whole = kernel_sums(X, Q, h, B, kernel, exclude=excl)
@@ -184,7 +188,8 @@ def test_own_unnormalised_weight_is_one(kernel):
 
 @pytest.mark.parametrize("est", SMOOTHERS)
 @pytest.mark.parametrize("shape", [(300, 2), (2000, 2), (700, 6)])
-def test_predictions_do_not_depend_on_the_other_queries(est, shape):
+@pytest.mark.parametrize("bandwidth", [0.5, 0.08])  # dense rows; mostly sparse rows
+def test_predictions_do_not_depend_on_the_other_queries(est, shape, bandwidth):
     # A query's prediction is the same bits alone, in chunks or in another order (dask
     # blocks and probes rely on it).
     n, d = shape
@@ -192,7 +197,7 @@ def test_predictions_do_not_depend_on_the_other_queries(est, shape):
     X = rng.uniform(size=(n, d))
     y = np.sin(4 * X[:, 0]) + X.sum(axis=1) + rng.normal(scale=0.2, size=n)
     Q = rng.uniform(size=(203, d))
-    model = est(bandwidth=0.5).fit(X, y)
+    model = est(bandwidth=bandwidth).fit(X, y)
     whole = model.predict(Q)
     chunks = np.concatenate([model.predict(Q[a : a + 37]) for a in range(0, len(Q), 37)])
     order = rng.permutation(len(Q))
