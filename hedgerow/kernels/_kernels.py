@@ -59,6 +59,7 @@ _DENSE_BLOCK_ENTRIES = 1 << 16
 # A row of weights with fewer than 1/8 of its entries non-zero is summed sparsely (only
 # its non-zero rows of B); a block that sparse skips BLAS too.
 _SPARSE_ROW_SHARE = 8
+_NO_ROWS = np.empty((0, 0))
 
 
 
@@ -268,38 +269,49 @@ def _gaussian_weights_py(out, shift, log_cut):
             row[j] = w if v <= cut else 0.0
 
 
-def _row_products_py(part, B, BT, out):
+def _row_nonzeros_py(part, nnz):
+    """Count the non-zero weights of each row (an integer sum: it vectorises)."""
+    for r in range(part.shape[0]):
+        row = part[r]
+        c = 0
+        for j in range(row.shape[0]):
+            c += row[j] != 0.0
+        nnz[r] = c
+
+
+def _row_products_py(part, B, BT, nnz, out, idx):
     """Write ``part @ B`` into ``out``, one query row at a time.
 
-    Every row runs the same loops, chosen by its own number of non-zero weights, so its
-    result does not depend on the other rows of the block (BLAS may tile differently by
-    position). A dense row is one reduction per column of ``B`` (reassociation lets it
-    vectorise; the order is fixed by the compiled code and the row length); a row with
-    few non-zero weights (narrow bandwidths, many columns) adds up only those rows of
-    ``B``, in order.
+    Every row runs the same loops, chosen by its own number of non-zero weights ``nnz``,
+    so its result does not depend on the other rows of the block (BLAS may tile
+    differently by position). A dense row is one reduction per column of ``B`` (through
+    ``BT = B.T``; reassociation lets it vectorise, in an order fixed by the compiled code
+    and the row length); a row with few non-zero weights (narrow bandwidths, many
+    columns) adds up only those rows of ``B``, in order (``idx`` is scratch).
     """
     n, p = B.shape
     for r in range(part.shape[0]):
         row = part[r]
         res = out[r]
-        nnz = 0
-        for j in range(n):
-            nnz += row[j] != 0.0
-        if nnz * _SPARSE_ROW_SHARE < n:
-            res[:] = 0.0
+        if nnz[r] * _SPARSE_ROW_SHARE < n:
+            c = 0
             for j in range(n):
+                idx[c] = j
+                c += row[j] != 0.0
+            res[:] = 0.0
+            for q in range(c):
+                j = idx[q]
                 w = row[j]
-                if w != 0.0:
-                    Bj = B[j]
-                    for c in range(p):
-                        res[c] += w * Bj[c]
+                Bj = B[j]
+                for k in range(p):
+                    res[k] += w * Bj[k]
         else:
-            for c in range(p):
-                col = BT[c]
+            for k in range(p):
+                col = BT[k]
                 acc = 0.0
                 for j in range(n):
                     acc += row[j] * col[j]
-                res[c] = acc
+                res[k] = acc
 
 
 def _exp_inplace_py(data):
@@ -321,6 +333,7 @@ _dense_block = _compile(_dense_block_py)
 _gaussian_weights = numba.njit(cache=True, fastmath={"contract"})(_gaussian_weights_py)
 _exp_inplace = numba.njit(cache=True, fastmath={"contract"})(_exp_inplace_py)
 _row_products = numba.njit(cache=True, fastmath={"reassoc", "contract"})(_row_products_py)
+_row_nonzeros = _compile(_row_nonzeros_py)
 
 
 def _prepare(X_train, Q, bandwidth, kernel, exclude):
@@ -462,7 +475,7 @@ def kernel_sums(
     if isinstance(power, bool) or power not in (1, 2):
         raise ValueError(f"The 'power' parameter must be 1 or 2. Got {power!r} instead.")
     m, n = Qs.shape[0], XT.shape[1]
-    B = np.asarray(B, dtype=np.float64)
+    B = np.ascontiguousarray(B, dtype=np.float64)
     if B.ndim != 2 or B.shape[0] != n:
         raise ValueError(
             f"The 'B' parameter must be a 2-d array with {n} rows (one per training row). "
@@ -475,7 +488,9 @@ def kernel_sums(
     block = max(1, min(m, _DENSE_BLOCK_ENTRIES // n))
     buf = np.empty((block, n))
     shift = np.empty(block)
-    BT = np.ascontiguousarray(B.T)
+    BT = None  # B.T for dense rows, built on first need (a copy of B); unused otherwise
+    nnz = np.empty(block, dtype=np.int64)
+    idx = np.empty(n, dtype=np.int64)
     for start in range(0, m, block):
         stop = min(m, start + block)
         part = buf[: stop - start]
@@ -486,8 +501,12 @@ def kernel_sums(
             _gaussian_weights(part, sh, log_cut)
         if power == 2:
             np.square(part, out=part)
-        if stable or np.count_nonzero(part) * _SPARSE_ROW_SHARE < part.size:
-            _row_products(part, B, BT, out[start:stop])
-        else:
+        counts = nnz[: stop - start]
+        _row_nonzeros(part, counts)
+        if not stable and counts.sum() * _SPARSE_ROW_SHARE >= part.size:
             np.matmul(part, B, out=out[start:stop])
+            continue
+        if BT is None and (counts * _SPARSE_ROW_SHARE >= n).any():
+            BT = np.ascontiguousarray(B.T)
+        _row_products(part, B, _NO_ROWS if BT is None else BT, counts, out[start:stop], idx)
     return out
