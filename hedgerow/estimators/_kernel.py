@@ -26,8 +26,7 @@ from hedgerow._validation import (
 )
 from hedgerow.kernels import (
     KERNELS,
-    kernel_sums,
-    kernel_weights,
+    KernelRows,
     loo_residuals,
     select_bandwidth_cv,
     silverman_bandwidth,
@@ -139,10 +138,26 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         self._variance_cache = {}
         return self
 
-    def _local_fit(self, X):
-        """Return the local fits at the rows of ``X`` (cached by the contents of ``X``)."""
-        return lru_lookup(self._variance_cache, "local fits", array_key(X),
-                          lambda: self._compute_local_fit(X))
+    def _local_fit(self, X, with_variance=False):
+        """Return ``(fit, variance or None)`` at the rows of ``X``.
+
+        Cached by the contents of ``X``: one probe asks for the same point several times,
+        and a fit computed with its variance also serves later requests without.
+        """
+        key = array_key(X)
+        entry = lru_lookup(self._variance_cache, "local fits", key,
+                           lambda: self._compute_local_fit(X, with_variance))
+        if with_variance and entry[1] is None:
+            entry = self._compute_local_fit(X, True)
+            self._variance_cache["local fits"][key] = entry
+        return entry
+
+    def _kernel_rows(self):
+        """Return the training rows prepared for kernel queries (fit-scoped)."""
+        cache = self._variance_cache
+        if "rows" not in cache:
+            cache["rows"] = KernelRows(self.X_train_, self.bandwidth_, self.kernel)
+        return cache["rows"]
 
     def _features(self):
         """Return ``(B, centre)`` of the training rows (fit-scoped, built once)."""
@@ -153,19 +168,25 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             )
         return cache["features"]
 
-    def _compute_local_fit(self, X, stable=True):
+    def _compute_local_fit(self, X, with_variance=False, stable=True):
         # The weighted sums come from dense kernel blocks without forming the weight
-        # matrix; a local fit does not depend on the scaling of a row of weights.
+        # matrix (a local fit does not depend on the scaling of a row of weights); the
+        # variance sums of squared weights come from the same pass.
         B, centre = self._features()
-        R = kernel_sums(self.X_train_, X, self.bandwidth_, B, self.kernel, stable=stable)
-        moments = moments_from_sums(R, X, centre, self.scale_, degree=self._degree)
-        return solve_local(moments, 0.0)
+        rows = self._kernel_rows()
+        if with_variance:
+            R, V = rows.sums(X, B, squared=self._variance_features(), stable=stable)
+        else:
+            R, V = rows.sums(X, B, stable=stable), None
+        fit = solve_local(moments_from_sums(R, X, centre, self.scale_, degree=self._degree),
+                          0.0)
+        return fit, (None if V is None else self._variance_from_sums(V, X, fit))
 
     def _variance_features(self):
         """Return ``sigma^2(x_i) [1, u_i, u_i u_i^T]`` of the training rows (fit-scoped).
 
         Their sums under squared weights are the moments from which
-        :meth:`_mean_variance` forms the variance of the fit.
+        :meth:`_variance_from_sums` forms the variance of the fit.
         """
         cache = self._variance_cache
         if "variance features" not in cache:
@@ -177,16 +198,14 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             )
         return cache["variance features"]
 
-    def _mean_variance(self, X, fit):
+    def _variance_from_sums(self, V, X, fit):
         """Return ``Var yhat(x) = sum_i l_i(x)^2 sigma^2(x_i)`` at the rows of ``X``.
 
         The equivalent kernel is ``l_i(x) = w_i(x) g(x)^T [1, z_i(x)]`` with ``g`` the
         first row of the inverse local Gram matrix (:func:`hedgerow.local.equivalent_kernel`),
         so the sum is ``g^T V g`` with ``V = sum_i w_i^2 sigma^2(x_i) [1, z_i][1, z_i]^T``:
-        the local moments of the squared weights, summed in dense blocks like the fit.
+        ``V`` holds the squared-weight sums over :meth:`_variance_features`, centred here.
         """
-        V = kernel_sums(self.X_train_, X, self.bandwidth_, self._variance_features(),
-                        self.kernel, power=2)
         g = fit.gram_inv[:, 0, :]
         if self._degree == 0:
             return g[:, 0] ** 2 * V[:, 0]
@@ -206,10 +225,10 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         if "sigma2" not in self._variance_cache:
             X = self.X_train_
             # The training rows are one fixed set of queries: BLAS products (stable=False).
-            fit = self._compute_local_fit(X, stable=False)  # not cached: one of n queries
+            fit, _ = self._compute_local_fit(X, stable=False)  # not cached: n queries
             resid2 = (self.y_train_ - fit.intercept) ** 2
-            R = kernel_sums(X, X, self.bandwidth_, np.stack([np.ones_like(resid2), resid2], 1),
-                            self.kernel, stable=False)
+            R = self._kernel_rows().sums(X, np.stack([np.ones_like(resid2), resid2], 1),
+                                         stable=False)
             self._variance_cache["sigma2"] = R[:, 1] / R[:, 0]
         return self._variance_cache["sigma2"]
 
@@ -268,7 +287,7 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             ``hedgerow.kernels.GAUSSIAN_TRUNCATION`` of their row's maximum are dropped.
         """
         X = check_predict_data(self, X)
-        return kernel_weights(self.X_train_, X, self.bandwidth_, self.kernel)
+        return self._kernel_rows().weights(X)
 
     def predict(self, X, return_std=False):
         """Return the smoother's estimate of E[y | x] (and its standard error).
@@ -295,10 +314,10 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             names = ("mean", "std") if return_std else ("mean",)
             return lazy_predict(self, X, "predict", names, return_std=bool(return_std))
         X = check_predict_data(self, X)
-        fit = self._local_fit(X)
+        fit, var = self._local_fit(X, with_variance=bool(return_std))
         if not return_std:
             return fit.intercept
-        std = np.sqrt(np.maximum(self._mean_variance(X, fit), 0.0))
+        std = np.sqrt(np.maximum(var, 0.0))
         std[np.isnan(fit.intercept)] = np.nan
         return fit.intercept, std
 
@@ -394,7 +413,7 @@ class LocalLinearRegressor(_KernelSmoother):
             design was singular and the fit fell back to the weighted mean).
         """
         X = check_predict_data(self, X)
-        return self._local_fit(X).slopes
+        return self._local_fit(X)[0].slopes
 
 
 # One parameter section for both smoothers, kept in one place.

@@ -13,6 +13,7 @@ from hedgerow.kernels._bandwidth import (
 from hedgerow.kernels._kernels import (
     GAUSSIAN_TRUNCATION,
     KERNELS,
+    KernelRows,
     kernel_profile,
     kernel_sums,
     kernel_weights,
@@ -24,6 +25,7 @@ __all__ = [
     "CVCurve",
     "GAUSSIAN_TRUNCATION",
     "KERNELS",
+    "KernelRows",
     "LOO_DIRECT_LEVERAGE",
     "kernel_profile",
     "kernel_sums",

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from hedgerow.kernels._kernels import kernel_sums
+from hedgerow.kernels._kernels import KernelRows
 from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
 
 __all__ = [
@@ -87,8 +87,9 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
     # Unnormalised rows: leverages and fits do not depend on the scaling of a row. The
     # weighted sums come from dense kernel blocks; no n x n matrix is formed.
     B, centre = moment_features(X, y, scale, degree=degree)
+    rows = KernelRows(X, bandwidth, kernel)
     # one fixed set of queries (the training rows): BLAS products (stable=False)
-    R = kernel_sums(X, X, bandwidth, B, kernel, stable=False)
+    R = rows.sums(X, B, stable=False)
     moments = moments_from_sums(R, X, centre, scale, degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
@@ -102,7 +103,7 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
         direct = np.flatnonzero(~(leverage <= LOO_DIRECT_LEVERAGE))
         if direct.size:
             Xd = X[direct]
-            Rd = kernel_sums(X, Xd, bandwidth, B, kernel, exclude=direct)
+            Rd = rows.sums(Xd, B, exclude=direct)
             fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0)
             resid[direct] = y[direct] - fd.intercept
     return resid

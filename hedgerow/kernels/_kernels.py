@@ -38,7 +38,14 @@ import numba
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["GAUSSIAN_TRUNCATION", "KERNELS", "kernel_profile", "kernel_sums", "kernel_weights"]
+__all__ = [
+    "GAUSSIAN_TRUNCATION",
+    "KERNELS",
+    "KernelRows",
+    "kernel_profile",
+    "kernel_sums",
+    "kernel_weights",
+]
 
 #: Names of the supported kernels.
 KERNELS = ("gaussian", "epanechnikov", "tricube")
@@ -60,7 +67,6 @@ _DENSE_BLOCK_ENTRIES = 1 << 16
 # its non-zero rows of B); a block that sparse skips BLAS too.
 _SPARSE_ROW_SHARE = 8
 _NO_ROWS = np.empty((0, 0))
-
 
 
 def _check_kernel(kernel) -> int:
@@ -336,34 +342,156 @@ _row_products = numba.njit(cache=True, fastmath={"reassoc", "contract"})(_row_pr
 _row_nonzeros = _compile(_row_nonzeros_py)
 
 
-def _prepare(X_train, Q, bandwidth, kernel, exclude):
-    code = _check_kernel(kernel)
-    X_train = np.asarray(X_train, dtype=np.float64)
-    Q = np.asarray(Q, dtype=np.float64)
-    h = np.asarray(bandwidth, dtype=np.float64).ravel()
-    d = X_train.shape[1]
-    if h.shape != (d,) or not np.all(np.isfinite(h)) or np.any(h <= 0):
-        raise ValueError(
-            f"The 'bandwidth' parameter must hold {d} positive finite values (one per "
-            f"column). Got {bandwidth!r} instead."
-        )
-    if Q.ndim != 2 or Q.shape[1] != d:
-        raise ValueError(
-            f"The 'Q' parameter must be a 2-d array with {d} columns. "
-            f"Got shape {Q.shape} instead."
-        )
-    # Centre before scaling so that squared distances are formed from small numbers.
-    centre = X_train.mean(axis=0) if X_train.shape[0] else np.zeros(d)
-    XT = np.ascontiguousarray(((X_train - centre) / h).T)
-    Qs = np.ascontiguousarray((Q - centre) / h)
-    m = Qs.shape[0]
-    skip = np.full(m, -1, dtype=np.int64) if exclude is None else np.asarray(exclude, np.int64)
-    if skip.shape != (m,):
-        raise ValueError(
-            f"The 'exclude' parameter must hold {m} indices (one per query). "
-            f"Got shape {skip.shape} instead."
-        )
-    return code, XT, Qs, skip
+class KernelRows:
+    """Training rows prepared once for repeated kernel queries.
+
+    Holds the rows centred at their mean, divided by the bandwidths and transposed (the
+    layout the compiled loops read), so that a smoother asking about a probe or a slice
+    does not redo that for every call. :func:`kernel_weights` and :func:`kernel_sums`
+    are one-off calls of :meth:`weights` and :meth:`sums`.
+
+    Parameters
+    ----------
+    X_train : array-like of shape (n, d)
+        Training rows.
+    bandwidth : array-like of shape (d,)
+        Bandwidth per column, in the units of the columns, all positive and finite.
+    kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
+    """
+
+    def __init__(self, X_train, bandwidth, kernel: str = "gaussian"):
+        self.code = _check_kernel(kernel)
+        X_train = np.asarray(X_train, dtype=np.float64)
+        h = np.asarray(bandwidth, dtype=np.float64).ravel()
+        d = X_train.shape[1]
+        if h.shape != (d,) or not np.all(np.isfinite(h)) or np.any(h <= 0):
+            raise ValueError(
+                f"The 'bandwidth' parameter must hold {d} positive finite values (one per "
+                f"column). Got {bandwidth!r} instead."
+            )
+        # Centre before scaling so that squared distances are formed from small numbers.
+        self.centre = X_train.mean(axis=0) if X_train.shape[0] else np.zeros(d)
+        self.bandwidth = h
+        self.XT = np.ascontiguousarray(((X_train - self.centre) / h).T)
+
+    @property
+    def n_rows(self) -> int:
+        """Return the number of training rows."""
+        return self.XT.shape[1]
+
+    def _queries(self, Q, exclude):
+        d = self.XT.shape[0]
+        Q = np.asarray(Q, dtype=np.float64)
+        if Q.ndim != 2 or Q.shape[1] != d:
+            raise ValueError(
+                f"The 'Q' parameter must be a 2-d array with {d} columns. "
+                f"Got shape {Q.shape} instead."
+            )
+        Qs = np.ascontiguousarray((Q - self.centre) / self.bandwidth)
+        m = Qs.shape[0]
+        skip = (np.full(m, -1, dtype=np.int64) if exclude is None
+                else np.asarray(exclude, np.int64))
+        if skip.shape != (m,):
+            raise ValueError(
+                f"The 'exclude' parameter must hold {m} indices (one per query). "
+                f"Got shape {skip.shape} instead."
+            )
+        return Qs, skip
+
+    def weights(self, Q, *, normalize: bool = True, exclude=None) -> sp.csr_matrix:
+        """Return the kernel weights of the training rows for each query (CSR).
+
+        See :func:`kernel_weights` for the parameters and the result.
+        """
+        Qs, skip = self._queries(Q, exclude)
+        XT, code = self.XT, self.code
+        m, n = Qs.shape[0], XT.shape[1]
+        log_cut = -math.log(GAUSSIAN_TRUNCATION)
+        block = max(1, _BLOCK_ENTRIES // max(n, 1))
+        parts = []
+        for start in range(0, m, block):
+            stop = min(m, start + block)
+            mb = stop - start
+            counts = np.zeros(mb + 1, dtype=np.int64)
+            shift = np.zeros(mb)
+            Qb, skip_b = Qs[start:stop], skip[start:stop]
+            _count(XT, Qb, code, log_cut, skip_b, counts, shift)
+            indptr = np.cumsum(counts)
+            data = np.empty(indptr[-1])
+            indices = np.empty(indptr[-1], dtype=np.int32)
+            _fill(XT, Qb, code, log_cut, skip_b, shift, indptr, data, indices)
+            if code == 0:
+                _exp_inplace(data)
+            if normalize:
+                _normalize_rows(data, indptr)
+            parts.append((data, indices, indptr))
+        if not parts:
+            return sp.csr_matrix((m, n))
+        if len(parts) == 1:
+            data, indices, indptr = parts[0]
+        else:
+            data = np.concatenate([p[0] for p in parts])
+            indices = np.concatenate([p[1] for p in parts])
+            offsets = np.cumsum([0] + [p[2][-1] for p in parts[:-1]])
+            tails = [p[2][1:] + o for p, o in zip(parts, offsets, strict=True)]
+            indptr = np.concatenate([np.zeros(1, dtype=np.int64)] + tails)
+        return sp.csr_matrix((data, indices, indptr), shape=(m, n))
+
+    def _features(self, name, B):
+        n = self.n_rows
+        B = np.ascontiguousarray(B, dtype=np.float64)
+        if B.ndim != 2 or B.shape[0] != n:
+            raise ValueError(
+                f"The '{name}' parameter must be a 2-d array with {n} rows (one per training "
+                f"row). Got shape {B.shape} instead."
+            )
+        return B
+
+    def sums(self, Q, B, *, squared=None, exclude=None, stable: bool = True):
+        """Return ``W @ B`` (and ``(W ** 2) @ squared``) without forming ``W``.
+
+        See :func:`kernel_sums` for the parameters and the result.
+        """
+        Qs, skip = self._queries(Q, exclude)
+        B = self._features("B", B)
+        pairs = [(B, np.zeros((Qs.shape[0], B.shape[1])))]
+        if squared is not None:
+            S = self._features("squared", squared)
+            pairs.append((S, np.zeros((Qs.shape[0], S.shape[1]))))
+        m, n = Qs.shape[0], self.n_rows
+        if m and n:
+            self._sum_blocks(Qs, skip, pairs, stable)
+        return pairs[0][1] if squared is None else (pairs[0][1], pairs[1][1])
+
+    def _sum_blocks(self, Qs, skip, pairs, stable):
+        m, n = Qs.shape[0], self.n_rows
+        log_cut = -math.log(GAUSSIAN_TRUNCATION)
+        block = max(1, min(m, _DENSE_BLOCK_ENTRIES // n))
+        buf = np.empty((block, n))
+        shift = np.empty(block)
+        nnz = np.empty(block, dtype=np.int64)
+        idx = np.empty(n, dtype=np.int64)
+        transposed = [None] * len(pairs)  # B.T for dense rows, built on first need
+        for start in range(0, m, block):
+            stop = min(m, start + block)
+            part = buf[: stop - start]
+            counts = nnz[: stop - start]
+            _dense_block(self.XT, Qs, start, skip, self.code, part)
+            if self.code == 0:
+                # numpy's row minimum is vectorised; a compiled loop is not
+                sh = np.min(part, axis=1, out=shift[: stop - start])
+                _gaussian_weights(part, sh, log_cut)
+            for which, (F, out) in enumerate(pairs):
+                if which:  # the squared weights, for variances
+                    np.square(part, out=part)
+                _row_nonzeros(part, counts)
+                if not stable and counts.sum() * _SPARSE_ROW_SHARE >= part.size:
+                    np.matmul(part, F, out=out[start:stop])
+                    continue
+                if transposed[which] is None and (counts * _SPARSE_ROW_SHARE >= n).any():
+                    transposed[which] = np.ascontiguousarray(F.T)
+                FT = _NO_ROWS if transposed[which] is None else transposed[which]
+                _row_products(part, F, FT, counts, out[start:stop], idx)
 
 
 def kernel_weights(
@@ -394,43 +522,13 @@ def kernel_weights(
     scipy.sparse.csr_matrix of shape (m, n)
         Non-negative weights; entries are dropped as described in the module notes.
     """
-    code, XT, Qs, skip = _prepare(X_train, Q, bandwidth, kernel, exclude)
-    m, n = Qs.shape[0], XT.shape[1]
-    log_cut = -math.log(GAUSSIAN_TRUNCATION)
-    block = max(1, _BLOCK_ENTRIES // max(n, 1))
-    parts = []
-    for start in range(0, m, block):
-        stop = min(m, start + block)
-        mb = stop - start
-        counts = np.zeros(mb + 1, dtype=np.int64)
-        shift = np.zeros(mb)
-        Qb, skip_b = Qs[start:stop], skip[start:stop]
-        _count(XT, Qb, code, log_cut, skip_b, counts, shift)
-        indptr = np.cumsum(counts)
-        data = np.empty(indptr[-1])
-        indices = np.empty(indptr[-1], dtype=np.int32)
-        _fill(XT, Qb, code, log_cut, skip_b, shift, indptr, data, indices)
-        if code == 0:
-            _exp_inplace(data)
-        if normalize:
-            _normalize_rows(data, indptr)
-        parts.append((data, indices, indptr))
-    if not parts:
-        return sp.csr_matrix((m, n))
-    if len(parts) == 1:
-        data, indices, indptr = parts[0]
-    else:
-        data = np.concatenate([p[0] for p in parts])
-        indices = np.concatenate([p[1] for p in parts])
-        offsets = np.cumsum([0] + [p[2][-1] for p in parts[:-1]])
-        tails = [p[2][1:] + o for p, o in zip(parts, offsets, strict=True)]
-        indptr = np.concatenate([np.zeros(1, dtype=np.int64)] + tails)
-    return sp.csr_matrix((data, indices, indptr), shape=(m, n))
+    return KernelRows(X_train, bandwidth, kernel).weights(Q, normalize=normalize,
+                                                          exclude=exclude)
 
 
 def kernel_sums(
-    X_train, Q, bandwidth, B, kernel: str = "gaussian", *, exclude=None, stable: bool = True,
-    power: int = 1,
+    X_train, Q, bandwidth, B, kernel: str = "gaussian", *, squared=None, exclude=None,
+    stable: bool = True,
 ):
     """Return ``W @ B`` for the unnormalised kernel weights ``W``, without forming ``W``.
 
@@ -451,6 +549,10 @@ def kernel_sums(
     B : array-like of shape (n, p)
         Per-row features to sum, for example from :func:`hedgerow.local.moment_features`.
     kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
+    squared : array-like of shape (n, s), optional
+        Also sum these features under the *squared* weights, from the same pass: the
+        variance of a linear smoother, ``sum_i l_i(q)^2 v_i``, is a quadratic form in
+        such sums.
     exclude : array-like of int of shape (m,), optional
         As in :func:`kernel_weights`: one training row per query to leave out, -1 for none.
     stable : bool, default=True
@@ -461,52 +563,12 @@ def kernel_sums(
         2-3x faster with many feature columns, but BLAS may sum in another order for
         another block layout; for sums over one fixed set of queries (leave-one-out over
         the training rows).
-    power : {1, 2}, default=1
-        Sum ``W[q, i] ** power * B[i]``: squared weights give the variance of a linear
-        smoother, ``sum_i l_i(q)^2 s_i``, as a quadratic form in its local fit.
 
     Returns
     -------
-    ndarray of shape (m, p)
-        Row ``q`` is ``sum_i W[q, i] ** power * B[i]``; all zero for a query with no training row
-        inside a compact kernel's support.
+    ndarray of shape (m, p), or a pair of it and an ndarray of shape (m, s)
+        Row ``q`` is ``sum_i W[q, i] * B[i]`` (and ``sum_i W[q, i] ** 2 * squared[i]``);
+        all zero for a query with no training row inside a compact kernel's support.
     """
-    code, XT, Qs, skip = _prepare(X_train, Q, bandwidth, kernel, exclude)
-    if isinstance(power, bool) or power not in (1, 2):
-        raise ValueError(f"The 'power' parameter must be 1 or 2. Got {power!r} instead.")
-    m, n = Qs.shape[0], XT.shape[1]
-    B = np.ascontiguousarray(B, dtype=np.float64)
-    if B.ndim != 2 or B.shape[0] != n:
-        raise ValueError(
-            f"The 'B' parameter must be a 2-d array with {n} rows (one per training row). "
-            f"Got shape {B.shape} instead."
-        )
-    out = np.zeros((m, B.shape[1]))
-    if m == 0 or n == 0:
-        return out
-    log_cut = -math.log(GAUSSIAN_TRUNCATION)
-    block = max(1, min(m, _DENSE_BLOCK_ENTRIES // n))
-    buf = np.empty((block, n))
-    shift = np.empty(block)
-    BT = None  # B.T for dense rows, built on first need (a copy of B); unused otherwise
-    nnz = np.empty(block, dtype=np.int64)
-    idx = np.empty(n, dtype=np.int64)
-    for start in range(0, m, block):
-        stop = min(m, start + block)
-        part = buf[: stop - start]
-        _dense_block(XT, Qs, start, skip, code, part)
-        if code == 0:
-            # numpy's row minimum is vectorised; a compiled loop is not (no reassociation)
-            sh = np.min(part, axis=1, out=shift[: stop - start])
-            _gaussian_weights(part, sh, log_cut)
-        if power == 2:
-            np.square(part, out=part)
-        counts = nnz[: stop - start]
-        _row_nonzeros(part, counts)
-        if not stable and counts.sum() * _SPARSE_ROW_SHARE >= part.size:
-            np.matmul(part, B, out=out[start:stop])
-            continue
-        if BT is None and (counts * _SPARSE_ROW_SHARE >= n).any():
-            BT = np.ascontiguousarray(B.T)
-        _row_products(part, B, _NO_ROWS if BT is None else BT, counts, out[start:stop], idx)
-    return out
+    return KernelRows(X_train, bandwidth, kernel).sums(Q, B, squared=squared,
+                                                       exclude=exclude, stable=stable)

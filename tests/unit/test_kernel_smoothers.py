@@ -13,6 +13,7 @@ from hedgerow.kernels import (
     GAUSSIAN_TRUNCATION,
     KERNELS,
     CVCurve,
+    KernelRows,
     kernel_profile,
     kernel_sums,
     kernel_weights,
@@ -170,6 +171,12 @@ def test_dense_sums_equal_the_sparse_product(kernel, d, width, monkeypatch):
         np.testing.assert_allclose(with_blas, ref, rtol=1e-12, atol=1e-12 * np.abs(ref).max())
         # the stable sums of a query do not depend on the block it was summed in
         np.testing.assert_array_equal(blocked, whole)
+        # squared weights from the same pass, over other features; the plain sums unchanged
+        S = B[:, ::2] * rng.uniform(0.5, 2.0, size=(150, 1))
+        plain, sq = kernel_sums(X, Q, h, B, kernel, exclude=excl, squared=S)
+        np.testing.assert_array_equal(plain, blocked)
+        ref2 = W.multiply(W) @ S
+        np.testing.assert_allclose(sq, ref2, rtol=1e-12, atol=1e-12 * np.abs(ref2).max())
         empty = np.asarray(W.sum(axis=1)).ravel() == 0
         assert empty[-2:].all() == (kernel != "gaussian")
         np.testing.assert_array_equal(whole[empty], 0.0)
@@ -216,10 +223,24 @@ def test_dense_sums_leave_out_the_excluded_row_entirely():
     assert kernel_sums(X, np.zeros((0, 1)), [0.5], B).shape == (0, 2)
 
 
+def test_prepared_rows_answer_like_the_one_off_functions():
+    rng = np.random.default_rng(12)
+    X, Q = rng.normal(size=(90, 2)), rng.normal(size=(14, 2))
+    B = rng.normal(size=(90, 3))
+    rows = KernelRows(X, [0.4, 0.7], "tricube")
+    for _ in range(2):  # the prepared rows are not changed by a query
+        np.testing.assert_array_equal(rows.sums(Q, B), kernel_sums(X, Q, [0.4, 0.7], B,
+                                                                   "tricube"))
+        np.testing.assert_array_equal(rows.weights(Q).toarray(),
+                                      kernel_weights(X, Q, [0.4, 0.7], "tricube").toarray())
+
+
 def test_dense_sum_arguments_are_checked():
     X = np.zeros((5, 2))
     with pytest.raises(ValueError, match=r"'B' parameter must be a 2-d array with 5 rows"):
         kernel_sums(X, X, [1.0, 1.0], np.zeros((4, 2)))
+    with pytest.raises(ValueError, match=r"'squared' parameter must be a 2-d array with 5"):
+        kernel_sums(X, X, [1.0, 1.0], np.zeros((5, 2)), squared=np.zeros(5))
     with pytest.raises(ValueError, match=r"'kernel' parameter must be one of .*Got 'box'"):
         kernel_sums(X, X, [1.0, 1.0], np.zeros((5, 2)), "box")
     with pytest.raises(ValueError, match=r"'exclude' parameter must hold 5 indices"):
@@ -413,7 +434,7 @@ def test_standard_errors_equal_the_equivalent_kernel_sum(est, kernel, d):
         assert np.isnan(std[-1]) and np.isnan(mean[-1])
     # the smoothed squared residuals, term by term
     Wt = kernel_weights(X, X, model.bandwidth_, kernel)
-    resid2 = (y - model._compute_local_fit(X).intercept) ** 2
+    resid2 = (y - model._compute_local_fit(X)[0].intercept) ** 2
     # absolute round-off allowance: rows the fit nearly interpolates have sigma^2 ~ 1e-11
     sigma2 = Wt @ resid2
     np.testing.assert_allclose(model._training_variance(), sigma2, rtol=1e-10,
