@@ -32,9 +32,10 @@ $(VENV)/.installed-lab: $(VENV)/bin/python pyproject.toml
 	$(MAKE) --no-print-directory warm
 	touch $@
 
-# Compile the numba kernels once so that later processes load them from the cache.
+# Compile the numba kernels (forests, kernel smoothers) once so that later processes load
+# them from the cache.
 warm:
-	$(PY) -c "import hedgerow.forest; hedgerow.forest.warm_up()"
+	$(PY) -c "import hedgerow.forest, hedgerow.kernels; hedgerow.forest.warm_up(); hedgerow.kernels.warm_up()"
 
 venv: $(VENV)/.installed-test
 

@@ -17,6 +17,7 @@ from hedgerow.kernels._kernels import (
     kernel_profile,
     kernel_sums,
     kernel_weights,
+    warm_up,
 )
 
 __all__ = [
@@ -34,4 +35,5 @@ __all__ = [
     "loo_residuals",
     "select_bandwidth_cv",
     "silverman_bandwidth",
+    "warm_up",
 ]

@@ -45,6 +45,7 @@ __all__ = [
     "kernel_profile",
     "kernel_sums",
     "kernel_weights",
+    "warm_up",
 ]
 
 #: Names of the supported kernels.
@@ -572,3 +573,18 @@ def kernel_sums(
     """
     return KernelRows(X_train, bandwidth, kernel).sums(Q, B, squared=squared,
                                                        exclude=exclude, stable=stable)
+
+
+def warm_up() -> None:
+    """Compile (or load from numba's cache) every kernel loop on a tiny problem."""
+    rng = np.random.default_rng(0)
+    X = rng.random((40, 2))
+    B = rng.random((40, 3))
+    exclude = np.arange(40)
+    for kernel in KERNELS:
+        rows = KernelRows(X, [0.3, 0.3], kernel)
+        rows.weights(X, exclude=exclude)
+        rows.weights(X[:3], normalize=False)
+        for stable in (True, False):
+            rows.sums(X, B, squared=B, exclude=exclude, stable=stable)
+        KernelRows(X, [0.01, 0.01], kernel).sums(X, B)  # sparse rows
