@@ -108,6 +108,7 @@ def kernel_profile(kernel: str, u) -> np.ndarray:
 # Within 1 ulp of numpy's exp (a test checks it over the whole range); unlike a libm
 # call it vectorises, which makes the dense Gaussian blocks several times cheaper.
 _EXP_LOWEST = -700.0
+_INF_BITS = np.int64(0x7FF0000000000000)  # the bits of +inf
 _LOG2E = 1.4426950408889634
 _LN2_HI = 6.93147180369123816490e-01
 _LN2_LO = 1.90821492927058770002e-10
@@ -246,34 +247,42 @@ def _normalize_rows_py(data, indptr):
                 data[q] *= inv
 
 
-def _dense_block_py(XT, Qs, start, skip, code, out):
-    """Fill ``out`` (rows = queries ``start, start + 1, ...``) with kernel values.
+def _block_weights_py(XT, Qs, start, skip, code, log_cut, out, nnz):
+    """Fill ``out`` (rows = queries ``start, start + 1, ...``) with unnormalised weights.
 
-    Compact kernels: the product kernel. Gaussian: squared distances in bandwidth units,
-    which :func:`_gaussian_weights_py` turns into weights once the row minima are known.
+    The entries of :func:`kernel_weights` with ``normalize=False``: compact kernels the
+    product kernel; Gaussian ``exp(-(v - shift) / 2)`` of the squared distances ``v`` in
+    bandwidth units, shifted by the row's smallest (as in :func:`_fill_py`), 0 where the
+    truncation drops them. ``nnz`` receives each row's number of non-zero weights.
+    Every loop vectorises: the row minimum is taken over the integer view of the
+    (non-negative) distances, whose bits order like their values.
     """
-    for r in range(out.shape[0]):
-        _row_values(XT, Qs, start + r, code, skip[start + r], out[r])
-
-
-def _gaussian_weights_py(out, shift, log_cut):
-    """Turn squared distances into the Gaussian weights of :func:`kernel_weights` (in place).
-
-    ``shift`` is each row's smallest squared distance: entries get
-    ``exp(-(v - shift) / 2)`` as in :func:`_fill_py`, and 0 where the truncation drops
-    them. Exponentiating here, in the pass that reads the row anyway, vectorises.
-    """
+    n = XT.shape[1]
     for r in range(out.shape[0]):
         row = out[r]
-        sh = shift[r]
-        if not np.isfinite(sh):
-            sh = 0.0
-        cut = 2.0 * log_cut + sh
-        for j in range(row.shape[0]):
-            v = row[j]
-            # Dropped entries are clamped so that the exponential sees no special values.
-            w = _exp_nonpositive(max(-0.5 * (v - sh), _EXP_LOWEST))
-            row[j] = w if v <= cut else 0.0
+        _row_values(XT, Qs, start + r, code, skip[start + r], row)
+        c = 0
+        if code == 0:
+            bits = row.view(np.int64)
+            low = _INF_BITS
+            for j in range(n):
+                low = min(low, bits[j])
+            sh = np.int64(low).view(np.float64)
+            if not np.isfinite(sh):
+                sh = 0.0
+            cut = 2.0 * log_cut + sh
+            for j in range(n):
+                v = row[j]
+                # Dropped entries are clamped so that the exponential sees no special
+                # values; exponentiating here, in a pass that reads the row anyway.
+                w = _exp_nonpositive(max(-0.5 * (v - sh), _EXP_LOWEST))
+                kept = v <= cut
+                row[j] = w if kept else 0.0
+                c += kept
+        else:
+            for j in range(n):
+                c += row[j] != 0.0
+        nnz[r] = c
 
 
 def _row_nonzeros_py(part, nnz):
@@ -335,9 +344,8 @@ def _compile(fn):
 _count = _compile(_count_py)
 _fill = _compile(_fill_py)
 _normalize_rows = _compile(_normalize_rows_py)
-_dense_block = _compile(_dense_block_py)
 # Fused multiply-adds for the exponential's polynomial (its 1-ulp test is run on this).
-_gaussian_weights = numba.njit(cache=True, fastmath={"contract"})(_gaussian_weights_py)
+_block_weights = numba.njit(cache=True, fastmath={"contract"})(_block_weights_py)
 _exp_inplace = numba.njit(cache=True, fastmath={"contract"})(_exp_inplace_py)
 _row_products = numba.njit(cache=True, fastmath={"reassoc", "contract"})(_row_products_py)
 _row_nonzeros = _compile(_row_nonzeros_py)
@@ -469,7 +477,6 @@ class KernelRows:
         log_cut = -math.log(GAUSSIAN_TRUNCATION)
         block = max(1, min(m, _DENSE_BLOCK_ENTRIES // n))
         buf = np.empty((block, n))
-        shift = np.empty(block)
         nnz = np.empty(block, dtype=np.int64)
         idx = np.empty(n, dtype=np.int64)
         transposed = [None] * len(pairs)  # B.T for dense rows, built on first need
@@ -477,15 +484,11 @@ class KernelRows:
             stop = min(m, start + block)
             part = buf[: stop - start]
             counts = nnz[: stop - start]
-            _dense_block(self.XT, Qs, start, skip, self.code, part)
-            if self.code == 0:
-                # numpy's row minimum is vectorised; a compiled loop is not
-                sh = np.min(part, axis=1, out=shift[: stop - start])
-                _gaussian_weights(part, sh, log_cut)
+            _block_weights(self.XT, Qs, start, skip, self.code, log_cut, part, counts)
             for which, (F, out) in enumerate(pairs):
-                if which:  # the squared weights, for variances
+                if which:  # the squared weights, for variances (small ones may underflow)
                     np.square(part, out=part)
-                _row_nonzeros(part, counts)
+                    _row_nonzeros(part, counts)
                 if not stable and counts.sum() * _SPARSE_ROW_SHARE >= part.size:
                     np.matmul(part, F, out=out[start:stop])
                     continue
