@@ -2,6 +2,7 @@
 
 from hedgerow.kernels._bandwidth import (
     CV_GRID_FACTORS,
+    CV_POLISH_ROUNDS,
     CV_REFINE_STEPS,
     LOO_DIRECT_LEVERAGE,
     CVCurve,
@@ -22,6 +23,7 @@ from hedgerow.kernels._kernels import (
 
 __all__ = [
     "CV_GRID_FACTORS",
+    "CV_POLISH_ROUNDS",
     "CV_REFINE_STEPS",
     "CVCurve",
     "GAUSSIAN_TRUNCATION",

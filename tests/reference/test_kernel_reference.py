@@ -96,9 +96,41 @@ def test_cv_bandwidth_close_to_kernelreg_cv_ls(reg_type):
         warnings.simplefilter("ignore", FutureWarning)
         kr = KernelReg(y, X, var_type="cc", reg_type=reg_type, bw="cv_ls")
     # Reference: statsmodels KernelReg(bw='cv_ls'), which minimises the same objective
-    # with Nelder-Mead from a rule-of-thumb start.
-    np.testing.assert_allclose(model.bandwidth_, kr.bw, rtol=0.05)
-    # Same objective: ours may exceed the reference only by the search resolution (steps
-    # of 2^(1/32) ~ 2% in bandwidth, second order in the objective near an optimum).
+    # with Nelder-Mead from a rule-of-thumb start. Measured: within 0.04% of its
+    # bandwidths and 2e-8 of its objective (both searches stop at their own tolerances).
+    np.testing.assert_allclose(model.bandwidth_, kr.bw, rtol=0.005)
     ref_objective = float(np.squeeze(kr.cv_loo(kr.bw, kr.est[reg_type])))
-    assert model.cv_curve_.loo_error <= ref_objective * (1 + 1e-3)
+    assert model.cv_curve_.loo_error <= ref_objective * (1 + 1e-6)
+
+
+def _smooth_d3():
+    rng = np.random.default_rng(5)
+    X = rng.uniform(0, 3, size=(150, 3))
+    y = (np.sin(2 * X[:, 0]) + np.cos(1.5 * X[:, 1]) + 0.5 * X[:, 2] ** 2
+         + rng.normal(scale=0.3, size=150))
+    return X, y
+
+
+@pytest.mark.parametrize("reg_type", REG_TYPES)
+@pytest.mark.parametrize("case", ["engel", "d3"])
+def test_cv_objective_never_worse_than_kernelreg_cv_ls(case, reg_type):
+    X, y = _engel() if case == "engel" else _smooth_d3()
+    est_cls, _ = REG_TYPES[reg_type]
+    model = est_cls(bandwidth="cv").fit(X, y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FutureWarning)
+        kr = KernelReg(y, X, var_type="c" * X.shape[1], reg_type=reg_type, bw="cv_ls")
+    # Reference: statsmodels KernelReg(bw='cv_ls') and its own objective (cv_loo) at the
+    # bandwidths it chose; ours is evaluated with the same objective (tested above).
+    ref_objective = float(np.squeeze(kr.cv_loo(kr.bw, kr.est[reg_type])))
+    ours = model.cv_curve_.loo_error
+    np.testing.assert_allclose(ours, loo_cv_error(X, y, model.bandwidth_, "gaussian",
+                                                  REG_TYPES[reg_type][1]), rtol=1e-12)
+    assert ours <= ref_objective * (1 + 1e-6)
+    if ours >= ref_objective * (1 - 1e-6):
+        # the same optimum: the same bandwidths (measured within 0.3%)
+        np.testing.assert_allclose(model.bandwidth_, kr.bw, rtol=0.01)
+    else:
+        # Nelder-Mead stopped at a worse point (measured on engel with local linear: its
+        # bandwidth 202 gives 37788, ours about 2018 gives 14483, a nearly global line).
+        assert (case, reg_type) == ("engel", "ll")

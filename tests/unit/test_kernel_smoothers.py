@@ -10,6 +10,7 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 
 from hedgerow.estimators._kernel import LocalLinearRegressor, NadarayaWatsonRegressor
 from hedgerow.kernels import (
+    CV_REFINE_STEPS,
     GAUSSIAN_TRUNCATION,
     KERNELS,
     CVCurve,
@@ -491,9 +492,17 @@ def test_cv_fit_records_the_search(est):
     curve = model.cv_curve_
     assert isinstance(curve, CVCurve)
     np.testing.assert_array_equal(model.bandwidth_, curve.bandwidth)
-    assert curve.loo_error == pytest.approx(
-        loo_cv_error(X, y, model.bandwidth_, degree=int(est is LocalLinearRegressor))
-    )
+    degree = int(est is LocalLinearRegressor)
+    assert curve.loo_error == pytest.approx(loo_cv_error(X, y, model.bandwidth_, degree=degree))
+    # the chosen bandwidths are the best evaluated, and nudging any one of them by the
+    # pattern's last step (2^(1/32), about 2%) does not lower the error (beyond 1e-8:
+    # the column cos(4 x0) ignores takes a bandwidth so wide that the error is flat in it)
+    assert curve.loo_error == min(curve.path_loo_error.min(), curve.grid_loo_error.min())
+    for j in range(2):
+        for factor in (CV_REFINE_STEPS[-1], 1 / CV_REFINE_STEPS[-1]):
+            h = model.bandwidth_.copy()
+            h[j] *= factor
+            assert loo_cv_error(X, y, h, degree=degree) > curve.loo_error * (1 - 1e-8)
 
 
 BAD_BANDWIDTHS = [
