@@ -1,4 +1,4 @@
-"""Product kernels and sparse kernel weight matrices.
+"""Product kernels, sparse kernel weight matrices and dense weighted sums.
 
 A kernel smoother at query ``q`` weights training row ``i`` by the product kernel
 ``K(u) = prod_j k(u_j)`` with ``u_j = (x_ij - q_j) / h_j``. Weights are returned as a
@@ -21,13 +21,14 @@ for any ``n`` this library is used with -- while rows stay sparse at small bandw
 outside the support of a compact kernel has an empty row (total weight zero).
 
 Weighted sums without the matrix: a local fit needs only ``W @ B`` for a few feature
-columns ``B`` (see :func:`hedgerow.local.moment_features`). :func:`kernel_sums` forms
-them from dense blocks of weights (one block of queries at a time, kept in cache) and a
-BLAS product, with exactly the entries of ``kernel_weights(..., normalize=False)``.
-Every query is compared with every training row either way, so the sparse matrix only
-pays off when it is needed itself (neighbour weights, equivalent kernels); for the sums
-the dense blocks are several times faster, above all for the Gaussian, whose rows are
-rarely sparse at useful bandwidths.
+columns ``B`` (see :func:`hedgerow.local.moment_features`). :func:`kernel_sums` (and
+:meth:`KernelRows.sums`, for rows prepared once) forms them from dense blocks of weights,
+one block of queries at a time, kept in cache, with the entries of
+``kernel_weights(..., normalize=False)``; rows with few non-zero weights are summed
+sparsely. Every query is compared with every training row either way, so the sparse
+matrix only pays off when it is needed itself (neighbour weights); for the sums the
+dense blocks are several times faster, above all for the Gaussian, whose rows are rarely
+sparse at useful bandwidths.
 """
 
 from __future__ import annotations
