@@ -81,17 +81,18 @@ def silverman_bandwidth(X) -> np.ndarray:
 LOO_DIRECT_LEVERAGE = 1.0 - 1e-4
 
 
-def _loo_residuals(X, y, bandwidth, kernel, degree, scale):
+def _loo_residuals(X, y, bandwidth, kernel, degree, scale, features=None):
     """Return the leave-one-out residuals ``y_i - g_{-i}(x_i)`` (NaN where undefined).
 
     Rows with leverage near one -- nearly alone in their neighbourhood -- are recomputed
     with the row excluded from its own weights: there ``1 - L_ii`` carries few correct
     digits, and Gaussian truncation against the row's own (self) weight may have dropped
-    all of its neighbours.
+    all of its neighbours. ``features`` are ``moment_features(X, y, scale, degree=degree)``
+    when the caller has them (they do not depend on the bandwidth).
     """
     # Unnormalised rows: leverages and fits do not depend on the scaling of a row. The
     # weighted sums come from dense kernel blocks; no n x n matrix is formed.
-    B, centre = moment_features(X, y, scale, degree=degree)
+    B, centre = moment_features(X, y, scale, degree=degree) if features is None else features
     rows = KernelRows(X, bandwidth, kernel)
     # one fixed set of queries (the training rows): BLAS products (stable=False)
     R = rows.sums(X, B, stable=False)
@@ -221,6 +222,7 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
     y = np.asarray(y, dtype=np.float64).ravel()
     d = X.shape[1]
     scale = default_scale(X)
+    features = moment_features(X, y, scale, degree=degree)  # the same for every bandwidth
     base = silverman_bandwidth(X)
     lo, hi = _H_MIN * scale, _H_MAX * scale
     seen: dict[tuple, float] = {}
@@ -233,7 +235,7 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
     def evaluate(h, record=True):
         key = tuple(np.round(np.log(h), 12))
         if key not in seen:
-            resid = _loo_residuals(X, y, h, kernel, degree, scale)
+            resid = _loo_residuals(X, y, h, kernel, degree, scale, features)
             ok = np.all(np.isfinite(resid))
             seen[key] = float(np.mean(resid**2)) if ok else np.inf
             bar.update(1)

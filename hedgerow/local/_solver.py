@@ -347,6 +347,42 @@ def _check_penalty(ridge_penalty) -> float:
     return lam
 
 
+@numba.njit(cache=True)
+def _clears_collinearity_py(C, shift, out):
+    m, k, _ = C.shape
+    L = np.empty((k, k))
+    for q in range(m):
+        ok = True
+        for j in range(k):
+            acc = C[q, j, j] - shift
+            for t in range(j):
+                acc -= L[j, t] * L[j, t]
+            if not acc > 0.0:  # also NaN
+                ok = False
+                break
+            L[j, j] = np.sqrt(acc)
+            for i in range(j + 1, k):
+                acc = C[q, i, j]
+                for t in range(j):
+                    acc -= L[i, t] * L[j, t]
+                L[i, j] = acc / L[j, j]
+        out[q] = ok
+
+
+def _clears_collinearity(C, shift) -> np.ndarray:
+    """Return which correlation matrices certainly pass the collinearity rule.
+
+    ``C - shift I`` has a Cholesky factor only if ``lambda_min(C) > shift`` (up to
+    rounding of order ``k eps``), and ``lambda_max(C) <= trace(C) = k``; with
+    ``shift = 2 k COLLINEARITY_RCOND`` a factorisable system has
+    ``lambda_min > COLLINEARITY_RCOND * lambda_max`` with a wide margin, so the
+    eigenvalues (several times costlier) are needed only for the others.
+    """
+    out = np.zeros(C.shape[0], dtype=np.bool_)
+    _clears_collinearity_py(np.ascontiguousarray(C), float(shift), out)
+    return out
+
+
 def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
     """Return the local fits at every query from precomputed moments.
 
@@ -412,8 +448,12 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
     if k > 1:
         d = np.sqrt(np.where(dS > 0, dS, 1.0))
         C = S / d[:, :, None] / d[:, None, :]
-        ev = np.linalg.eigvalsh(np.where(degenerate[:, None, None], eye, C))
-        degenerate |= ev[:, 0] <= COLLINEARITY_RCOND * ev[:, -1]
+        # Eigenvalues only where a shifted Cholesky factorisation cannot clear the system
+        # (the decisions are those of eigenvalues everywhere; see _clears_collinearity).
+        check = ~degenerate & ~_clears_collinearity(C, 2.0 * k * COLLINEARITY_RCOND)
+        if check.any():
+            ev = np.linalg.eigvalsh(C[check])
+            degenerate[check] = ev[:, 0] <= COLLINEARITY_RCOND * ev[:, -1]
     S_ok = np.where(degenerate[:, None, None], eye, S)
 
     r = t1 - s1 * mean[:, None]

@@ -223,3 +223,62 @@ def test_bad_arguments_are_named():
     for bad in (-1.0, np.nan, np.inf, "big", True):
         with pytest.raises(ValueError, match=r"'ridge_penalty' parameter must be a finite float"):
             solve_local(moments, bad)
+
+
+def test_cholesky_screen_clears_only_what_the_eigenvalue_rule_passes():
+    # The collinearity rule compares the extreme eigenvalues of each local correlation
+    # matrix; a shifted Cholesky factorisation clears the clear cases first.
+    from hedgerow.local._solver import COLLINEARITY_RCOND, _clears_collinearity
+
+    rng = np.random.default_rng(4)
+    k = 6
+    mats, ratios = [], []
+    for log_ratio in np.linspace(-16, 0, 200):
+        Qm, _ = np.linalg.qr(rng.normal(size=(k, k)))
+        ev = np.geomspace(10.0**log_ratio, 1.0, k)
+        if log_ratio < -12:
+            ev[0] = -(10.0**log_ratio)  # indefinite by round-off, as centring can leave
+        A = (Qm * ev) @ Qm.T
+        d = np.sqrt(np.abs(np.diag(A)))
+        C = A / d[:, None] / d[None, :]
+        w = np.linalg.eigvalsh(C)
+        mats.append(C)
+        ratios.append(w[0] / w[-1])
+    ratios = np.array(ratios)
+    cleared = _clears_collinearity(np.array(mats), 2.0 * k * COLLINEARITY_RCOND)
+    # never clears a system the rule would flag, and clears the well-conditioned ones
+    assert not np.any(cleared & (ratios <= COLLINEARITY_RCOND))
+    assert np.all(cleared[ratios > 1e-6])
+
+
+def test_fallback_flags_follow_the_eigenvalue_rule_everywhere():
+    # Near-collinear and tied columns in narrow windows: the flags must be those of the
+    # eigenvalue rule applied to every system (the Cholesky screen only saves time).
+    from hedgerow.local._solver import COLLINEARITY_RCOND
+
+    rng = np.random.default_rng(7)
+    n, k = 300, 4
+    X = rng.normal(size=(n, k))
+    # collinear where the third column is negative, not elsewhere
+    X[:, 1] = 2.0 * X[:, 0] + np.where(X[:, 2] < 0, 1e-9, 1.0) * rng.normal(size=n)
+    X[:, 3] = np.round(X[:, 3])
+    y = rng.normal(size=n)
+    Q = np.vstack([X[:60], 3.0 * rng.normal(size=(20, k))])
+    D = np.exp(-0.5 * (((X[None, :, :] - Q[:, None, :]) / 0.4) ** 2).sum(axis=2))
+    moments = local_moments(sp.csr_matrix(D * (D > 1e-12)), X, y, Q, degree=1)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        fit = solve_local(moments, 0.0)
+    empty = ~(moments.s0 > 0)
+    s0, s1 = np.where(empty, 1.0, moments.s0), moments.s1
+    S = moments.s2 - s1[:, :, None] * s1[:, None, :] / s0[:, None, None]
+    S = 0.5 * (S + np.swapaxes(S, 1, 2))
+    dS = np.diagonal(S, axis1=1, axis2=2)
+    flagged = np.any(dS <= moments.roundoff, axis=1) | empty
+    d = np.sqrt(np.where(dS > 0, dS, 1.0))
+    C = np.where(flagged[:, None, None], np.eye(k), S / d[:, :, None] / d[:, None, :])
+    ev = np.linalg.eigvalsh(C)
+    flagged |= ev[:, 0] <= COLLINEARITY_RCOND * ev[:, -1]
+    flagged &= ~empty
+    assert 0 < flagged.sum() < (~empty).sum()  # both kinds occur here
+    np.testing.assert_array_equal(fit.fallback, flagged)
