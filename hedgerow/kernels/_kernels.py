@@ -580,7 +580,12 @@ def kernel_sums(
 
 
 def warm_up() -> None:
-    """Compile (or load from numba's cache) every kernel loop on a tiny problem."""
+    """Compile (or load from numba's cache) every kernel loop on a tiny problem.
+
+    The local solver's compiled screen is warmed too, through a leave-one-out error.
+    """
+    from hedgerow.kernels._bandwidth import loo_cv_error
+
     rng = np.random.default_rng(0)
     X = rng.random((40, 2))
     B = rng.random((40, 3))
@@ -592,3 +597,4 @@ def warm_up() -> None:
         for stable in (True, False):
             rows.sums(X, B, squared=B, exclude=exclude, stable=stable)
         KernelRows(X, [0.01, 0.01], kernel).sums(X, B)  # sparse rows
+    loo_cv_error(X, B[:, 0], [0.5, 0.5], degree=1)
