@@ -322,8 +322,11 @@ class ExploreSession(t.HasTraits):
             job = self._job
             if job is None or job.outcome not in ("waiting", "running"):
                 return "none" if job is None else job.outcome
-            if job.thread is not None:
-                job.thread.join(timeout=0.05)
+            thread = job.thread
+            # _start names the thread before it starts it; a thread not started yet
+            # cannot be joined (ident is None until it runs)
+            if thread is not None and thread.ident is not None:
+                thread.join(timeout=0.05)
             else:
                 time.sleep(0.02)
         raise TimeoutError(f"The refit did not finish within {timeout} s.")

@@ -1,6 +1,8 @@
 """Views driven through their traits and handlers, no browser: marks hold what the
 diagnostics functions give."""
 
+import threading
+
 import numpy as np
 import pytest
 
@@ -243,6 +245,29 @@ def test_refit_request_cancels_the_running_one(data):
     assert view.readout["local linear forest"]["prediction"] == pytest.approx(
         D.probe(D.at_ridge_penalty(s.model, s.ridge_penalty), np.asarray(view.probe_x))
         .method("local linear forest").prediction)
+
+
+def test_waiting_for_a_refit_whose_thread_is_not_started_yet(data):
+    # _start names the refit thread, reports "running" to the UI, then starts it; a
+    # wait in between once tried to join the unstarted thread (RuntimeError, seen in CI).
+    import time
+
+    X, y = data
+    s = ExploreSession(X, y, n_estimators=50, compare=False, refit_delay=0.0)
+    slow_ui = s._on_ui
+
+    def delayed(fn):
+        if threading.current_thread().name != "MainThread":
+            time.sleep(0.3)  # the gap between naming and starting the thread
+        slow_ui(fn)
+
+    s._on_ui = delayed
+    s.request_refit(min_samples_leaf=6)
+    deadline = time.monotonic() + 10
+    while s._job.thread is None and time.monotonic() < deadline:
+        time.sleep(0.005)
+    assert s._job.thread is not None and s._job.thread.ident is None  # inside the gap
+    assert s.wait_for_refit(60) == "done"
 
 
 def test_quick_requests_are_debounced_and_failures_shown(data):
