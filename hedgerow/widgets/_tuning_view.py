@@ -184,9 +184,12 @@ class TuningView(View):
             self._width_wanted = key
             if self._width_thread is not None and self._width_thread.is_alive():
                 return  # the running one starts the newest request when it ends
-            self._width_thread = threading.Thread(target=self._width_worker, daemon=True,
-                                                  name="hedgerow-oob-width")
-            self._width_thread.start()
+            thread = threading.Thread(target=self._width_worker, daemon=True,
+                                      name="hedgerow-oob-width")
+            thread.start()
+            # published once started: wait_for_width reads it without the lock and takes
+            # a thread that is not alive for one that has finished
+            self._width_thread = thread
 
     def _width_worker(self):
         s = self._session
