@@ -248,6 +248,15 @@ def _normalize_rows_py(data, indptr):
                 data[q] *= inv
 
 
+@numba.njit(cache=True, inline="always")
+def _nonzeros(row):
+    """Return the number of non-zero entries of ``row`` (an integer sum: it vectorises)."""
+    c = 0
+    for j in range(row.shape[0]):
+        c += row[j] != 0.0
+    return c
+
+
 def _block_weights_py(XT, Qs, start, skip, code, log_cut, out, nnz):
     """Fill ``out`` (rows = queries ``start, start + 1, ...``) with unnormalised weights.
 
@@ -281,19 +290,13 @@ def _block_weights_py(XT, Qs, start, skip, code, log_cut, out, nnz):
                 row[j] = w if kept else 0.0
                 c += kept
         else:
-            for j in range(n):
-                c += row[j] != 0.0
+            c = _nonzeros(row)
         nnz[r] = c
 
 
 def _row_nonzeros_py(part, nnz):
-    """Count the non-zero weights of each row (an integer sum: it vectorises)."""
     for r in range(part.shape[0]):
-        row = part[r]
-        c = 0
-        for j in range(row.shape[0]):
-            c += row[j] != 0.0
-        nnz[r] = c
+        nnz[r] = _nonzeros(part[r])
 
 
 def _row_products_py(part, B, BT, nnz, out, idx):

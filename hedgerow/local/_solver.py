@@ -348,7 +348,7 @@ def _check_penalty(ridge_penalty) -> float:
 
 
 @numba.njit(cache=True)
-def _clears_collinearity_py(C, shift, out):
+def _shifted_cholesky_exists(C, shift, out):
     m, k, _ = C.shape
     L = np.empty((k, k))
     for q in range(m):
@@ -379,7 +379,7 @@ def _clears_collinearity(C, shift) -> np.ndarray:
     eigenvalues (several times costlier) are needed only for the others.
     """
     out = np.zeros(C.shape[0], dtype=np.bool_)
-    _clears_collinearity_py(np.ascontiguousarray(C), float(shift), out)
+    _shifted_cholesky_exists(np.ascontiguousarray(C), float(shift), out)
     return out
 
 
