@@ -132,6 +132,11 @@ def grow_forest(
     # Splits depend on y only through differences; centring keeps the squared-error sums
     # of the split search from cancelling when y has a large offset (y + 1e8 used to give
     # different, worse trees than y). Leaf values are computed from the raw y elsewhere.
+    # A power-of-two rescaling is exact, so it changes no comparison of the search on
+    # ordinary data, and keeps squares of y from over- or underflowing near 1e+-300.
+    peak = float(np.max(np.abs(y))) if y.size else 0.0
+    if 0.0 < peak < np.inf:
+        y = np.ldexp(y, -int(np.frexp(peak)[1]))
     y = y - y.mean()
     order = presort(X)
     XT = np.ascontiguousarray(X.T)  # each column contiguous for the per-tree sweeps

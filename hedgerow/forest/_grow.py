@@ -26,10 +26,32 @@ from numba import njit
 RULE_MEAN = 0
 RULE_RIDGE_RESIDUAL = 1
 
-# Two feature values closer than this are treated as tied (scikit-learn's
-# FEATURE_THRESHOLD, so that a classical tree reproduces DecisionTreeRegressor's splits).
+# Two feature values closer than this fraction of their column's training range are
+# treated as tied. scikit-learn's FEATURE_THRESHOLD is the same number as an absolute
+# distance; taken relative to the column's own spread it keeps DecisionTreeRegressor's
+# splits on columns spread over about one unit and makes the split search depend on the
+# order of the values only, whatever their units (X -> a X + b gives the same tree).
 _FEATURE_THRESHOLD = 1e-7
 _EPS = np.finfo(np.float64).eps
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def tie_tolerances(XT, global_order):
+    """Return, per column, the distance below which two values count as tied.
+
+    ``_FEATURE_THRESHOLD`` times the column's range over the training rows (read from
+    the presorted order, so O(d)); halves are subtracted so that a range near the largest
+    float does not overflow. A constant column gets 0 (only equal values tie).
+    """
+    d, n = global_order.shape
+    tol = np.zeros(d)
+    if n == 0:
+        return tol
+    for j in range(d):
+        lo = XT[j, global_order[j, 0]]
+        hi = XT[j, global_order[j, n - 1]]
+        tol[j] = _FEATURE_THRESHOLD * 2.0 * (hi * 0.5 - lo * 0.5)
+    return tol
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -203,6 +225,7 @@ def grow_tree(
     """
     np.random.seed(seed)  # noqa: NPY002 (numba: per-thread legacy generator)
     d = XT.shape[0]
+    tol = tie_tolerances(XT, global_order)
     g_rows, g_order, g_vals, f_rows, f_order, f_vals = _local_lists(
         global_order, sample_rows, grow_mask, fill_mask, XT
     )
@@ -272,12 +295,20 @@ def grow_tree(
             _node_response(rule, g_order[0, gs:ge], yl, zl, ridge_penalty, resp)
             tot = 0.0
             tot2 = 0.0
+            ysq = 0.0
             for p in range(gs, ge):
-                v = resp[g_order[0, p]]
+                r = g_order[0, p]
+                v = resp[r]
                 tot += v
                 tot2 += v * v
+                ysq += yl[r] * yl[r]
             impurity = tot2 / g_cnt - (tot / g_cnt) ** 2
-            if impurity <= _EPS:
+            # A node is constant when its variance is below the rounding error of the sums
+            # that compute it: n * eps * mean(y^2) (the worst-case error bound of an n-term
+            # recursive sum, Higham 2002, Accuracy and Stability of Numerical Algorithms,
+            # section 4.2; from memory). Relative to the node's own magnitude, so y -> c y
+            # keeps the tree (an absolute eps made every node of y * 1e-8 a leaf).
+            if impurity <= _EPS * ysq:
                 splittable = False
         if splittable:
             best_proxy = -np.inf
@@ -296,7 +327,8 @@ def grow_tree(
                 gv = g_vals[f]
                 fv = f_vals[f]
                 # the segment is sorted by this feature: constant iff its ends tie
-                if gv[ge - 1] <= gv[gs] + _FEATURE_THRESHOLD:
+                tol_f = tol[f]
+                if gv[ge - 1] <= gv[gs] + tol_f:
                     continue
                 n_visited += 1
                 # The fill-role constraint is a window of thresholds: at least msl fill
@@ -314,7 +346,7 @@ def grow_tree(
                     sum_l += resp[go[p - 1]]
                     u = gv[p - 1]
                     v = gv[p]
-                    if v <= u + _FEATURE_THRESHOLD:
+                    if v <= u + tol_f:
                         continue
                     thr = u / 2.0 + v / 2.0
                     if thr == v or thr == np.inf or thr == -np.inf:

@@ -520,13 +520,6 @@ def test_predictions_follow_a_shift_of_y(friedman_small, friedman_query, offset)
     assert rmse < 0.1
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="known limitation, reported: grow_tree treats feature values closer than the "
-    "absolute _FEATURE_THRESHOLD = 1e-7 as tied (kept from scikit-learn's float32 "
-    "splitter for the DecisionTreeRegressor equivalence), so a column measured on a "
-    "scale of 1e-8 is never split and the forest predicts a constant",
-)
 def test_small_scale_features_are_split(friedman_small, friedman_query):
     X, y = friedman_small
     params = dict(n_estimators=20, random_state=0)
