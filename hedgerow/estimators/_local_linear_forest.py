@@ -18,8 +18,8 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
-from hedgerow.estimators._forest import _ForestBase
-from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL
+from hedgerow.estimators._forest import _ForestBase, resolve_trees_per_bag
+from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL, subsample_size
 from hedgerow.inference import (
     linearisation_coefficients,
     linearised_from_leaf_means,
@@ -27,10 +27,13 @@ from hedgerow.inference import (
 )
 from hedgerow.local import (
     LocalFit,
+    binary_scale,
+    column_centre,
     default_scale,
     moment_features,
     moments_from_sums,
     solve_local,
+    standardise,
 )
 
 __all__ = ["LocalLinearForestRegressor", "RIDGE_GRID", "SPLIT_PENALTY_AUTO"]
@@ -69,6 +72,16 @@ def _lasso_screen(Xs, y) -> np.ndarray:
     every noise column in the local line costs variance and edge bias.
     """
     d = Xs.shape[1]
+    # The screening is a question about y's units no more than X's: on y / sd(y) the
+    # path, the one-standard-error choice and the 1e-10 cut on coefficients below do not
+    # depend on the units (LassoCV itself failed on y ~ 1e200 and kept other columns on
+    # y ~ 1e100). Centred and divided in binary magnitude first, so y near 1e300 stays
+    # finite.
+    y = np.asarray(y, dtype=np.float64)
+    p = float(binary_scale(y))
+    yc = y / p - np.mean(y / p)
+    sd = float(np.std(yc))
+    y = yc / sd if sd > 0 else yc
     # linear and centred quadratic terms: a column whose effect is curved but not
     # monotone (a valley) has no linear association, yet a local line in it still helps
     sq = Xs**2
@@ -180,7 +193,7 @@ class LocalLinearForestRegressor(_ForestBase):
         spec = self.correction_features
         if isinstance(spec, str):  # "auto": lasso screening
             scale = default_scale(X)
-            Xs = (X - X.mean(axis=0)) / scale
+            Xs = standardise(X, column_centre(X), scale)
             keep = _lasso_screen(Xs, y)
             if keep.size == 0:
                 yc = y - y.mean()
@@ -226,6 +239,17 @@ class LocalLinearForestRegressor(_ForestBase):
                 )
         return np.array(sorted(set(out)), dtype=np.int64)
 
+    def _check_out_of_bag_rows(self, n: int) -> None:
+        """Refuse ``ridge_penalty="auto"`` when no tree leaves a row out (nothing to score)."""
+        l = resolve_trees_per_bag(self.trees_per_bag, self.n_estimators, self.subsample_rate)
+        if subsample_size(n, self.subsample_rate, l) >= n:
+            raise ValueError(
+                f"The 'ridge_penalty' parameter 'auto' chooses the penalty by out-of-bag "
+                f"error, but with subsample_rate={self.subsample_rate!r} every tree draws "
+                f"all {n} rows, so no row is out of bag. Use subsample_rate < 1 or a "
+                f"numeric ridge_penalty. Got ridge_penalty={self.ridge_penalty!r} instead."
+            )
+
     def fit(self, X, y, *, progress=None, client=None):
         """Grow the forest, choose the correction columns and penalty; return ``self``.
 
@@ -255,10 +279,12 @@ class LocalLinearForestRegressor(_ForestBase):
                     f"Got {self.ridge_penalty!r} instead."
                 )
             X, y = check_fit_data(self, X, y)
+            if isinstance(self.ridge_penalty, str):
+                self._check_out_of_bag_rows(X.shape[0])
             cols = self._resolve_correction_features(X, y)
             Xc = np.ascontiguousarray(X[:, cols])
             scale = default_scale(Xc)
-            Z = (Xc - Xc.mean(axis=0)) / scale
+            Z = standardise(Xc, column_centre(Xc), scale)
             auto = isinstance(self.ridge_penalty, str)
             split_penalty = SPLIT_PENALTY_AUTO if auto else float(self.ridge_penalty)
             rule = RULE_RIDGE_RESIDUAL if self.split_rule == "ridge_residual" else RULE_MEAN
@@ -272,9 +298,13 @@ class LocalLinearForestRegressor(_ForestBase):
         self._Xc = Xc
         if auto:
             grid = np.array(RIDGE_GRID)
-            mse = self.ridge_path(grid)
+            unit = self._ridge_path_in_units(grid)
+            with np.errstate(over="ignore"):  # inf: an error beyond float64 (y ~ 1e200)
+                mse = unit * np.float64(self._y_unit) ** 2
             self.ridge_path_ = {"ridge_penalty": grid, "oob_mse": mse}
-            self.ridge_penalty_ = float(grid[int(np.nanargmin(mse))])
+            # chosen on the errors in y's binary magnitude: the same choice as on mse for
+            # ordinary y, and no underflow of squared errors when y is near 1e-300
+            self.ridge_penalty_ = float(grid[int(np.nanargmin(unit))])
         else:
             self.ridge_path_ = None
             self.ridge_penalty_ = float(self.ridge_penalty)
@@ -359,12 +389,24 @@ class LocalLinearForestRegressor(_ForestBase):
     def ridge_path(self, ridge_penalties) -> np.ndarray:
         """Return out-of-bag mean squared error for each penalty (cached moments, no refit)."""
         check_is_fitted(self)
+        with np.errstate(over="ignore"):  # inf: an error beyond float64 (y ~ 1e200)
+            return self._ridge_path_in_units(ridge_penalties) * np.float64(self._y_unit) ** 2
+
+    @property
+    def _y_unit(self) -> float:
+        """The power of two near the largest |y| (exact to divide by)."""
+        return float(binary_scale(self.y_train_))
+
+    def _ridge_path_in_units(self, ridge_penalties) -> np.ndarray:
+        """The out-of-bag errors of ``ridge_path`` divided by ``_y_unit ** 2`` (exactly)."""
         _, _, _, n_used, mom = self._oob_state()
         ok = n_used > 0
+        unit = self._y_unit
         out = []
         for lam in np.atleast_1d(ridge_penalties):
             fit = self._solve(mom, self._penalty(float(lam)))
-            out.append(float(np.mean((fit.intercept[ok] - self.y_train_[ok]) ** 2)))
+            resid = (fit.intercept[ok] - self.y_train_[ok]) / unit
+            out.append(float(np.mean(resid**2)))
         return np.array(out)
 
     def predict(self, X, return_std=False, *, ridge_penalty=None):

@@ -4,22 +4,28 @@ from hedgerow.local._solver import (
     COLLINEARITY_RCOND,
     LocalFit,
     LocalMoments,
+    binary_scale,
+    column_centre,
     default_scale,
     equivalent_kernel,
     local_moments,
     moment_features,
     moments_from_sums,
     solve_local,
+    standardise,
 )
 
 __all__ = [
     "COLLINEARITY_RCOND",
     "LocalFit",
     "LocalMoments",
+    "binary_scale",
+    "column_centre",
     "default_scale",
     "equivalent_kernel",
     "local_moments",
     "moment_features",
     "moments_from_sums",
     "solve_local",
+    "standardise",
 ]

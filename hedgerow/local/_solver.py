@@ -48,12 +48,15 @@ __all__ = [
     "COLLINEARITY_RCOND",
     "LocalFit",
     "LocalMoments",
+    "binary_scale",
+    "column_centre",
     "default_scale",
     "equivalent_kernel",
     "local_moments",
     "moment_features",
     "moments_from_sums",
     "solve_local",
+    "standardise",
 ]
 
 #: Reciprocal condition number of the local correlation matrix of the correction columns
@@ -142,12 +145,57 @@ class LocalFit:
     ridge_penalty: float
 
 
-def default_scale(X_c) -> np.ndarray:
-    """Return the column standard deviations of ``X_c`` (ddof=0), 1.0 for constant columns."""
+def _binary_magnitude(values) -> np.ndarray:
+    """Return the power of two at the order of each ``values`` (1.0 where 0 or not finite).
+
+    Dividing by a power of two is exact, so computing on ``x / p`` and scaling back gives
+    the same bits as computing on ``x`` wherever ``x`` itself does not over- or underflow,
+    and keeps squares of columns near 1e+-300 representable.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    ok = np.isfinite(values) & (values != 0.0)
+    return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, values, 1.0))[1]), 1.0)
+
+
+def binary_scale(values) -> float:
+    """Return the power of two at the order of the largest finite ``|values|`` (or 1.0)."""
+    values = np.abs(np.asarray(values, dtype=np.float64))
+    values = values[np.isfinite(values)]
+    return float(_binary_magnitude(values.max() if values.size else 0.0))
+
+
+def column_centre(X_c) -> np.ndarray:
+    """Return the column means of ``X_c``, computed without overflow near 1e+-300."""
     X_c = np.asarray(X_c, dtype=np.float64)
-    scale = X_c.std(axis=0) if X_c.shape[0] else np.ones(X_c.shape[1])
+    if X_c.shape[0] == 0:
+        return np.zeros(X_c.shape[1])
+    p = _binary_magnitude(np.abs(X_c).max(axis=0))
+    return (X_c / p).mean(axis=0) * p
+
+
+def default_scale(X_c) -> np.ndarray:
+    """Return the column standard deviations of ``X_c`` (ddof=0), 1.0 for constant columns.
+
+    Computed on each column divided by a power of two near its largest magnitude (exact),
+    so a column near 1e300 does not overflow its spread and one near 1e-300 does not
+    underflow to a "constant" column; ordinary columns get the same bits as ``X_c.std``.
+    """
+    X_c = np.asarray(X_c, dtype=np.float64)
+    if not X_c.shape[0]:
+        return np.ones(X_c.shape[1])
+    p = _binary_magnitude(np.abs(X_c).max(axis=0))
+    scale = (X_c / p).std(axis=0) * p
     # A constant column carries no local slope; any positive scale keeps z finite.
     return np.where(scale > 0.0, scale, 1.0)
+
+
+def standardise(X_c, centre, scale) -> np.ndarray:
+    """Return ``(X_c - centre) / scale`` without overflowing the difference near 1e+-300.
+
+    The same bits as the plain formula on ordinary data (the power of two is exact).
+    """
+    p = _binary_magnitude(scale)
+    return (np.asarray(X_c, dtype=np.float64) / p - centre / p) / (scale / p)
 
 
 def _csr_dense_py(data, indices, indptr, BT):
@@ -270,8 +318,8 @@ def moment_features(X_c, y, scale, *, degree: int = 1):
         return np.ascontiguousarray(np.stack([np.ones(y.shape[0]), y], axis=1)), np.zeros(0)
     X_c = np.asarray(X_c, dtype=np.float64)
     n, k = X_c.shape
-    centre = X_c.mean(axis=0) if n else np.zeros(k)
-    Xs = (X_c - centre) / scale
+    centre = column_centre(X_c)
+    Xs = standardise(X_c, centre, scale)
     iu, ju = _pair_indices(k)
     B = np.concatenate(
         [np.ones((n, 1)), Xs, Xs[:, iu] * Xs[:, ju], y[:, None], Xs * y[:, None]], axis=1
@@ -302,7 +350,7 @@ def moments_from_sums(R, Q_c, centre, scale, *, degree: int = 1) -> LocalMoments
         )
     Q_c = np.asarray(Q_c, dtype=np.float64)
     m, k = Q_c.shape
-    Qs = (Q_c - centre) / scale
+    Qs = standardise(Q_c, centre, scale)
     iu, ju = _pair_indices(k)
     p = len(iu)
     s0 = R[:, 0]

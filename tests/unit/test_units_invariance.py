@@ -10,6 +10,8 @@ times as wide. The local linear forest standardises its correction columns, so i
 both properties. Checked on several designs, with scales from 1e-12 to 1e12.
 """
 
+import warnings
+
 import numpy as np
 import pytest
 from sklearn.datasets import make_friedman1
@@ -118,3 +120,40 @@ def test_local_linear_forest_invariant_under_units(seed):
     p1, s1 = moved.predict(Q * a + b, return_std=True)
     np.testing.assert_allclose(p1, c * p0 + d, rtol=1e-8, atol=1e-7 * c * np.abs(y).max())
     np.testing.assert_allclose(s1, c * s0, rtol=1e-5, atol=1e-7 * c * np.abs(y).max())
+
+
+@pytest.mark.parametrize("scale", [1e-300, 1e-150, 1e150, 1e300])
+def test_forests_survive_extreme_magnitudes(scale):
+    # columns near 1e+-300: the spread of a column used to overflow (or underflow to a
+    # "constant" column) and the local linear forest silently became the plain forest
+    X, y = DESIGNS["friedman1"]
+    Q = _queries(X, 30)
+    for cls in (HonestForestRegressor, LocalLinearForestRegressor):
+        params = dict(n_estimators=20, random_state=6)
+        base = cls(**params).fit(X, y)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)  # no overflow on the way
+            big = cls(**params).fit(X * scale, y)
+            p1, s1 = big.predict(Q * scale, return_std=True)
+        p0, s0 = base.predict(Q, return_std=True)
+        np.testing.assert_allclose(p1, p0, rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(s1, s0, rtol=1e-6, atol=1e-9)
+        if cls is LocalLinearForestRegressor:
+            np.testing.assert_array_equal(big.correction_features_,
+                                          base.correction_features_)
+            assert big.ridge_penalty_ == base.ridge_penalty_
+
+
+@pytest.mark.parametrize("c", [1e-300, 1e-200, 1e-100, 1e100, 1e200, 1e300])
+def test_local_linear_forest_screening_and_penalty_ignore_target_units(c):
+    # the lasso screening raised UnboundLocalError inside LassoCV for y ~ 1e200 and kept
+    # other columns for y ~ 1e+-100; squared out-of-bag errors underflowed near 1e-300
+    for name in ("friedman1", "step"):
+        X, y = DESIGNS[name]
+        params = dict(n_estimators=20, random_state=8)
+        base = LocalLinearForestRegressor(**params).fit(X, y)
+        moved = LocalLinearForestRegressor(**params).fit(X, c * y)
+        np.testing.assert_array_equal(moved.correction_features_, base.correction_features_)
+        assert moved.ridge_penalty_ == base.ridge_penalty_
+        np.testing.assert_allclose(moved.predict(X[:30]) / c, base.predict(X[:30]),
+                                   rtol=1e-8)
