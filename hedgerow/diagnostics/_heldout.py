@@ -99,7 +99,8 @@ def cross_fit_fold(k, X, y, fold, specs, step=None) -> dict:
     or ``"local average of <label>"`` (reuse that method's local average instead of a fit).
     Returns ``{"rows": held-out row indices, label: predictions, "correction_features": ...}``.
     Each template is cloned, so every choice it makes (penalty, columns, bandwidth) is made
-    on the training rows of the fold alone. ``step()`` is called after each method.
+    on the training rows of the fold alone. ``step()`` is called between methods (the
+    caller counts the last step once it holds the result, so a stop there loses nothing).
     """
     from sklearn.base import clone
 
@@ -112,16 +113,14 @@ def cross_fit_fold(k, X, y, fold, specs, step=None) -> dict:
         for label, template, extra in specs:
             if isinstance(extra, str) and extra.startswith("local average of "):
                 out[label] = out[f"_local_average {extra[len('local average of '):]}"]
-                if step is not None:
-                    step()
-                continue
-            model = clone(template).fit(Xtr, ytr)
-            out[label] = np.asarray(model.predict(Xte), dtype=np.float64).ravel()
-            if extra is not None:
-                out[f"_local_average {label}"] = np.asarray(
-                    model.local_average(Xte), dtype=np.float64)
-                out["correction_features"] = np.asarray(model.correction_features_)
-                out["ridge_penalty"] = float(model.ridge_penalty_)
-            if step is not None:
+            else:
+                model = clone(template).fit(Xtr, ytr)
+                out[label] = np.asarray(model.predict(Xte), dtype=np.float64).ravel()
+                if extra is not None:
+                    out[f"_local_average {label}"] = np.asarray(
+                        model.local_average(Xte), dtype=np.float64)
+                    out["correction_features"] = np.asarray(model.correction_features_)
+                    out["ridge_penalty"] = float(model.ridge_penalty_)
+            if step is not None and label != specs[-1][0]:
                 step()
     return out

@@ -474,6 +474,7 @@ def _run_folds(X, y, fold, folds, specs, progress, client):
         if client is None:
             for k in range(folds):
                 results[k] = cross_fit_fold(k, X, y, fold, specs, step=bar.update)
+                bar.update(1)
         else:
             from hedgerow._distributed import run_tasks
 
