@@ -382,7 +382,7 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
             step("verdict")
             verdict = D.verdict(model.X_train_, model.y_train_, forest=model,
                                 smoothers=list(smoothers), baseline=True,
-                                random_state=random_state)
+                                random_state=random_state, progress=False)
             bar.update(1)
             step("probe")
             probe_report = D.probe(model, x, compare=smoothers)
@@ -792,11 +792,13 @@ def _verdict_html(r: Report) -> str:
                          f" to {_pct(row[f'upper_{part}'])}</small>")
         rows.append(cells)
     return (f'<p class="hr-conclusion" id="verdict-conclusion">{_e(v.conclusion)}</p>'
-            f"<p>Share of the honest forest's held-out squared error each method removes "
-            f"(negative: worse), paired row by row on the same rows, with {lvl} intervals. "
-            f"The honest forest is the local average on the same trees as the local linear "
-            f"forest. Edge band: rows with edge depth below {D.EDGE_BAND:.2f}.</p>"
-            + _table(["method", "all rows", "edge band", "interior"], rows, "hr-verdict"))
+            f"<p>Share of each method's held-out squared error the local linear forest "
+            f"removes (negative: worse), paired row by row on the same rows, with {lvl} "
+            f"intervals; scored by {_e(v.scoring)}. The diagnostic row is the local average "
+            f"on the local linear forest's own trees (split for the correction, so a "
+            f"handicapped plain forest). Edge band: rows with edge depth below "
+            f"{D.EDGE_BAND:.2f}.</p>"
+            + _table(["against", "all rows", "edge band", "interior"], rows, "hr-verdict"))
 
 
 def _probe_html(r: Report) -> str:

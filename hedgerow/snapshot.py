@@ -660,6 +660,7 @@ def _headline(model, x, ridge_penalty, want_verdict):
                 raise ValueError("The 'verdict' parameter needs a local linear forest. Got "
                                  f"{type(model).__name__} instead.")
             conclusion = D.verdict(model.X_train_, model.y_train_, forest=view,
-                                   smoothers=None, baseline=False).conclusion
+                                   smoothers=None, baseline=False,
+                                   progress=False).conclusion
     return ({"oob_rmse": rmse, "mean_interval_width": width, "interval_level": level,
              "verdict": conclusion, "probe_prediction": pred_at}, lam)

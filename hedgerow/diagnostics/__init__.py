@@ -28,7 +28,14 @@ from hedgerow.diagnostics._probe import TOP_ROWS, MethodAtProbe, ProbeReport, pr
 from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
-from hedgerow.diagnostics._verdict import EDGE_BAND, Verdict, paired_relative_gain, verdict
+from hedgerow.diagnostics._verdict import (
+    DECISIONS,
+    EDGE_BAND,
+    Verdict,
+    carrying_rows,
+    paired_relative_gain,
+    verdict,
+)
 
 __all__ = [
     "at_ridge_penalty",
@@ -55,6 +62,8 @@ __all__ = [
     "SliceReport",
     "TOP_ROWS",
     "Verdict",
+    "DECISIONS",
+    "carrying_rows",
     "edge_depth",
     "edges",
     "held_out_predictions",

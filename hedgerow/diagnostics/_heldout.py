@@ -1,4 +1,4 @@
-"""Held-out predictions of the training rows, whatever the method."""
+"""Held-out predictions of the training rows, whatever the method; cross-fitting folds."""
 
 from __future__ import annotations
 
@@ -6,7 +6,8 @@ import warnings
 
 import numpy as np
 
-__all__ = ["held_out_predictions", "edge_depth"]
+__all__ = ["held_out_predictions", "edge_depth", "fold_assignment", "same_rows",
+           "take_rows", "cross_fit_fold"]
 
 
 def held_out_predictions(model) -> np.ndarray:
@@ -51,3 +52,75 @@ def edge_depth(X, columns=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     depth = depth_all[rows, pick]
     side = np.where(F[rows, pick] > 0.5, 1, -1)
     return depth, cols[pick], side
+
+
+# -- cross-fitting ---------------------------------------------------------------------------
+def fold_assignment(n: int, folds: int, random_state=0) -> np.ndarray:
+    """Return the fold (0 .. folds-1) of each of ``n`` rows: a seeded shuffle, sizes within 1.
+
+    The same assignment is used for every method of a comparison, so errors pair row by row.
+    """
+    rng = np.random.default_rng(random_state)
+    fold = np.empty(n, dtype=np.int64)
+    fold[rng.permutation(n)] = np.arange(n) % folds
+    return fold
+
+
+def same_rows(model, X, y) -> bool:
+    """Return True when ``(X, y)`` are exactly the rows ``model`` was fitted on (fingerprint).
+
+    The fingerprint is the training arrays themselves: same shape, same values in the same
+    order (NaN never occurs in accepted training data).
+    """
+    Xt, yt = getattr(model, "X_train_", None), getattr(model, "y_train_", None)
+    if Xt is None or yt is None:
+        return False
+    try:
+        Xa = np.asarray(X, dtype=np.float64)
+        ya = np.asarray(y, dtype=np.float64).ravel()
+    except (TypeError, ValueError):
+        return False
+    return (Xa.shape == Xt.shape and ya.shape == yt.shape and np.array_equal(Xa, Xt)
+            and np.array_equal(ya, yt))
+
+
+def take_rows(X, rows):
+    """Return rows ``rows`` of X, keeping a DataFrame a DataFrame (column names matter)."""
+    if hasattr(X, "iloc"):
+        return X.iloc[rows]
+    return X[rows]
+
+
+def cross_fit_fold(k, X, y, fold, specs, step=None) -> dict:
+    """Fit every method of ``specs`` on the rows outside fold ``k``; predict fold ``k``.
+
+    ``specs``: ``(label, template, extra)`` with ``extra`` one of ``None``, ``"same trees"``
+    (also return the fitted forest's local average under the label in ``template`` pairs)
+    or ``"local average of <label>"`` (reuse that method's local average instead of a fit).
+    Returns ``{"rows": held-out row indices, label: predictions, "correction_features": ...}``.
+    Each template is cloned, so every choice it makes (penalty, columns, bandwidth) is made
+    on the training rows of the fold alone. ``step()`` is called between methods (the
+    caller counts the last step once it holds the result, so a stop there loses nothing).
+    """
+    from sklearn.base import clone
+
+    train, test = np.flatnonzero(fold != k), np.flatnonzero(fold == k)
+    Xtr, ytr, Xte = take_rows(X, train), y[train], take_rows(X, test)
+    out = {"rows": test}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        warnings.filterwarnings("ignore", message="X does not have valid feature names")
+        for label, template, extra in specs:
+            if isinstance(extra, str) and extra.startswith("local average of "):
+                out[label] = out[f"_local_average {extra[len('local average of '):]}"]
+            else:
+                model = clone(template).fit(Xtr, ytr)
+                out[label] = np.asarray(model.predict(Xte), dtype=np.float64).ravel()
+                if extra is not None:
+                    out[f"_local_average {label}"] = np.asarray(
+                        model.local_average(Xte), dtype=np.float64)
+                    out["correction_features"] = np.asarray(model.correction_features_)
+                    out["ridge_penalty"] = float(model.ridge_penalty_)
+            if step is not None and label != specs[-1][0]:
+                step()
+    return out

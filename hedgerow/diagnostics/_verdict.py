@@ -1,7 +1,18 @@
-"""Is the local linear correction warranted? Paired held-out errors and a plain answer."""
+"""Is the local linear correction warranted? Cross-fitted paired errors and a plain answer.
+
+Every number comes from K-fold cross-fitting (seeded, the same folds for every method):
+each method is cloned and fitted on the training rows of a fold, so whatever it chooses
+from data (ridge penalty, correction columns, bandwidths) is chosen without the rows it is
+scored on. The local linear forest is compared with the forests a user would otherwise
+fit: a plain honest forest grown on its own (``split_rule="mean"``), scikit-learn's random
+forest, and any regressor passed in. The local average on the local linear forest's own
+trees stays as a labelled diagnostic row: those trees were split for the correction, so as
+a plain forest they are handicapped.
+"""
 
 from __future__ import annotations
 
+import numbers
 import warnings
 from dataclasses import dataclass
 
@@ -9,14 +20,35 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
+from hedgerow.diagnostics._heldout import (
+    cross_fit_fold,
+    edge_depth,
+    fold_assignment,
+    held_out_predictions,
+    same_rows,
+)
 from hedgerow.diagnostics._report import ReportMixin
 from hedgerow.diagnostics._slices import method_label
 
-__all__ = ["Verdict", "verdict", "paired_relative_gain", "EDGE_BAND"]
+__all__ = ["Verdict", "verdict", "paired_relative_gain", "carrying_rows", "EDGE_BAND",
+           "DECISIONS", "FRAGILE_ROWS", "SKLEARN_FOREST"]
 
 #: Rows with edge depth below this form the edge band (the outer 10% of the data).
 EDGE_BAND = 0.10
+#: The decisions the sentence can name (plus "incomplete" and "constant target").
+DECISIONS = ("warranted", "no evidence either way", "hurts")
+#: A comparison is flagged fragile when this many rows or fewer carry half its difference.
+FRAGILE_ROWS = 5
+#: scikit-learn's random forest as a user would fit it: 500 trees (beyond a few hundred
+#: trees its error barely moves, common practice), leaves of at least 5 rows, every other
+#: setting scikit-learn's default (bootstrap, all columns at each split).
+SKLEARN_FOREST = {"n_estimators": 500, "min_samples_leaf": 5}
+
+LLF = "local linear forest"
+PLAIN = "honest forest"
+SAME_TREES = "honest forest (same trees, diagnostic)"
+SKLEARN = "random forest (scikit-learn)"
+PREVIEW = "preview (selection not held out)"
 
 
 def paired_relative_gain(err_base, err_new, level=0.95):
@@ -41,103 +73,438 @@ def paired_relative_gain(err_base, err_new, level=0.95):
     return float(1 - R), float(1 - R - z * se), float(1 - R + z * se)
 
 
+def carrying_rows(err_base, err_new) -> tuple[int, float]:
+    """Return ``(k, share)``: the fewest rows carrying half the squared-error difference.
+
+    With d_i = err_base_i - err_new_i and D = sum d_i, rows are taken in decreasing order
+    of their contribution in the direction of D until they sum to at least |D| / 2; ``share``
+    is what those k rows carry, as a share of |D|. ``(0, nan)`` when D is 0 or no row pairs.
+    """
+    a = np.asarray(err_base, dtype=np.float64)
+    b = np.asarray(err_new, dtype=np.float64)
+    ok = np.isfinite(a) & np.isfinite(b)
+    d = a[ok] - b[ok]
+    total = float(d.sum())
+    if d.size == 0 or total == 0.0:
+        return 0, float("nan")
+    c = np.sort(np.sign(total) * d)[::-1]
+    cum = np.cumsum(c)
+    k = int(np.searchsorted(cum, abs(total) / 2)) + 1
+    k = min(k, d.size)
+    return k, float(cum[k - 1] / abs(total))
+
+
 @dataclass(frozen=True)
 class Verdict(ReportMixin):
     """Paired comparison of held-out squared errors and the conclusion drawn from it.
 
-    ``errors``: per-row squared held-out errors per method plus ``edge_depth``.
-    ``comparisons``: for each method against the honest forest on the same trees, the
-    relative gain (share of held-out squared error removed; negative = worse) with its
-    interval, overall, in the edge band and in the interior. ``conclusion``: one plain
-    sentence derived from the local linear forest's row of ``comparisons``.
+    ``errors``: per-row squared held-out errors per method, the row's ``fold`` and its
+    ``edge_depth``. ``comparisons``: one row per method the local linear forest is compared
+    with: its gain over that method (share of the method's held-out squared error it
+    removes; negative = worse) with the interval, overall, in the edge band and in the
+    interior; ``mse`` of that method; ``role`` ("alternative" or "diagnostic");
+    ``rows_for_half`` / ``share_of_half`` (``carrying_rows``) and ``fragile``.
+    ``decision``: one of ``DECISIONS``, ``"incomplete"`` or ``"constant target"``.
+    ``best_alternative``: the alternative with the lowest held-out error, the one the
+    sentence leads with. ``scoring``: ``"cross-fit, K folds"`` or ``PREVIEW``.
+    ``folds_done`` of ``folds``; ``data_note``: what was done with a fitted forest's rows.
     """
 
     errors: pd.DataFrame
     comparisons: pd.DataFrame
     conclusion: str
     level: float
+    decision: str = ""
+    best_alternative: str | None = None
+    scoring: str = ""
+    folds: int = 0
+    folds_done: int = 0
+    settings: dict | None = None
+    data_note: str = ""
     _title = "verdict"
 
     def to_frame(self) -> pd.DataFrame:
         return self.comparisons.copy()
 
     def _notes(self):
-        return [self.conclusion]
+        notes = [self.conclusion, f"scored by {self.scoring}"]
+        if self.data_note:
+            notes.append(self.data_note)
+        return notes
 
 
-def _conclusion(row_all, row_edge, row_inner, level):
-    g, lo, hi = row_all
+# -- the sentence -----------------------------------------------------------------------------
+def _pc(v, signed=False):
+    """Return a percentage; one decimal below 10% so a small change does not read as 0."""
+    digits = 1 if abs(v) < 0.095 else 0
+    return f"{100 * v:+.{digits}f}%" if signed else f"{100 * v:.{digits}f}%"
+
+
+def _source(errors, best, edge):
+    """Return the clause saying where the difference against ``best`` comes from."""
+    d = (errors[best] - errors[LLF]).to_numpy()
+    ok = np.isfinite(d)
+    total = d[ok].sum()
+    if total == 0 or not edge[ok].any():
+        return ""
+    share = d[ok & edge].sum() / total
+    band = (f"the edge band (the outer {100 * EDGE_BAND:.0f}% of the data in any corrected "
+            f"column, {_pc(edge[ok].mean())} of rows)")
+    if share > 0.5:
+        return f"; {_pc(share)} of the difference comes from {band}"
+    return f"; most of the difference comes from the interior, {_pc(share)} from {band}"
+
+
+def _conclusion(comparisons, errors, edge, best, level, scoring):
     pct = f"{100 * level:.0f}%"
+    lead = "Preview (selection not held out): " if scoring == PREVIEW else ""
+    if best is None:
+        return "no evidence either way", lead + "Not enough held-out predictions to compare."
+    r = comparisons.loc[best]
+    g, lo, hi = r["gain_all"], r["lower_all"], r["upper_all"]
     if not np.isfinite(g):
-        return "Not enough held-out predictions to compare."
+        return "no evidence either way", lead + "Not enough held-out predictions to compare."
+    against = f"against the best alternative, the {best}"
+    where = _source(errors, best, edge)
+    if g >= 0:
+        interval = f"({pct} interval {_pc(lo, True)} to {_pc(hi, True)})"
+        head = f"The local linear forest lowers held-out error by {_pc(g)} {interval} {against}"
+    else:  # the interval of the rise, so its ends read in the same sense as the number
+        interval = f"({pct} interval {_pc(-hi, True)} to {_pc(-lo, True)})"
+        head = f"The local linear forest raises held-out error by {_pc(-g)} {interval} {against}"
     if lo > 0:
-        where = ""
-        ge, gi = row_edge[0], row_inner[0]
-        if np.isfinite(ge) and np.isfinite(gi) and ge > gi:
-            where = ", most of it in the outer 10% of the data"
-        return (f"The local linear correction lowers held-out error by {100 * g:.0f}% "
-                f"({pct} interval {100 * lo:.0f}-{100 * hi:.0f}%){where}.")
-    if hi < 0:
-        return (f"The correction hurts: held-out error rises by {100 * -g:.0f}% "
-                f"({pct} interval {100 * -hi:.0f}-{100 * -lo:.0f}%).")
-    return (f"No evidence either way: the change in held-out error is {100 * g:+.0f}% "
-            f"({pct} interval {100 * lo:+.0f}% to {100 * hi:+.0f}%).")
+        decision, tail = "warranted", "Decision: warranted."
+    elif hi < 0:
+        decision, tail = "hurts", "Decision: hurts; keep the simpler model."
+    else:
+        decision, tail = ("no evidence either way",
+                          "Decision: no evidence either way; keep the simpler model.")
+    parts = [f"{lead}{head}{where}.", tail]
+    if r["fragile"]:
+        parts.append(f"Fragile: {int(r['rows_for_half'])} rows carry "
+                     f"{_pc(r['share_of_half'])} of the difference.")
+    if decision != "warranted" and SAME_TREES in comparisons.index:
+        s = comparisons.loc[SAME_TREES]
+        if s["lower_all"] > 0:
+            parts.append(
+                f"It beats only the local average on its own trees, a handicapped baseline "
+                f"(those trees are split for the correction): {_pc(s['gain_all'])} "
+                f"({pct} interval {_pc(s['lower_all'], True)} to "
+                f"{_pc(s['upper_all'], True)}).")
+    return decision, " ".join(parts)
 
 
-def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, level=0.95,
-            random_state=0, n_jobs=None, **forest_params) -> Verdict:
-    """Return the ``Verdict`` on whether the local linear correction is warranted.
+# -- checks -----------------------------------------------------------------------------------
+def _check_choice(name, value, allowed):
+    if not isinstance(value, str) or value not in allowed:
+        raise ValueError(f"The '{name}' parameter must be one of {set(allowed)}. "
+                         f"Got {value!r} instead.")
+    return value
 
-    One ``LocalLinearForestRegressor`` (``forest``, fitted here if None with
-    ``forest_params``) supplies both forests on the same trees: its out-of-bag local line
-    and its out-of-bag local average (the honest forest). ``smoothers="cv"`` adds
-    Nadaraya-Watson and kernel local linear regression with cross-validated bandwidths
-    (leave-one-out errors), ``None`` skips them, or pass fitted smoothers. ``baseline``
-    adds ``sklearn.ensemble.RandomForestRegressor(min_samples_leaf=5)`` with its
-    out-of-bag predictions. Errors are compared row by row against the honest forest.
-    """
+
+def _check_folds(folds, n):
+    if isinstance(folds, bool) or not isinstance(folds, numbers.Integral) or not (
+            2 <= int(folds) <= n):
+        raise ValueError(f"The 'folds' parameter must be an integer from 2 to the number of "
+                         f"rows ({n}). Got {folds!r} instead.")
+    return int(folds)
+
+
+def _as_arrays(X, y):
+    try:
+        Xa = np.asarray(X, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"The 'X' parameter must be a numeric 2-d array or DataFrame. "
+                         f"Got {type(X).__name__} with non-numeric values instead.") from exc
+    if Xa.ndim != 2:
+        raise ValueError(f"The 'X' parameter must be 2-d (rows x columns). Got an array of "
+                         f"shape {Xa.shape} instead.")
+    try:
+        ya = np.asarray(y, dtype=np.float64).ravel()
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"The 'y' parameter must be numeric. Got {type(y).__name__} "
+                         f"with non-numeric values instead.") from exc
+    if ya.shape[0] != Xa.shape[0]:
+        raise ValueError(f"The 'y' parameter must have one value per row of X "
+                         f"({Xa.shape[0]}). Got {ya.shape[0]} values instead.")
+    if not np.all(np.isfinite(ya)):
+        raise ValueError("The 'y' parameter must be finite. Got NaN or infinite values "
+                         "instead.")
+    return Xa, ya
+
+
+# -- the methods ------------------------------------------------------------------------------
+def _forest_template(forest, X, y, on_new_data, random_state, n_jobs, forest_params):
+    """Return (unfitted template, fitted forest on these rows or None, data note)."""
+    from sklearn.base import clone
+
     from hedgerow.estimators import LocalLinearForestRegressor
 
     if forest is None:
-        forest = LocalLinearForestRegressor(random_state=random_state, n_jobs=n_jobs,
-                                            **forest_params).fit(X, y)
-    Xa, ya = forest.X_train_, forest.y_train_
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        preds = {"honest forest": forest.oob_local_average(),
-                 "local linear forest": forest.oob_predict()}
-    if smoothers == "cv":
+        params = {"random_state": random_state, "n_jobs": n_jobs, **forest_params}
+        return LocalLinearForestRegressor(**params), None, ""
+    if not isinstance(forest, LocalLinearForestRegressor):
+        raise TypeError(f"The 'forest' parameter must be a LocalLinearForestRegressor or "
+                        f"None. Got {type(forest).__name__} instead.")
+    if forest_params:
+        raise TypeError(f"Forest settings {sorted(forest_params)} are given together with a "
+                        f"'forest'; set them on the forest instead.")
+    template = clone(forest)
+    fitted, note = None, ""
+    if hasattr(forest, "ridge_penalty_"):
+        if same_rows(forest, X, y):
+            fitted = forest
+        elif on_new_data == "raise":
+            raise ValueError(
+                f"The 'X' and 'y' parameters must be the rows the fitted 'forest' was "
+                f"trained on (its {forest.X_train_.shape[0]} rows), since "
+                f"on_new_data='raise'. Got {np.shape(X)[0]} rows that differ instead; pass "
+                f"on_new_data='refit' to score its settings on these rows.")
+        else:
+            note = (f"The forest passed was fitted on other rows ({forest.X_train_.shape[0]}); "
+                    f"its settings were fitted and scored on the {np.shape(X)[0]} rows given.")
+        path = forest.ridge_path_
+        chosen_by_oob = (isinstance(forest.ridge_penalty, str) and path is not None and
+                         forest.ridge_penalty_ == float(
+                             path["ridge_penalty"][int(np.nanargmin(path["oob_mse"]))]))
+        if not chosen_by_oob:
+            # a penalty set by hand (or a view at one) stays fixed in every fold
+            template.set_params(ridge_penalty=float(forest.ridge_penalty_))
+    if template.random_state is None:
+        template.set_params(random_state=random_state)
+    if n_jobs is not None:
+        template.set_params(n_jobs=n_jobs)
+    return template, fitted, note
+
+
+def _plain_template(llf):
+    from hedgerow.estimators import HonestForestRegressor
+
+    p = llf.get_params()
+    keep = ("n_estimators", "subsample_rate", "trees_per_bag", "honest", "min_samples_leaf",
+            "max_features", "max_depth", "random_state", "n_jobs")
+    return HonestForestRegressor(**{k: p[k] for k in keep})
+
+
+def _sklearn_template(random_state, n_jobs):
+    from sklearn.ensemble import RandomForestRegressor
+
+    return RandomForestRegressor(**SKLEARN_FOREST, random_state=random_state, n_jobs=n_jobs)
+
+
+def _specs(template, smoothers, baseline, others, random_state, n_jobs):
+    """Return ``[(label, template, extra)]`` and ``{label: role}`` for the comparison."""
+    from sklearn.base import clone
+
+    specs = [(LLF, template, "same trees")]
+    if template.split_rule == "mean":
+        # the same seed and settings grow the same trees (a test pins it): reuse them
+        specs.append((PLAIN, None, f"local average of {LLF}"))
+    else:
+        specs.append((PLAIN, _plain_template(template), None))
+    if baseline:
+        specs.append((SKLEARN, _sklearn_template(random_state, n_jobs), None))
+    if isinstance(smoothers, str):
+        _check_choice("smoothers", smoothers, ("cv",))
         from hedgerow.estimators import LocalLinearRegressor, NadarayaWatsonRegressor
 
-        smoothers = [NadarayaWatsonRegressor().fit(Xa, ya), LocalLinearRegressor().fit(Xa, ya)]
-    for s in smoothers or ():
-        preds[method_label(s)] = held_out_predictions(s)
-    if baseline:
-        from sklearn.ensemble import RandomForestRegressor
+        smoothers = [NadarayaWatsonRegressor(), LocalLinearRegressor()]
+    taken = {s[0] for s in specs}
+    for m in list(smoothers or ()) + list(others or ()):
+        if not hasattr(m, "fit") or not hasattr(m, "predict"):
+            raise TypeError(f"The 'smoothers' and 'others' parameters must hold regressors "
+                            f"with fit and predict. Got {type(m).__name__} instead.")
+        label, i = method_label(m), 2
+        while label in taken:
+            label, i = f"{method_label(m)} ({i})", i + 1
+        taken.add(label)
+        specs.append((label, clone(m), None))
+    return specs
 
-        rf = RandomForestRegressor(min_samples_leaf=5, oob_score=True,
-                                   random_state=random_state, n_jobs=n_jobs).fit(Xa, ya)
-        preds["random forest (scikit-learn)"] = rf.oob_prediction_.ravel()
-    depth, _, _ = edge_depth(Xa, forest.correction_features_)
-    edge = depth < EDGE_BAND
-    errors = pd.DataFrame({k: (ya - v) ** 2 for k, v in preds.items()})
-    errors["edge_depth"] = depth
-    base = errors["honest forest"].to_numpy()
+
+def _settings(specs):
+    out = {}
+    for label, template, extra in specs:
+        if template is None:
+            out[label] = "the local linear forest's settings and trees (split_rule='mean')"
+        elif label == SKLEARN:
+            out[label] = ", ".join(f"{k}={v}" for k, v in SKLEARN_FOREST.items()) + \
+                ", other settings scikit-learn's defaults"
+        else:
+            p = template.get_params(deep=False)
+            out[label] = ", ".join(f"{k}={p[k]!r}" for k in sorted(p))
+    return out
+
+
+# -- assembling ---------------------------------------------------------------------------
+def _compare(errors, labels, roles, edge, level):
     rows = []
-    for name in preds:
-        if name == "honest forest":
+    for name in labels:
+        if name == LLF:
             continue
-        e = errors[name].to_numpy()
-        row = {"method": name}
+        base, new = errors[name].to_numpy(), errors[LLF].to_numpy()
+        row = {"method": name, "role": roles[name], "mse": float(np.nanmean(base))}
         for part, sel in (("all", slice(None)), ("edge", edge), ("interior", ~edge)):
-            g, lo, hi = paired_relative_gain(base[sel], e[sel], level)
+            g, lo, hi = paired_relative_gain(base[sel], new[sel], level)
             row[f"gain_{part}"], row[f"lower_{part}"], row[f"upper_{part}"] = g, lo, hi
+        k, share = carrying_rows(base, new)
+        row["rows_for_half"], row["share_of_half"] = k, share
+        row["fragile"] = bool(0 < k <= FRAGILE_ROWS)
         rows.append(row)
-    comparisons = pd.DataFrame(rows).set_index("method")
-    r = comparisons.loc["local linear forest"]
-    conclusion = _conclusion(
-        (r["gain_all"], r["lower_all"], r["upper_all"]),
-        (r["gain_edge"], r["lower_edge"], r["upper_edge"]),
-        (r["gain_interior"], r["lower_interior"], r["upper_interior"]), level,
-    )
-    return Verdict(errors=errors, comparisons=comparisons, conclusion=conclusion, level=level)
+    return pd.DataFrame(rows).set_index("method")
+
+
+def _constant(y, level, scoring):
+    errors = pd.DataFrame({"fold": np.zeros(y.size, dtype=np.int64)})
+    cols = ["role", "mse", "gain_all", "lower_all", "upper_all", "gain_edge", "lower_edge",
+            "upper_edge", "gain_interior", "lower_interior", "upper_interior",
+            "rows_for_half", "share_of_half", "fragile"]
+    comp = pd.DataFrame(columns=cols, index=pd.Index([], name="method"))
+    return Verdict(errors=errors, comparisons=comp,
+                   conclusion="The target is constant: nothing to smooth.", level=level,
+                   decision="constant target", scoring=scoring)
+
+
+def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, folds=5,
+            scoring="cross-fit", on_new_data="refit", level=0.95, random_state=0,
+            n_jobs=None, progress=True, client=None, **forest_params) -> Verdict:
+    """Return the ``Verdict`` on whether the local linear correction is warranted.
+
+    Parameters
+    ----------
+    X, y : the rows to score. They are the rows scored, whatever ``forest`` was fitted on.
+    forest : LocalLinearForestRegressor or None
+        Its settings are the ones judged (None: ``LocalLinearForestRegressor(**forest_params)``
+        with ``random_state`` and ``n_jobs``). A fitted forest whose ridge penalty was set
+        (or viewed) at a value keeps that value in every fold; one left at ``"auto"`` has it
+        chosen inside each fold.
+    smoothers : "cv", None or a list of regressors
+        ``"cv"``: Nadaraya-Watson and kernel local linear regression, bandwidths chosen
+        inside each training fold. Regressors passed are cloned and refitted per fold.
+    baseline : bool
+        Add scikit-learn's ``RandomForestRegressor(**SKLEARN_FOREST)``.
+    others : list of scikit-learn regressors, optional
+        Further alternatives (a boosting model, say), cloned and refitted per fold.
+    folds : int, default 5
+        Cross-fitting folds; ``random_state`` seeds them, the same folds for every method.
+    scoring : {"cross-fit", "preview"}
+        ``"preview"`` scores out-of-bag / leave-one-out errors of full-data fits instead:
+        fast, but the penalty and columns were chosen on the rows scored, so the sentence
+        says "preview (selection not held out)". ``others`` are skipped in a preview.
+    on_new_data : {"refit", "raise"}
+        What to do when a fitted ``forest`` was trained on rows other than ``X, y``
+        (fingerprint: the exact training arrays): ``"refit"`` scores its settings on
+        ``X, y`` and says so in ``data_note``; ``"raise"`` raises ``ValueError``.
+    progress : bool or RunControl
+        One step per method and fold. Ctrl-C or a cancel returns a ``Verdict`` whose
+        decision is ``"incomplete"`` (rows of unfinished folds are NaN; no decision drawn).
+    client : dask.distributed.Client, optional
+        Run the folds as tasks on its workers; the numbers are those of the local run.
+    """
+    from hedgerow._validation import check_level
+
+    level = check_level(level)
+    _check_choice("scoring", scoring, ("cross-fit", "preview"))
+    _check_choice("on_new_data", on_new_data, ("refit", "raise"))
+    Xa, ya = _as_arrays(X, y)
+    n = ya.size
+    if scoring == "cross-fit":
+        folds = _check_folds(folds, n)
+    template, fitted, note = _forest_template(forest, X, y, on_new_data, random_state,
+                                              n_jobs, forest_params)
+    label_scoring = f"cross-fit, {folds} folds" if scoring == "cross-fit" else PREVIEW
+    if n > 0 and np.ptp(ya) == 0:
+        return _constant(ya, level, label_scoring)
+    if client is not None:
+        from hedgerow._distributed import check_client
+
+        client = check_client(client)
+    specs = _specs(template, smoothers, baseline, others if scoring == "cross-fit" else None,
+                   random_state, n_jobs)
+    roles = {label: "alternative" for label, _, _ in specs}
+    roles[SAME_TREES] = "diagnostic"
+    labels = [LLF, SAME_TREES] + [s[0] for s in specs[1:]]
+    if scoring == "preview":
+        preds, cols = _preview(X, ya, template, fitted, specs, n_jobs)
+        fold = np.zeros(n, dtype=np.int64)
+        done, folds = 1, 1
+    else:
+        fold = fold_assignment(n, folds, random_state)
+        results = _run_folds(X, ya, fold, folds, specs, progress, client)
+        done = len(results)
+        preds = {label: np.full(n, np.nan) for label in labels}
+        chosen = np.zeros(Xa.shape[1])
+        for r in results.values():
+            for label in labels:
+                src = f"_local_average {LLF}" if label == SAME_TREES else label
+                preds[label][r["rows"]] = r[src]
+            chosen[r["correction_features"]] += 1
+        # the edge band is measured in the columns most folds corrected on
+        cols = np.flatnonzero(chosen >= max(1, done) / 2) if done else None
+        if cols is not None and cols.size == 0:
+            cols = None
+    depth, _, _ = edge_depth(Xa, cols)
+    edge = depth < EDGE_BAND
+    errors = pd.DataFrame({k: (ya - preds[k]) ** 2 for k in labels})
+    errors["fold"] = fold
+    errors["edge_depth"] = depth
+    comparisons = _compare(errors, labels, roles, edge, level)
+    alts = comparisons[(comparisons["role"] == "alternative") & np.isfinite(comparisons["mse"])]
+    best = None if alts.empty else str(alts["mse"].idxmin())
+    if done < folds:
+        decision = "incomplete"
+        conclusion = (f"Incomplete: stopped after {done} of {folds} folds; no decision is "
+                      f"drawn (the numbers below cover the finished folds only).")
+    else:
+        decision, conclusion = _conclusion(comparisons, errors, edge, best, level,
+                                           label_scoring)
+    return Verdict(errors=errors, comparisons=comparisons, conclusion=conclusion,
+                   level=level, decision=decision, best_alternative=best,
+                   scoring=label_scoring, folds=folds, folds_done=done,
+                   settings=_settings(specs), data_note=note)
+
+
+def _run_folds(X, y, fold, folds, specs, progress, client):
+    """Return ``{k: cross_fit_fold(k, ...)}`` of the folds finished before any interrupt."""
+    from hedgerow._progress import progress_bar
+
+    results = {}
+    bar = progress_bar(folds * len(specs), "verdict: cross-fitting", progress)
+    try:
+        if client is None:
+            for k in range(folds):
+                results[k] = cross_fit_fold(k, X, y, fold, specs, step=bar.update)
+                bar.update(1)
+        else:
+            from hedgerow._distributed import run_tasks
+
+            def collect(k, r):
+                results[k] = r
+                bar.update(len(specs))
+
+            run_tasks(client, cross_fit_fold, list(range(folds)),
+                      shared=(X, y, fold, specs), what="verdict fold", on_result=collect)
+    except KeyboardInterrupt:
+        pass  # the finished folds are kept; the verdict says it is incomplete
+    finally:
+        bar.close()
+    return results
+
+
+def _preview(X, y, template, fitted, specs, n_jobs):
+    """Return out-of-bag / leave-one-out predictions of full-data fits (selection not held out)."""
+    from sklearn.base import clone
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        llf = fitted if fitted is not None else clone(template).fit(X, y)
+        preds = {LLF: llf.oob_predict(), SAME_TREES: llf.oob_local_average()}
+        for label, tmpl, extra in specs[1:]:
+            if tmpl is None:
+                preds[label] = preds[SAME_TREES]
+            elif label == SKLEARN:
+                rf = clone(tmpl).set_params(oob_score=True).fit(X, y)
+                preds[label] = rf.oob_prediction_.ravel()
+            else:
+                preds[label] = held_out_predictions(clone(tmpl).fit(X, y))
+    return preds, llf.correction_features_

@@ -198,7 +198,8 @@ class ExploreSession(t.HasTraits):
         def compute():
             s = [m for m in self._smoothers if hasattr(m, "loo_predict")]
             return D.verdict(self._model.X_train_, self._model.y_train_,
-                             forest=self.penalised_model(), smoothers=s, baseline=False)
+                             forest=self.penalised_model(), smoothers=s, baseline=False,
+                             progress=False)
 
         return self._cached(("verdict",), compute)
 

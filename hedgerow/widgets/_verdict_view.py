@@ -17,7 +17,7 @@ PARTS = ("all", "edge", "interior")
 
 
 class VerdictView(View):
-    """Share of the honest forest's held-out squared error each method removes."""
+    """Share of each method's held-out squared error the local linear forest removes."""
 
     def __init__(self, session, **kwargs):
         super().__init__(session, **kwargs)
@@ -37,8 +37,9 @@ class VerdictView(View):
             fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
             layout=W.Layout(width="520px", height="280px"))
         self.table_html = W.HTML()
-        self.children = [W.HTML("<b>verdict</b> <small>paired out-of-bag / leave-one-out "
-                                "errors against the honest forest on the same trees</small>"),
+        self.children = [W.HTML("<b>verdict</b> <small>the local linear forest against each "
+                                "method: paired held-out errors (cross-fitted unless marked "
+                                "preview)</small>"),
                          self._error_area, self.conclusion_html, self.figure,
                          self.table_html, self._settings_line]
         self._follow(["generation", "ridge_penalty"])
@@ -51,11 +52,12 @@ class VerdictView(View):
         comp = v.comparisons
         gains = np.array([[comp.loc[m, f"gain_{p}"] for p in PARTS] for m in comp.index])
         with held(self.bars_mark, self.whisker_mark):
-            self.bars_mark.y = gains
-            self.bars_mark.colors = [colour_of(m) for m in comp.index]
-            # whiskers for the local linear forest's interval (the verdict's own row)
-            r = comp.loc["local linear forest"]
-            self.whisker_mark.y = np.array([[r[f"lower_{p}"], r[f"upper_{p}"]] for p in PARTS])
+            self.bars_mark.y = gains if len(comp) else np.zeros((1, len(PARTS)))
+            self.bars_mark.colors = [colour_of(m) for m in comp.index] or ["#999999"]
+            # whiskers: the interval against the best alternative (the sentence's row)
+            best = v.best_alternative
+            self.whisker_mark.y = (np.zeros((len(PARTS), 2)) if best is None else np.array(
+                [[comp.loc[best, f"lower_{p}"], comp.loc[best, f"upper_{p}"]] for p in PARTS]))
         self.conclusion_html.value = f"<p><b>{html.escape(v.conclusion)}</b></p>"
         head = "".join(f"<th>{p}</th>" for p in PARTS)
         rows = "".join(
@@ -64,6 +66,7 @@ class VerdictView(View):
                 f"<small>({fmt(100 * comp.loc[m, f'lower_{p}'], 3)} to "
                 f"{fmt(100 * comp.loc[m, f'upper_{p}'], 3)})</small></td>" for p in PARTS)
             + "</tr>" for m in comp.index)
-        self.table_html.value = (f"<table><tr><th>method</th>{head}</tr>{rows}</table>"
+        self.table_html.value = (f"<table><tr><th>against</th>{head}</tr>{rows}</table>"
                                  f"<small>{100 * v.level:.0f}% intervals; whiskers on the "
-                                 f"local linear forest's bars</small>")
+                                 f"best alternative's bars; scored by "
+                                 f"{html.escape(v.scoring)}</small>")

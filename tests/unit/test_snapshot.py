@@ -61,7 +61,8 @@ def test_headline_numbers_are_the_models(snap, model, data):
     assert snap.headline["mean_interval_width"] == pytest.approx(width, rel=1e-9)
     assert snap.headline["probe_prediction"] == pytest.approx(
         model.predict(X.iloc[[7]], ridge_penalty=0.2)[0], rel=1e-12)
-    assert snap.headline["verdict"].startswith("The local linear correction")
+    assert snap.headline["verdict"].startswith("The local linear forest")
+    assert "Decision: " in snap.headline["verdict"]
     assert snap.seed == 5 and snap.params["n_estimators"] == 60
     assert snap.view["ridge_penalty"] == 0.2 and snap.feature == "motor_speed_rpm"
     np.testing.assert_array_equal(snap.probe, X.iloc[7].to_numpy())
