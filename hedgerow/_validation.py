@@ -22,6 +22,7 @@ __all__ = [
     "check_fit_data",
     "check_predict_data",
     "check_level",
+    "check_ridge_penalty",
     "validate_params",
     "as_float_array_1d",
     "preserve_fitted_state",
@@ -214,6 +215,24 @@ def check_level(level) -> float:
             f"for example 0.95. Got {level!r} instead."
         )
     return float(level)
+
+
+def check_ridge_penalty(value, *, allow_auto: bool = False):
+    """Return the ridge penalty ``value`` as a float >= 0 (or ``"auto"`` if allowed).
+
+    The one check of a ridge penalty, wherever it arrives: the estimator parameter, the
+    per-call ``ridge_penalty=`` argument, the solver, the session trait and snapshots.
+    """
+    if allow_auto and isinstance(value, str) and value == "auto":
+        return value
+    ok = (not isinstance(value, bool | np.bool_) and isinstance(value, numbers.Real)
+          and np.isfinite(value) and float(value) >= 0.0)
+    if not ok:
+        expected = "'auto' or a finite float >= 0" if allow_auto else "a finite float >= 0"
+        raise ValueError(
+            f"The 'ridge_penalty' parameter must be {expected}. Got {value!r} instead."
+        )
+    return float(value)
 
 
 def as_float_array_1d(name: str, value, length: int | None = None) -> np.ndarray:

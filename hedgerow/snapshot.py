@@ -635,9 +635,8 @@ def _headline(model, x, ridge_penalty, want_verdict):
         warnings.simplefilter("ignore", RuntimeWarning)
         warnings.filterwarnings("ignore", message="X does not have valid feature names")
         if hasattr(model, "ridge_penalty_"):
-            lam = float(model.ridge_penalty_ if ridge_penalty is None else
-                        model._penalty(ridge_penalty))
-            view = D.at_ridge_penalty(model, lam)
+            view = model.with_ridge_penalty(ridge_penalty)
+            lam = float(view.ridge_penalty_)
             summary = D.oob_summary(view, level=level)
             rmse, width = summary["oob_rmse"], summary["mean_width"]
         else:

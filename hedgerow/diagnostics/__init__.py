@@ -15,6 +15,7 @@ from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
+    has_little_bags,
     local_average_model,
     local_line,
     oob_summary,
@@ -40,6 +41,7 @@ from hedgerow.diagnostics._verdict import (
 __all__ = [
     "at_ridge_penalty",
     "check_probe_point",
+    "has_little_bags",
     "local_average_model",
     "local_line",
     "method_label",

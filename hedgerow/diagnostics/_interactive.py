@@ -5,17 +5,18 @@ Each function is cheap enough to run on every probe move or slider step: none re
 
 from __future__ import annotations
 
-import copy
 import warnings
 
 import numpy as np
 import pandas as pd
 
+from hedgerow._validation import check_level
 from hedgerow.diagnostics._slices import resolve_feature
 from hedgerow.inference import normal_interval
 
 __all__ = [
     "at_ridge_penalty",
+    "has_little_bags",
     "local_average_model",
     "local_line",
     "oob_summary",
@@ -28,18 +29,18 @@ __all__ = [
 
 
 def at_ridge_penalty(model, ridge_penalty):
-    """Return a view of a fitted local linear forest that uses ``ridge_penalty``.
+    """Return ``model.with_ridge_penalty(ridge_penalty)``: the same trees at that penalty.
 
     The view shares the trees and the cached weighted moments with ``model`` (nothing is
     refitted or copied in depth), so every diagnostic run on it re-solves only the small
     local systems. ``model`` itself is left unchanged.
     """
-    lam = model._penalty(ridge_penalty)
-    # Build the out-of-bag moments on the original once, so every view shares them.
-    model.ridge_path([])
-    view = copy.copy(model)
-    view.ridge_penalty_ = lam
-    return view
+    return model.with_ridge_penalty(ridge_penalty)
+
+
+def has_little_bags(model) -> bool:
+    """Return True when the fitted forest groups its trees in little bags (intervals)."""
+    return int(getattr(model, "trees_per_bag_", 1)) >= 2
 
 
 class _LocalAverage:
@@ -127,25 +128,34 @@ def oob_summary(model, ridge_penalty=None, level: float = 0.95, *,
                 interval_width: bool = True) -> dict:
     """Return out-of-bag RMSE, mean interval width and usable rows at one ridge penalty.
 
-    ``interval_width=False`` skips the little-bags standard errors of every training row
-    (the expensive part: one linearised term per row and tree) and reports the width as
-    NaN; the interactive views show the RMSE at once and the width when it is ready.
+    The one out-of-bag summary: the tuning surface's cells, the tuning view, the
+    snapshot headline and the report all read it. ``model`` is a fitted forest;
+    ``ridge_penalty`` (local linear forests only; None: the penalty in use) is applied
+    through ``with_ridge_penalty``. ``interval_width=False`` skips the little-bags
+    standard errors of every training row (the expensive part: one linearised term per
+    row and tree) and reports the width as NaN, as does a forest without little bags; the
+    interactive views show the RMSE at once and the width when it is ready.
     """
+    level = check_level(level)
+    if hasattr(model, "with_ridge_penalty"):
+        model = model.with_ridge_penalty(ridge_penalty)
+    elif ridge_penalty is not None:
+        raise ValueError(f"The 'ridge_penalty' parameter applies to local linear forests "
+                         f"only. Got {ridge_penalty!r} for {type(model).__name__} instead.")
+    width = float("nan")
     with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        # rows without an out-of-bag tree are counted in n_rows instead
         warnings.simplefilter("ignore", RuntimeWarning)
-        width = float("nan")
-        if interval_width:
-            try:
-                mean, std = model.oob_predict(return_std=True, ridge_penalty=ridge_penalty)
-                lo, hi = normal_interval(mean, std, level)
-                width = float(np.nanmean(hi - lo))
-            except ValueError:  # no little bags: no intervals
-                interval_width = False
-        if not interval_width:
-            mean = model.oob_predict(ridge_penalty=ridge_penalty)
+        if interval_width and has_little_bags(model):
+            mean, std = model.oob_predict(return_std=True)
+            lo, hi = normal_interval(mean, std, level)
+            width = float(np.nanmean(hi - lo))
+        else:
+            mean = model.oob_predict()
     ok = np.isfinite(mean)
     rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
-    return {"ridge_penalty": float(model._penalty(ridge_penalty)), "oob_rmse": rmse,
+    lam = getattr(model, "ridge_penalty_", None)
+    return {"ridge_penalty": None if lam is None else float(lam), "oob_rmse": rmse,
             "mean_width": width, "n_rows": int(ok.sum()), "level": level}
 
 

@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 import time
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from hedgerow._progress import progress_bar
+from hedgerow.diagnostics._interactive import oob_summary
 from hedgerow.diagnostics._report import ReportMixin
-from hedgerow.inference import normal_interval
 
 __all__ = ["TuningSurface", "tuning_surface"]
 
@@ -78,20 +77,10 @@ def _fit_rate(X, y, rate, random_state, n_jobs, forest_params):
 
 def _cell(model, rate, lam, level) -> dict:
     """Return one row of the surface: out-of-bag RMSE and mean width at penalty ``lam``."""
-    with np.errstate(invalid="ignore"), warnings.catch_warnings():
-        # rows without out-of-bag trees are counted in n_rows instead
-        warnings.simplefilter("ignore", RuntimeWarning)
-        try:
-            mean, std = model.oob_predict(return_std=True, ridge_penalty=lam)
-            lo, hi = normal_interval(mean, std, level)
-            width = float(np.nanmean(hi - lo))
-        except ValueError:  # no little bags at this rate: no intervals
-            mean = model.oob_predict(ridge_penalty=lam)
-            width = np.nan
-    ok = np.isfinite(mean)
-    rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
-    return {"subsample_rate": float(rate), "ridge_penalty": float(lam), "oob_rmse": rmse,
-            "mean_width": width, "n_rows": int(ok.sum())}
+    summary = oob_summary(model, lam, level)
+    return {"subsample_rate": float(rate), "ridge_penalty": float(lam),
+            "oob_rmse": summary["oob_rmse"], "mean_width": summary["mean_width"],
+            "n_rows": summary["n_rows"]}
 
 
 def _rate_task(task, X, y):

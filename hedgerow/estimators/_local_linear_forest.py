@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 import warnings
 from numbers import Integral, Real
 
@@ -15,6 +16,7 @@ from hedgerow._distributed import check_client, is_dask_collection, lazy_predict
 from hedgerow._validation import (
     check_fit_data,
     check_predict_data,
+    check_ridge_penalty,
     preserve_fitted_state,
     validate_params,
 )
@@ -50,16 +52,6 @@ RIDGE_GRID = (0.0, 1e-4, 3e-4, 1e-3, 3e-3, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0)
 SPLIT_PENALTY_AUTO = 0.1
 
 _CACHE_SIZE = 4
-
-
-def _check_finite_penalty(value):
-    if isinstance(value, str):
-        return
-    if isinstance(value, bool) or not isinstance(value, Real) or not np.isfinite(value):
-        raise ValueError(
-            f"The 'ridge_penalty' parameter must be 'auto' or a finite float >= 0. "
-            f"Got {value!r} instead."
-        )
 
 
 def _lasso_screen(Xs, y) -> np.ndarray:
@@ -272,12 +264,7 @@ class LocalLinearForestRegressor(_ForestBase):
         with preserve_fitted_state(self):
             validate_params(self)
             client = check_client(client)
-            _check_finite_penalty(self.ridge_penalty)
-            if not isinstance(self.ridge_penalty, str) and self.ridge_penalty < 0:
-                raise ValueError(
-                    f"The 'ridge_penalty' parameter must be 'auto' or a finite float >= 0. "
-                    f"Got {self.ridge_penalty!r} instead."
-                )
+            check_ridge_penalty(self.ridge_penalty, allow_auto=True)
             X, y = check_fit_data(self, X, y)
             if isinstance(self.ridge_penalty, str):
                 self._check_out_of_bag_rows(X.shape[0])
@@ -355,13 +342,7 @@ class LocalLinearForestRegressor(_ForestBase):
     def _penalty(self, ridge_penalty):
         if ridge_penalty is None:
             return self.ridge_penalty_
-        _check_finite_penalty(ridge_penalty)
-        if isinstance(ridge_penalty, str) or ridge_penalty < 0:
-            raise ValueError(
-                f"The 'ridge_penalty' argument must be a finite float >= 0. "
-                f"Got {ridge_penalty!r} instead."
-            )
-        return float(ridge_penalty)
+        return check_ridge_penalty(ridge_penalty)
 
     def _solve(self, mom, lam):
         with warnings.catch_warnings():
@@ -404,7 +385,7 @@ class LocalLinearForestRegressor(_ForestBase):
         unit = self._y_unit
         out = []
         for lam in np.atleast_1d(ridge_penalties):
-            fit = self._solve(mom, self._penalty(float(lam)))
+            fit = self._solve(mom, self._penalty(lam))
             resid = (fit.intercept[ok] - self.y_train_[ok]) / unit
             out.append(float(np.mean(resid**2)))
         return np.array(out)
@@ -451,8 +432,11 @@ class LocalLinearForestRegressor(_ForestBase):
         """
         X = check_predict_data(self, X)
         self._require_bags()
-        leaves, W, mom = self._query_state(X)
+        leaves, _, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
+        return self._slope_std_of(leaves, X, fit)
+
+    def _slope_std_of(self, leaves, X, fit):
         Qc = X[:, self.correction_features_]
         m, k = fit.slopes.shape
         out = np.empty_like(fit.slopes)
@@ -499,3 +483,37 @@ class LocalLinearForestRegressor(_ForestBase):
             return fit.intercept
         var = self._std(leaves, usable, W, self._Xc, fit)
         return fit.intercept, var.std
+
+    # -- one penalty without a refit; one solve for a whole readout -----------------------
+    def with_ridge_penalty(self, ridge_penalty):
+        """Return this fitted forest seen at ``ridge_penalty``: the same trees, no refit.
+
+        The returned estimator is a light copy that shares the trees and every fit-scoped
+        cache (weighted moments, out-of-bag state) with ``self``; only the penalty in use
+        (``ridge_penalty_``) differs, so each of its predictions re-solves the small local
+        systems and nothing else. ``self`` is left unchanged, and so are the parameters
+        (``get_params``): cloning the view gives the original's settings. None gives the
+        fitted penalty.
+        """
+        check_is_fitted(self)
+        lam = self._penalty(ridge_penalty)
+        view = copy.copy(self)
+        view.ridge_penalty_ = lam
+        return view
+
+    def local_readout(self, X, *, ridge_penalty=None):
+        """Return ``(fit, std, slope_std)`` at the rows of X from one local solve.
+
+        ``fit`` is the solver's ``LocalFit`` (prediction = ``fit.intercept``, slopes in
+        original units), ``std`` the little-bags standard errors of the predictions and
+        ``slope_std`` those of the slopes (m × k); both are None for a forest without
+        little bags. The numbers equal those of ``local_fit``, ``predict(return_std=True)``
+        and ``slope_std``.
+        """
+        X = check_predict_data(self, X)
+        leaves, W, mom = self._query_state(X)
+        fit = self._solve(mom, self._penalty(ridge_penalty))
+        if self.trees_per_bag_ < 2:
+            return fit, None, None
+        std = self._std(leaves, None, W, X[:, self.correction_features_], fit).std
+        return fit, std, self._slope_std_of(leaves, X, fit)

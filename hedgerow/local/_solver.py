@@ -44,6 +44,8 @@ import numba
 import numpy as np
 import scipy.sparse as sp
 
+from hedgerow._validation import check_ridge_penalty
+
 __all__ = [
     "COLLINEARITY_RCOND",
     "LocalFit",
@@ -382,19 +384,6 @@ def moments_from_sums(R, Q_c, centre, scale, *, degree: int = 1) -> LocalMoments
     )
 
 
-def _check_penalty(ridge_penalty) -> float:
-    try:
-        lam = float(ridge_penalty)
-    except (TypeError, ValueError):
-        lam = np.nan
-    if isinstance(ridge_penalty, bool) or not np.isfinite(lam) or lam < 0.0:
-        raise ValueError(
-            "The 'ridge_penalty' parameter must be a finite float >= 0. "
-            f"Got {ridge_penalty!r} instead."
-        )
-    return lam
-
-
 @numba.njit(cache=True)
 def _shifted_cholesky_exists(C, shift, out):
     m, k, _ = C.shape
@@ -454,7 +443,7 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
     ``S = s2 - s1 s1^T / s0 + lam s0 I`` (the weighted local covariance, penalised),
     which is better conditioned than the full Gram matrix.
     """
-    lam = _check_penalty(ridge_penalty)
+    lam = check_ridge_penalty(ridge_penalty)
     s0 = moments.s0
     m = s0.shape[0]
     k = moments.s1.shape[1]

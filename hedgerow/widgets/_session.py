@@ -19,6 +19,7 @@ import pandas as pd
 import traitlets as t
 
 from hedgerow import diagnostics as D
+from hedgerow._validation import check_ridge_penalty
 
 __all__ = ["ExploreSession", "ProbeScene", "RefitCancelled"]
 
@@ -249,13 +250,13 @@ class ExploreSession(t.HasTraits):
                                  f"values (one per column). Got {len(p)} instead.")
             self.probe_x = p
         if ridge_penalty is not None:
-            lam = float(ridge_penalty)
-            if not np.isfinite(lam) or lam < 0:
-                raise ValueError(f"The 'ridge_penalty' parameter must be a finite float >= 0. "
-                                 f"Got {ridge_penalty!r} instead.")
-            self.ridge_penalty = lam
+            self.ridge_penalty = check_ridge_penalty(ridge_penalty)
 
     # -- settings ----------------------------------------------------------------------
+    @t.validate("ridge_penalty")
+    def _check_ridge_penalty(self, proposal):
+        return check_ridge_penalty(proposal["value"])
+
     @t.observe("ridge_penalty")
     def _ridge_changed(self, change):
         self._update_settings()
