@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import math
 import warnings
+from dataclasses import dataclass
 from numbers import Integral, Real
 
 import numpy as np
@@ -24,9 +25,93 @@ from hedgerow._validation import (
     validate_params,
 )
 from hedgerow.forest import RULE_MEAN, grow_forest, plan_samples, subsample_size
-from hedgerow.inference import little_bags_variance, normal_interval
+from hedgerow.inference import (
+    bias_aware_half_width,
+    curvature_bias_bound,
+    curvature_rule_of_thumb,
+    linearisation_coefficients,
+    linearised_from_leaf_means,
+    little_bags_variance,
+    normal_interval,
+)
+from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
 
-__all__ = ["HonestForestRegressor", "resolve_trees_per_bag"]
+__all__ = [
+    "DEFAULT_INTERVAL",
+    "INTERVAL_METHODS",
+    "HonestForestRegressor",
+    "IntervalParts",
+    "resolve_trees_per_bag",
+]
+
+#: Interval methods of the forests: "bias_corrected" (robust bias correction: a local
+#: quadratic under the same forest weights, studentised by its own little-bags standard
+#: error), "bias_bound" (the little-bags interval of a local line widened by a worst-case
+#: curvature bias) and "clt" (the normal interval from little bags centred on the
+#: prediction, which ignores its bias).
+INTERVAL_METHODS = ("bias_corrected", "bias_bound", "clt")
+
+#: The default interval method: the one that covered on the design family
+#: (``hedgerow.datasets.coverage_designs``; see DEVELOPERS.md, "Intervals").
+DEFAULT_INTERVAL = "bias_corrected"
+
+#: Most columns whose squares enter the local quadratic of the bias correction (the leaf
+#: means grow with the square of the number of columns).
+_MAX_SQUARED = 8
+
+# Queries per block when the bias bound needs the sparse forest weights (memory bound).
+_BOUND_BLOCK = 512
+
+
+@dataclass(frozen=True)
+class IntervalParts:
+    """What an interval is made of at each query: centre, standard error, bias bound.
+
+    The interval is ``centre -/+ cv(bias_bound / std) * std`` (``cv`` the folded normal
+    quantile); for ``method="clt"`` the bias bound is 0 and ``cv`` the normal quantile.
+    ``curvature_bound`` is the constant M the bias bound used.
+    """
+
+    method: str
+    centre: np.ndarray
+    std: np.ndarray
+    bias_bound: np.ndarray
+    curvature_bound: float
+
+    def half_width(self, level: float = 0.95) -> np.ndarray:
+        """Return the half-width at ``level``."""
+        return bias_aware_half_width(self.std, self.bias_bound, level)
+
+    def interval(self, level: float = 0.95):
+        """Return ``(lower, upper)`` at ``level``."""
+        if self.method != "bias_bound":
+            return normal_interval(self.centre, self.std, level)
+        h = self.half_width(level)
+        return self.centre - h, self.centre + h
+
+
+def check_interval_method(method) -> str:
+    """Return ``method`` after checking it names an interval method."""
+    if not isinstance(method, str) or method not in INTERVAL_METHODS:
+        raise ValueError(
+            f"The 'method' parameter must be one of {list(INTERVAL_METHODS)}. "
+            f"Got {method!r} instead."
+        )
+    return method
+
+
+def check_curvature_bound(value):
+    """Return ``value`` (None or a finite float >= 0) after checking it."""
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, Real) or not (
+        np.isfinite(value) and value >= 0
+    ):
+        raise ValueError(
+            f"The 'curvature_bound' parameter must be None (rule of thumb from the data) "
+            f"or a finite float >= 0. Got {value!r} instead."
+        )
+    return float(value)
 
 # Bags much larger than this gain little (VARIANCE-NOTES: any l within a factor two of the
 # optimum 1 + W/V costs at most ~15% extra variance, and W/V was 33-66 here).
@@ -51,6 +136,32 @@ def resolve_trees_per_bag(trees_per_bag, n_estimators: int, subsample_rate: floa
         if n_estimators % size == 0:
             return size
     return 1
+
+
+def _check_method_and_bound(method, curvature_bound):
+    method = check_interval_method(method)
+    M = check_curvature_bound(curvature_bound)
+    if M is not None and method != "bias_bound":
+        raise ValueError(
+            f"The 'curvature_bound' parameter applies to method='bias_bound' only. "
+            f"Got curvature_bound={curvature_bound!r} with method={method!r} instead."
+        )
+    return method, M
+
+
+def _line_queries(line, X):
+    """Return the columns of a local line at the rows of X (squares centred on training)."""
+    Xc = X[:, line["cols"]]
+    if line["squared"].size == 0:
+        return np.ascontiguousarray(Xc)
+    sq = (Xc[:, line["squared"]] - line["mu"][line["squared"]]) ** 2
+    return np.ascontiguousarray(np.hstack([Xc, sq]))
+
+
+def _slice_fit(fit, a, b):
+    return type(fit)(intercept=fit.intercept[a:b], slopes=fit.slopes[a:b],
+                     slopes_std=fit.slopes_std[a:b], gram_inv=fit.gram_inv[a:b],
+                     fallback=fit.fallback[a:b], ridge_penalty=fit.ridge_penalty)
 
 
 class _ForestBase(RegressorMixin, BaseEstimator):
@@ -256,17 +367,184 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             self._require_bags()
         return self._predict_from_leaves(self._leaves(X), None, return_std)
 
-    def predict_interval(self, X, level=0.95):
-        """Return ``(lower, upper)`` pointwise normal confidence intervals at ``level``.
+    def predict_interval(self, X, level=0.95, method=DEFAULT_INTERVAL, *,
+                         curvature_bound=None):
+        """Return ``(lower, upper)`` pointwise confidence intervals at ``level``.
 
-        For a dask array or DataFrame ``X``, two lazy dask arrays or Series.
+        Parameters
+        ----------
+        X : array-like of shape (m, n_features)
+        level : float in (0, 1), default=0.95
+        method : {"bias_corrected", "bias_bound", "clt"}, default="bias_corrected"
+            "bias_corrected" (the default: it is the one that covered on the design
+            family ``hedgerow.datasets.coverage_designs``): robust bias correction
+            (Calonico, Cattaneo & Farrell 2018). The interval is centred on a local
+            quadratic (the local line's columns and their centred squares) under the
+            same forest weights, which is the prediction minus an estimate of its
+            curvature bias (and, for the plain honest forest, of its first-order edge
+            bias), and studentised by the little-bags standard error of that corrected
+            estimator, so the bias estimate's own variance is in the width.
+            "bias_bound": centred on the local line, half-width ``cv(b / se) * se``
+            with ``b`` a curvature bias bound from the equivalent kernel and a constant
+            M (Armstrong & Kolesar 2018, 2020; ``hedgerow.inference._bias_aware``);
+            conservative on forest weights with the rule-of-thumb M.
+            "clt": the normal interval from little bags centred on the prediction (the
+            interval before bias-aware methods were added). It ignores the prediction's
+            bias, so it misses where the truth is curved and, for the plain honest
+            forest, at the edges.
+        curvature_bound : float >= 0 or None
+            M of ``method="bias_bound"``, in standardised units of the local line's
+            columns. None: the rule of thumb (``rule_of_thumb_curvature``). For a local
+            linear forest 0 gives the "clt" interval exactly.
+
+        For a dask array or DataFrame ``X``, two lazy dask arrays or Series. The interval
+        conditions on the fitted forest's settings: columns screened for the local line
+        and the ridge penalty are taken as fixed, not as chosen from the same data.
         """
+        _check_method_and_bound(method, curvature_bound)
         if is_dask_collection(X):
             check_level(level)
             self._check_lazy(True)
-            return lazy_predict(self, X, "predict_interval", ("lower", "upper"), level=level)
-        mean, std = self.predict(X, return_std=True)
-        return normal_interval(mean, std, level)
+            return lazy_predict(self, X, "predict_interval", ("lower", "upper"), level=level,
+                                method=method, curvature_bound=curvature_bound)
+        check_level(level)
+        return self.interval_parts(X, method, curvature_bound=curvature_bound).interval(level)
+
+    def interval_parts(self, X, method=DEFAULT_INTERVAL, *, curvature_bound=None):
+        """Return the ``IntervalParts`` (centre, little-bags std, bias bound) at X."""
+        method, M = _check_method_and_bound(method, curvature_bound)
+        X = check_predict_data(self, X)
+        self._require_bags()
+        if method == "clt":
+            centre, std = self._clt_parts(X)
+            return IntervalParts(method, centre, std, np.zeros_like(centre), 0.0)
+        line = self._corrected_line() if method == "bias_corrected" else self._bias_line()
+        leaves = self._leaves(X)
+        Qc = _line_queries(line, X)
+        fit = self._line_fit(X, leaves, line, Qc)
+        offset, gamma = linearisation_coefficients(
+            Qc, line["centre"], line["scale"], np.nan_to_num(fit.intercept),
+            np.nan_to_num(fit.slopes_std), np.nan_to_num(fit.gram_inv[:, 0, :]),
+        )
+        psi = linearised_from_leaf_means(leaves, None, self.forest_, line["means"], offset,
+                                         gamma, n_jobs=self._n_threads())
+        std = little_bags_variance(psi, self.trees_per_bag_).std
+        bound = np.zeros(X.shape[0])
+        if method == "bias_corrected":
+            return IntervalParts(method, fit.intercept, std, bound, 0.0)
+        if M is None:
+            M = self.rule_of_thumb_curvature()
+        if M > 0:
+            for a in range(0, X.shape[0], _BOUND_BLOCK):
+                b = min(X.shape[0], a + _BOUND_BLOCK)
+                W, _ = self.forest_.weights(leaves[a:b], n_jobs=self._n_threads())
+                bound[a:b] = curvature_bias_bound(W, line["Xc"], Qc[a:b], _slice_fit(fit, a, b),
+                                                  line["scale"], M)
+        return IntervalParts(method, fit.intercept, std, bound, float(M))
+
+    def rule_of_thumb_curvature(self) -> float:
+        """Return the curvature constant M that ``method="bias_bound"`` uses by default.
+
+        The largest Hessian norm of a global quartic in the local line's columns
+        (standardised), fitted to the training rows by least squares (cached per fit).
+        """
+        check_is_fitted(self)
+        cache = self._fit_cache
+        if "curvature" not in cache:
+            line = self._bias_line()
+            cache["curvature"] = curvature_rule_of_thumb(line["Xc"], self.y_train_,
+                                                         line["scale"])
+        return cache["curvature"]
+
+    def _clt_parts(self, X):
+        return self._predict_from_leaves(self._leaves(X), None, True)
+
+    def _line_columns(self) -> np.ndarray:
+        """Return the columns of the local lines the bias-aware intervals use (cached).
+
+        The honest forest has no correction columns of its own: it takes those lasso
+        screening keeps (as the local linear forest's ``correction_features="auto"``).
+        """
+        cache = self._fit_cache
+        if "line columns" not in cache:
+            from hedgerow.estimators._local_linear_forest import _lasso_screen
+
+            X, y = self.X_train_, self.y_train_
+            Xs = (X - X.mean(axis=0)) / default_scale(X)
+            cols = _lasso_screen(Xs, y)
+            if cols.size == 0:
+                cols = np.array([int(np.argmax(np.abs(Xs.T @ (y - y.mean()))))])
+            cache["line columns"] = cols.astype(np.int64)
+        return cache["line columns"]
+
+    def _make_line(self, cols, squared) -> dict:
+        """Return a local line under the forest weights: columns, leaf means, penalty.
+
+        ``squared``: indices (into ``cols``) of the columns whose centred squares join the
+        line (a local quadratic without cross terms). The penalty is the value of
+        ``RIDGE_GRID`` with the lowest out-of-bag error of this line.
+        """
+        from hedgerow.estimators._local_linear_forest import RIDGE_GRID
+
+        X, y = self.X_train_, self.y_train_
+        line = {"cols": np.asarray(cols, dtype=np.int64),
+                "squared": np.asarray(squared, dtype=np.int64),
+                "mu": X[:, cols].mean(axis=0)}
+        Xc = _line_queries(line, X)
+        scale = default_scale(Xc)
+        F, centre = moment_features(Xc, y, scale)
+        means = self.forest_.leaf_feature_means(F)
+        leaves, usable = self._oob_parts()
+        R, n_used = self.forest_.weighted_sums(leaves, means, usable, n_jobs=self._n_threads())
+        mom = moments_from_sums(R, Xc, centre, scale)
+        ok = n_used > 0
+        errs = []
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            for lam in RIDGE_GRID:
+                a = solve_local(mom, lam).intercept
+                errs.append(float(np.mean((a[ok] - y[ok]) ** 2)))
+        line.update(Xc=Xc, scale=scale, means=means, centre=centre,
+                    penalty=float(RIDGE_GRID[int(np.nanargmin(errs))]))
+        return line
+
+    def _corrected_line(self) -> dict:
+        """Return the local quadratic of the robust bias correction (cached per fit).
+
+        The local line's columns plus the centred squares of up to ``_MAX_SQUARED`` of
+        them (those whose squares correlate most with y), under the same forest weights.
+        """
+        cache = self._fit_cache
+        if "corrected line" not in cache:
+            cols = self._line_columns()
+            Xc = self.X_train_[:, cols]
+            sq = (Xc - Xc.mean(axis=0)) ** 2
+            yc = self.y_train_ - self.y_train_.mean()
+            sd = sq.std(axis=0)
+            corr = np.abs((sq - sq.mean(axis=0)).T @ yc) / np.where(sd > 0, sd, np.inf)
+            squared = np.sort(np.argsort(-corr, kind="stable")[:_MAX_SQUARED])
+            cache["corrected line"] = self._make_line(cols, squared)
+        return cache["corrected line"]
+
+    def _bias_line(self) -> dict:
+        """Return the local line ``method="bias_bound"`` is centred on (cached per fit).
+
+        The plain forest's bias is first order where its neighbourhoods are lopsided (at
+        the edges): a curvature bound cannot bound it, but the local slope under the same
+        weights estimates it. So the honest forest's bias-bound interval is centred on the
+        ridge-penalised local line under its own weights.
+        """
+        cache = self._fit_cache
+        if "bias line" not in cache:
+            cache["bias line"] = self._make_line(self._line_columns(), [])
+        return cache["bias line"]
+
+    def _line_fit(self, X, leaves, line, Qc):
+        R, _ = self.forest_.weighted_sums(leaves, line["means"], n_jobs=self._n_threads())
+        mom = moments_from_sums(R, Qc, line["centre"], line["scale"])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return solve_local(mom, line["penalty"])
 
     # -- lazy (dask) predictions ------------------------------------------------------------
     #: entries of ``_fit_cache`` that depend on the query rows (LRU caches); the others

@@ -366,6 +366,30 @@ class LocalLinearForestRegressor(_ForestBase):
         psi = self._tree_terms(leaves, usable, Qc, fit)
         return little_bags_variance(psi, self.trees_per_bag_)
 
+    # -- intervals ------------------------------------------------------------------------
+    def _line_columns(self) -> np.ndarray:
+        return self.correction_features_
+
+    def _bias_line(self) -> dict:
+        # the local linear forest's own local line: its bias-bound interval keeps the
+        # prediction as centre and the little-bags std, and adds the curvature bound
+        means, centre = self._leaf_features()
+        return {"cols": self.correction_features_, "squared": np.zeros(0, dtype=np.int64),
+                "Xc": self._Xc, "scale": self.correction_scale_, "means": means,
+                "centre": centre, "penalty": self.ridge_penalty_, "own": True}
+
+    def _line_fit(self, X, leaves, line, Qc):
+        if not line.get("own"):
+            return super()._line_fit(X, leaves, line, Qc)
+        _, _, mom = self._query_state(X)
+        return self._solve(mom, self.ridge_penalty_)
+
+    def _clt_parts(self, X):
+        leaves, W, mom = self._query_state(X)
+        fit = self._solve(mom, self.ridge_penalty_)
+        var = self._std(leaves, None, W, X[:, self.correction_features_], fit)
+        return fit.intercept, var.std
+
     # -- public --------------------------------------------------------------------------
     def ridge_path(self, ridge_penalties) -> np.ndarray:
         """Return out-of-bag mean squared error for each penalty (cached moments, no refit)."""

@@ -1,5 +1,13 @@
 """Variance of predictions and confidence intervals."""
 
+from hedgerow.inference._bias_aware import (
+    bias_aware_half_width,
+    curvature_bias_bound,
+    curvature_moment,
+    curvature_rule_of_thumb,
+    folded_normal_quantile,
+    worst_case_curvature_sum,
+)
 from hedgerow.inference._intervals import normal_interval
 from hedgerow.inference._little_bags import (
     LittleBagsVariance,
@@ -12,6 +20,12 @@ from hedgerow.inference._little_bags import (
 
 __all__ = [
     "LittleBagsVariance",
+    "bias_aware_half_width",
+    "curvature_bias_bound",
+    "curvature_moment",
+    "curvature_rule_of_thumb",
+    "folded_normal_quantile",
+    "worst_case_curvature_sum",
     "linearisation_coefficients",
     "linearised_from_leaf_means",
     "linearised_tree_predictions",
