@@ -368,7 +368,9 @@ class KernelRows:
     X_train : array-like of shape (n, d)
         Training rows.
     bandwidth : array-like of shape (d,)
-        Bandwidth per column, in the units of the columns, all positive and finite.
+        Bandwidth per column, in the units of the columns, all positive. ``inf`` makes
+        the kernel flat in that column (its scaled distances are exactly zero), as a
+        bandwidth search does for a column the response does not depend on.
     kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
     """
 
@@ -377,10 +379,11 @@ class KernelRows:
         X_train = np.asarray(X_train, dtype=np.float64)
         h = np.asarray(bandwidth, dtype=np.float64).ravel()
         d = X_train.shape[1]
-        if h.shape != (d,) or not np.all(np.isfinite(h)) or np.any(h <= 0):
+        if h.shape != (d,) or np.any(np.isnan(h)) or np.any(h <= 0):
             raise ValueError(
                 f"The 'bandwidth' parameter must hold {d} positive finite values (one per "
-                f"column). Got {bandwidth!r} instead."
+                f"column; inf for a column the kernel is flat in). Got {bandwidth!r} "
+                "instead."
             )
         # Centre before scaling so that squared distances are formed from small numbers.
         self.centre = X_train.mean(axis=0) if X_train.shape[0] else np.zeros(d)
