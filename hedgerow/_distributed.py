@@ -218,7 +218,7 @@ def _model_handle(model):
                         traverse=False)
 
 
-def lazy_predict(model, X, method: str, names: tuple, **kwargs):
+def lazy_predict(model, X, method: str, names: tuple, /, **kwargs):
     """Return ``model.method(X, **kwargs)`` as lazy dask objects, one per name in ``names``.
 
     ``X`` is a dask array (rows in chunks; columns are merged into one chunk) or a dask
