@@ -8,9 +8,10 @@ import numpy as np
 import pandas as pd
 from scipy.stats import t as student_t
 
+from hedgerow._validation import checked_rows
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._report import ReportMixin
-from hedgerow.diagnostics._slices import _frame_like, method_label
+from hedgerow.diagnostics._slices import method_label
 
 __all__ = ["EdgeProfile", "edges", "DEPTH_BANDS"]
 
@@ -108,7 +109,7 @@ def edges(models, X=None, y=None, *, columns=None, slope_model=None, level=0.95)
     edge = depth < 0.10
     bend_rows = []
     if slope_model is not None and np.any(edge):
-        slopes = np.asarray(slope_model.local_slopes(_frame_like(slope_model, X[edge])))
+        slopes = np.asarray(slope_model.local_slopes(checked_rows(X[edge], slope_model)))
         if hasattr(slope_model, "correction_features_"):
             pos = {c: i for i, c in enumerate(slope_model.correction_features_)}
             idx = np.array([pos.get(c, -1) for c in column[edge]])

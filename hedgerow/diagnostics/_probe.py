@@ -8,8 +8,14 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from hedgerow.diagnostics._report import ReportMixin, check_probe_point, kish_ess
-from hedgerow.diagnostics._slices import _frame_like, method_label
+from hedgerow._validation import fitted_columns
+from hedgerow.diagnostics._report import (
+    ReportMixin,
+    check_probe_point,
+    has_little_bags,
+    kish_ess,
+)
+from hedgerow.diagnostics._slices import method_label
 from hedgerow.inference import normal_interval
 
 __all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS"]
@@ -129,10 +135,12 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     """
     from hedgerow.estimators import LocalLinearForestRegressor
 
-    xq = check_probe_point(model, x)
+    # one validated array from here to the weights: every estimator fitted on these
+    # columns takes it without checking it again
+    q = check_probe_point(model, x)
+    xq = np.asarray(q)
     names = _feature_names(model)
-    q = _frame_like(model, xq)  # named columns for models fitted on a DataFrame
-    bags = getattr(model, "trees_per_bag_", 1) >= 2
+    bags = has_little_bags(model)
     W = model.neighbour_weights(q)
     w = W.toarray().ravel()
     X = model.X_train_
@@ -147,13 +155,12 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     k = cols.size
     methods = []
     if is_llf:
-        fit = model.local_fit(q)
-        if bags:
-            _, std = model.predict(q, return_std=True)
-            std = float(std[0])
-            slope_se = model.slope_std(q)[0]
+        # one local solve: prediction, slopes and their little-bags errors
+        fit, std, slope_se = model.local_readout(q)
+        if std is None:
+            slope_se = np.full(k, np.nan)
         else:
-            std, slope_se = None, np.full(k, np.nan)
+            std, slope_se = float(std[0]), slope_se[0]
         methods.append(_method_entry(
             "local linear forest", W, fit.intercept[0], std, fit.slopes[0], slope_se, level
         ))
@@ -164,7 +171,7 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
         level,
     ))
     for smoother in compare:
-        qs = _frame_like(smoother, xq)
+        qs = q if fitted_columns(smoother) == q.columns else xq
         pred, sstd = smoother.predict(qs, return_std=True)
         if hasattr(smoother, "local_slopes"):
             slopes = np.asarray(smoother.local_slopes(qs))[0][cols]

@@ -8,7 +8,8 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
-from hedgerow.diagnostics._report import ReportMixin, check_probe_point
+from hedgerow._validation import checked_rows
+from hedgerow.diagnostics._report import ReportMixin, check_probe_point, has_little_bags
 from hedgerow.inference import normal_interval
 
 __all__ = ["SliceReport", "slices", "method_label", "resolve_feature"]
@@ -57,11 +58,6 @@ def _as_models(models):
     if hasattr(models, "predict"):
         models = [models]
     return [(method_label(m), m) for m in models]
-
-
-def _frame_like(model, X):
-    names = getattr(model, "feature_names_in_", None)
-    return pd.DataFrame(X, columns=list(names)) if names is not None else X
 
 
 @dataclass(frozen=True)
@@ -128,13 +124,14 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
     if not average:
         Q = np.repeat(xq[None, :], grid.size, axis=0)
         Q[:, j] = grid
+        Q = checked_rows(Q, first, "grid")  # checked once for every model below
         for name, model in pairs:
-            Qf = _frame_like(model, Q)
-            try:
-                pred, std = model.predict(Qf, return_std=True)
+            # kernel smoothers always give intervals, forests with little bags only
+            if not hasattr(model, "trees_per_bag_") or has_little_bags(model):
+                pred, std = model.predict(Q, return_std=True)
                 lo, hi = normal_interval(pred, std, level)
-            except ValueError:
-                pred = model.predict(Qf)
+            else:  # a forest without little bags: no intervals
+                pred = model.predict(Q)
                 lo = hi = np.full(grid.size, np.nan)
             rows.append((name, grid, np.asarray(pred, dtype=np.float64), lo, hi))
     else:
@@ -148,8 +145,9 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         nb = Xb.shape[0]
         Q = np.tile(Xb, (grid.size, 1))
         Q[:, j] = np.repeat(grid, nb)
+        Q = checked_rows(Q, first, "background")
         for name, model in pairs:
-            pred = np.asarray(model.predict(_frame_like(model, Q))).reshape(grid.size, nb)
+            pred = np.asarray(model.predict(Q)).reshape(grid.size, nb)
             nan = np.full(grid.size, np.nan)
             rows.append((name, grid, pred.mean(axis=1), nan, nan))
     # one frame from stacked columns (cheaper than one frame per method and a concat)

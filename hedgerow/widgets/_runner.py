@@ -148,16 +148,22 @@ class BackgroundRunner:
                      if j is not None and j.kind == job.kind] if replace else []
             job._runner = self
             self._latest[job.kind] = job
+        for old in older:
+            old.cancel()
+            self._cancelled(old)  # superseded: dropped if it has not started
+        # "waiting" is published before the worker can see the job, so that no
+        # subscriber hears "running" first
+        self._published(job)
+        if job.cancelled and not job.stops_itself:  # cancelled before it was queued
+            self._end(job, "cancelled", None)
+            return job
+        with self._cond:
             self._waiting.append(job)
             if self._thread is None:
                 self._thread = threading.Thread(target=self._work, daemon=True,
                                                 name="hedgerow-background")
                 self._thread.start()
             self._cond.notify_all()
-        for old in older:
-            old.cancel()
-            self._cancelled(old)  # superseded: dropped if it has not started
-        self._published(job)
         return job
 
     def latest(self, kind) -> Job | None:
