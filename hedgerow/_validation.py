@@ -26,6 +26,7 @@ __all__ = [
     "CheckedRows",
     "checked_rows",
     "fitted_columns",
+    "column_names",
     "validate_params",
     "as_float_array_1d",
     "preserve_fitted_state",
@@ -215,6 +216,18 @@ def fitted_columns(estimator) -> tuple:
     names = getattr(estimator, "feature_names_in_", None)
     return (int(estimator.n_features_in_),
             None if names is None else tuple(str(n) for n in names))
+
+
+def column_names(estimator) -> tuple:
+    """Return the fitted column names, or ``x0, x1, ...`` for columns fitted unnamed.
+
+    The one place the default names of unnamed columns are made (reports, snapshots,
+    views and ``resolve_feature`` all read them from here).
+    """
+    names = getattr(estimator, "feature_names_in_", None)
+    if names is not None:
+        return tuple(str(n) for n in names)
+    return tuple(f"x{j}" for j in range(int(estimator.n_features_in_)))
 
 
 class CheckedRows(np.ndarray):

@@ -41,6 +41,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from hedgerow._validation import column_names
+
 __all__ = [
     "DataFingerprint",
     "FORMAT",
@@ -620,9 +622,7 @@ def _check_model(model):
 
 
 def _feature_names(model):
-    names = getattr(model, "feature_names_in_", None)
-    return ([str(n) for n in names] if names is not None
-            else [f"x{j}" for j in range(model.n_features_in_)])
+    return list(column_names(model))
 
 
 def _headline(model, x, ridge_penalty, want_verdict):

@@ -8,7 +8,7 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
-from hedgerow._validation import checked_rows
+from hedgerow._validation import checked_rows, column_names
 from hedgerow.diagnostics._report import ReportMixin, check_probe_point, has_little_bags
 from hedgerow.inference import normal_interval
 
@@ -32,7 +32,7 @@ def resolve_feature(model, feature) -> int:
     names = getattr(model, "feature_names_in_", None)
     d = model.n_features_in_
     if isinstance(feature, str):
-        if names is None and feature in [f"x{j}" for j in range(d)]:
+        if names is None and feature in column_names(model):
             # the default names reports give to unnamed columns
             return int(feature[1:])
         if names is None or feature not in list(names):
@@ -118,8 +118,7 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         raise ValueError("The 'grid' parameter must hold at least one value. Got an empty grid.")
     if not np.all(np.isfinite(grid)):
         raise ValueError("The 'grid' parameter must be finite.")
-    names = getattr(first, "feature_names_in_", None)
-    fname = str(names[j]) if names is not None else f"x{j}"
+    fname = column_names(first)[j]
     rows = []
     if not average:
         Q = np.repeat(xq[None, :], grid.size, axis=0)

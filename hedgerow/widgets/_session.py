@@ -19,7 +19,7 @@ import pandas as pd
 import traitlets as t
 
 from hedgerow import diagnostics as D
-from hedgerow._validation import check_ridge_penalty
+from hedgerow._validation import check_ridge_penalty, column_names
 from hedgerow.widgets._runner import ENDED, BackgroundRunner, Job, JobCancelled
 
 __all__ = ["ExploreSession", "ProbeScene", "RefitCancelled"]
@@ -99,9 +99,7 @@ class ExploreSession(t.HasTraits):
                 model = LocalLinearForestRegressor(**params).fit(X, y)
         self._model = model
         self._smoothers = self._fit_smoothers() if compare else []
-        names = getattr(model, "feature_names_in_", None)
-        self.feature_names = ([str(n) for n in names] if names is not None
-                              else [f"x{j}" for j in range(model.n_features_in_)])
+        self.feature_names = list(column_names(model))
         self.ridge_penalty = float(model.ridge_penalty_)
         self.probe_x = [float(v) for v in D.probe_anchor(model.X_train_)]
         self._update_settings()

@@ -15,7 +15,7 @@ import ipywidgets as W
 import numpy as np
 import traitlets as t
 
-from hedgerow.widgets._base import View, held
+from hedgerow.widgets._base import View, held, plain_figure
 from hedgerow.widgets._style import CSS, PROBE_COLOUR, colour_of, fmt
 
 __all__ = ["TuningView"]
@@ -123,13 +123,8 @@ class TuningView(View):
                                    labels=["out-of-bag RMSE"])
         self.current_mark = bq.Scatter(x=np.ones(1), y=np.zeros(1), scales=sc,
                                        colors=[PROBE_COLOUR], default_size=80)
-        self.curve = bq.Figure(
-            marks=[self.curve_mark, self.current_mark], animation_duration=0,
-            axes=[bq.Axis(scale=xs, label="ridge penalty"),
-                  bq.Axis(scale=ys, orientation="vertical", label="out-of-bag RMSE",
-                          tick_format=".3g")],
-            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
-            layout=W.Layout(width="520px", height="240px"))
+        self.curve = plain_figure([self.curve_mark, self.current_mark], xs, ys,
+                                  "ridge penalty", "out-of-bag RMSE")
 
     # -- handlers ----------------------------------------------------------------------
     def _on_ridge_slid(self, change):
