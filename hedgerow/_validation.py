@@ -23,6 +23,10 @@ __all__ = [
     "check_predict_data",
     "check_level",
     "check_ridge_penalty",
+    "CheckedRows",
+    "checked_rows",
+    "fitted_columns",
+    "column_names",
     "validate_params",
     "as_float_array_1d",
     "preserve_fitted_state",
@@ -182,6 +186,11 @@ def _fast_predict_data(estimator, X):
     """
     n_features = getattr(estimator, "n_features_in_", None)
     names = getattr(estimator, "feature_names_in_", None)
+    if isinstance(X, CheckedRows):
+        # checked once where it was made, against these very columns: no second pass
+        if X.columns == fitted_columns(estimator):
+            return np.asarray(X)
+        return None
     if isinstance(X, np.ndarray):
         if names is not None or X.dtype != np.float64 or X.ndim != 2:
             return None
@@ -200,6 +209,64 @@ def _fast_predict_data(estimator, X):
     if A.shape[1] != n_features or A.shape[0] < 1 or not np.isfinite(A).all():
         return None
     return np.ascontiguousarray(A)
+
+
+def fitted_columns(estimator) -> tuple:
+    """Return ``(n_features_in_, column names or None)`` of a fitted estimator."""
+    names = getattr(estimator, "feature_names_in_", None)
+    return (int(estimator.n_features_in_),
+            None if names is None else tuple(str(n) for n in names))
+
+
+def column_names(estimator) -> tuple:
+    """Return the fitted column names, or ``x0, x1, ...`` for columns fitted unnamed.
+
+    The one place the default names of unnamed columns are made (reports, snapshots,
+    views and ``resolve_feature`` all read them from here).
+    """
+    names = getattr(estimator, "feature_names_in_", None)
+    if names is not None:
+        return tuple(str(n) for n in names)
+    return tuple(f"x{j}" for j in range(int(estimator.n_features_in_)))
+
+
+class CheckedRows(np.ndarray):
+    """Query rows checked once against a fitted estimator's columns (``checked_rows``).
+
+    A float64, C-contiguous, finite 2-d array whose columns are in the fitted order.
+    Every estimator fitted on the same columns (the same count and names) takes it as
+    it is, without checking it again and without the feature-name warning a plain array
+    gets from a model fitted on a DataFrame: a probe point goes from the view to the
+    weights as one validated array. Arrays derived from it (slices, arithmetic) are
+    not marked and are checked as usual.
+    """
+
+    columns = None  # (n_features, names or None) it was checked against
+
+
+def checked_rows(values, estimator, what: str = "X") -> CheckedRows:
+    """Return ``values`` (rows in the fitted column order) checked and marked as such.
+
+    ``values`` is an array-like of shape (m, d) or (d,), d = ``n_features_in_`` of the
+    fitted ``estimator``; the values must be finite numbers. ``what`` names the input in
+    the error message.
+    """
+    if not hasattr(estimator, "n_features_in_"):
+        check_is_fitted(estimator)  # the usual "not fitted yet" error
+    try:
+        A = np.array(values, dtype=np.float64, order="C", ndmin=2)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"The '{what}' parameter must hold numbers only. Got {values!r} "
+                         f"instead.") from exc
+    d = int(estimator.n_features_in_)
+    if A.ndim != 2 or A.shape[1] != d or A.shape[0] < 1:
+        raise ValueError(f"The '{what}' parameter must have {d} values per row (one per "
+                         f"column). Got an array of shape {np.shape(values)} instead.")
+    if not np.all(np.isfinite(A)):
+        raise ValueError(f"The '{what}' parameter must be finite. Got {values!r} instead.")
+    out = A.view(CheckedRows)
+    out.columns = fitted_columns(estimator)
+    return out
 
 
 def check_level(level) -> float:

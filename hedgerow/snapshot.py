@@ -41,6 +41,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from hedgerow._validation import checked_rows, column_names
+
 __all__ = [
     "DataFingerprint",
     "FORMAT",
@@ -620,9 +622,7 @@ def _check_model(model):
 
 
 def _feature_names(model):
-    names = getattr(model, "feature_names_in_", None)
-    return ([str(n) for n in names] if names is not None
-            else [f"x{j}" for j in range(model.n_features_in_)])
+    return list(column_names(model))
 
 
 def _headline(model, x, ridge_penalty, want_verdict):
@@ -633,7 +633,6 @@ def _headline(model, x, ridge_penalty, want_verdict):
     level = 0.95
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
-        warnings.filterwarnings("ignore", message="X does not have valid feature names")
         if hasattr(model, "ridge_penalty_"):
             view = model.with_ridge_penalty(ridge_penalty)
             lam = float(view.ridge_penalty_)
@@ -649,9 +648,7 @@ def _headline(model, x, ridge_penalty, want_verdict):
             ok = np.isfinite(pred)
             rmse = float(np.sqrt(np.mean((pred[ok] - model.y_train_[ok]) ** 2)))
             width = None
-        names = getattr(model, "feature_names_in_", None)
-        q = None if x is None else (pd.DataFrame(x[None, :], columns=names)
-                                    if names is not None else x[None, :])
+        q = None if x is None else checked_rows(x[None, :], model, "probe")
         pred_at = None if q is None else float(view.predict(q)[0])
         conclusion = None
         if want_verdict:

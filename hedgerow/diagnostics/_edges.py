@@ -8,9 +8,11 @@ import numpy as np
 import pandas as pd
 from scipy.stats import t as student_t
 
+from hedgerow._validation import checked_rows
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._report import ReportMixin
-from hedgerow.diagnostics._slices import _frame_like, method_label
+from hedgerow.diagnostics._slices import method_label
+from hedgerow.diagnostics._verdict import EDGE_BAND
 
 __all__ = ["EdgeProfile", "edges", "DEPTH_BANDS"]
 
@@ -35,7 +37,7 @@ class EdgeProfile(ReportMixin):
     """Held-out residuals per edge-depth band and method, and the edge-bias sign pattern.
 
     ``bands``: method, band, n, mean_residual (y - held-out prediction), lower, upper
-    (t interval), rmse. ``bend``: per method, the mean over edge-band rows (depth < 0.10)
+    (t interval), rmse. ``bend``: per method, the mean over edge-band rows (depth < ``EDGE_BAND``)
     of residual × side × sign(local slope) with its interval: positive means predictions
     bend toward the interior at the edges (at an upper edge of a rising signal the fit is
     too low), the signature of a forest's edge bias. ``depth``, ``side``, ``column``: per
@@ -57,7 +59,8 @@ class EdgeProfile(ReportMixin):
         out = []
         for _, r in self.bend.iterrows():
             out.append(f"{r['method']}: inward-bend score {r['bend']:.3g} "
-                       f"(95% CI {r['lower']:.3g} to {r['upper']:.3g}) in the outer 10%")
+                       f"(95% CI {r['lower']:.3g} to {r['upper']:.3g}) in the outer "
+                       f"{100 * EDGE_BAND:.0f}%")
         return out
 
 
@@ -105,10 +108,10 @@ def edges(models, X=None, y=None, *, columns=None, slope_model=None, level=0.95)
     bands = pd.DataFrame(rows)
     if slope_model is None:
         slope_model = next((m for _, m in pairs if hasattr(m, "local_slopes")), None)
-    edge = depth < 0.10
+    edge = depth < EDGE_BAND
     bend_rows = []
     if slope_model is not None and np.any(edge):
-        slopes = np.asarray(slope_model.local_slopes(_frame_like(slope_model, X[edge])))
+        slopes = np.asarray(slope_model.local_slopes(checked_rows(X[edge], slope_model)))
         if hasattr(slope_model, "correction_features_"):
             pos = {c: i for i, c in enumerate(slope_model.correction_features_)}
             idx = np.array([pos.get(c, -1) for c in column[edge]])

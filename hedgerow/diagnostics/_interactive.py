@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from hedgerow._validation import check_level
+from hedgerow.diagnostics._report import has_little_bags
 from hedgerow.diagnostics._slices import resolve_feature
 from hedgerow.inference import normal_interval
 
@@ -38,11 +39,6 @@ def at_ridge_penalty(model, ridge_penalty):
     return model.with_ridge_penalty(ridge_penalty)
 
 
-def has_little_bags(model) -> bool:
-    """Return True when the fitted forest groups its trees in little bags (intervals)."""
-    return int(getattr(model, "trees_per_bag_", 1)) >= 2
-
-
 class _LocalAverage:
     """A fitted forest seen through its local average (the honest forest on its trees)."""
 
@@ -51,6 +47,7 @@ class _LocalAverage:
         self.n_features_in_ = model.n_features_in_
         self.X_train_ = model.X_train_
         self.y_train_ = model.y_train_
+        self.trees_per_bag_ = model.trees_per_bag_
         names = getattr(model, "feature_names_in_", None)
         if names is not None:
             self.feature_names_in_ = names

@@ -8,8 +8,14 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from hedgerow.diagnostics._report import ReportMixin, check_probe_point, kish_ess
-from hedgerow.diagnostics._slices import _frame_like, method_label
+from hedgerow._validation import column_names, fitted_columns
+from hedgerow.diagnostics._report import (
+    ReportMixin,
+    check_probe_point,
+    has_little_bags,
+    kish_ess,
+)
+from hedgerow.diagnostics._slices import method_label
 from hedgerow.inference import normal_interval
 
 __all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS"]
@@ -38,18 +44,29 @@ class ProbeReport(ReportMixin):
 
     Attributes
     ----------
-    x : (d,) the probe point. feature_names : column names.
-    weights : 1 × n CSR forest weights of the probe.
-    ess : Kish effective sample size (sum w)^2 / sum w^2 of the forest weights.
-    top_share : share of the weight held by the ``TOP_ROWS`` heaviest rows.
-    neighbour_offset : (d,) weighted mean of X_i - x per column, in training standard
-        deviations: near 0 for a balanced neighbourhood, far from 0 for a lopsided one
-        (the edge problem: neighbours all on one side of the probe).
-    neighbour_spread : (d,) weighted mean |X_i - x| per column, same units.
-    slope_columns : indices of the columns the local line uses.
-    methods : the local linear forest, the honest local average on the same trees and
-        each comparison smoother, in that order.
-    level : interval level.
+    x : ndarray of shape (d,)
+        The probe point.
+    feature_names : tuple of str
+        Column names (``x0, x1, ...`` for columns fitted unnamed).
+    weights : scipy.sparse.csr_matrix of shape (1, n)
+        Forest weights of the probe.
+    ess : float
+        Kish effective sample size (sum w)^2 / sum w^2 of the forest weights.
+    top_share : float
+        Share of the weight held by the ``TOP_ROWS`` heaviest rows.
+    neighbour_offset : ndarray of shape (d,)
+        Weighted mean of X_i - x per column, in training standard deviations: near 0 for
+        a balanced neighbourhood, far from 0 for a lopsided one (the edge problem:
+        neighbours all on one side of the probe).
+    neighbour_spread : ndarray of shape (d,)
+        Weighted mean |X_i - x| per column, same units.
+    slope_columns : ndarray of int
+        Indices of the columns the local line uses.
+    methods : tuple of MethodAtProbe
+        The local linear forest, the honest local average on the same trees and each
+        comparison smoother, in that order.
+    level : float
+        Interval level.
     """
 
     x: np.ndarray
@@ -95,13 +112,6 @@ class ProbeReport(ReportMixin):
                 f"{100 * self.top_share:.0f}% of the weight; {100 * self.level:.0f}% intervals"]
 
 
-def _feature_names(model):
-    names = getattr(model, "feature_names_in_", None)
-    if names is None:
-        return tuple(f"x{j}" for j in range(model.n_features_in_))
-    return tuple(str(n) for n in names)
-
-
 def _method_entry(name, w, pred, std, slopes, slope_se, level):
     if std is None or not np.isfinite(std):
         lo = hi = np.nan
@@ -120,19 +130,25 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
 
     Parameters
     ----------
-    model : fitted LocalLinearForestRegressor (local line, plus the local average on the
-        same trees) or HonestForestRegressor (local average only).
-    x : array-like or pandas Series of length d.
-    compare : fitted smoothers (NadarayaWatsonRegressor, LocalLinearRegressor) fitted on
-        the same data; each adds its prediction, interval, local slope and kernel weights.
-    level : interval level in (0, 1).
+    model : LocalLinearForestRegressor or HonestForestRegressor
+        Fitted; a local linear forest gives the local line plus the local average on the
+        same trees, an honest forest the local average only.
+    x : array-like or pandas Series of length d
+        The probe point (checked once, then passed on as one array).
+    compare : sequence of fitted smoothers, default=()
+        ``NadarayaWatsonRegressor`` / ``LocalLinearRegressor`` fitted on the same data;
+        each adds its prediction, interval, local slope and kernel weights.
+    level : float in (0, 1), default=0.95
+        Interval level.
     """
     from hedgerow.estimators import LocalLinearForestRegressor
 
-    xq = check_probe_point(model, x)
-    names = _feature_names(model)
-    q = _frame_like(model, xq)  # named columns for models fitted on a DataFrame
-    bags = getattr(model, "trees_per_bag_", 1) >= 2
+    # one validated array from here to the weights: every estimator fitted on these
+    # columns takes it without checking it again
+    q = check_probe_point(model, x)
+    xq = np.asarray(q)
+    names = column_names(model)
+    bags = has_little_bags(model)
     W = model.neighbour_weights(q)
     w = W.toarray().ravel()
     X = model.X_train_
@@ -147,13 +163,12 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     k = cols.size
     methods = []
     if is_llf:
-        fit = model.local_fit(q)
-        if bags:
-            _, std = model.predict(q, return_std=True)
-            std = float(std[0])
-            slope_se = model.slope_std(q)[0]
+        # one local solve: prediction, slopes and their little-bags errors
+        fit, std, slope_se = model.local_readout(q)
+        if std is None:
+            slope_se = np.full(k, np.nan)
         else:
-            std, slope_se = None, np.full(k, np.nan)
+            std, slope_se = float(std[0]), slope_se[0]
         methods.append(_method_entry(
             "local linear forest", W, fit.intercept[0], std, fit.slopes[0], slope_se, level
         ))
@@ -164,7 +179,7 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
         level,
     ))
     for smoother in compare:
-        qs = _frame_like(smoother, xq)
+        qs = q if fitted_columns(smoother) == q.columns else xq
         pred, sstd = smoother.predict(qs, return_std=True)
         if hasattr(smoother, "local_slopes"):
             slopes = np.asarray(smoother.local_slopes(qs))[0][cols]

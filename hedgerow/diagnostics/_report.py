@@ -7,7 +7,9 @@ import html
 import numpy as np
 import pandas as pd
 
-__all__ = ["ReportMixin", "check_probe_point", "kish_ess"]
+from hedgerow._validation import CheckedRows, checked_rows, fitted_columns
+
+__all__ = ["ReportMixin", "check_probe_point", "has_little_bags", "kish_ess"]
 
 
 class ReportMixin:
@@ -31,6 +33,11 @@ class ReportMixin:
         )
 
 
+def has_little_bags(model) -> bool:
+    """Return True when a fitted forest groups its trees in little bags (intervals)."""
+    return int(getattr(model, "trees_per_bag_", 1)) >= 2
+
+
 def kish_ess(w) -> float:
     """Return Kish's effective sample size (sum w)^2 / sum w^2 (Kish 1965)."""
     w = np.asarray(w, dtype=np.float64)
@@ -39,7 +46,13 @@ def kish_ess(w) -> float:
 
 
 def check_probe_point(model, x) -> np.ndarray:
-    """Return the probe point as a (1, d) float array, or raise naming what was wrong."""
+    """Return the probe point as a (1, d) float array, or raise naming what was wrong.
+
+    The array is a ``CheckedRows``: every estimator fitted on the model's columns takes
+    it without a second check (and without a feature-name warning).
+    """
+    if isinstance(x, CheckedRows) and x.shape[0] == 1 and x.columns == fitted_columns(model):
+        return x
     if isinstance(x, pd.Series):
         names = getattr(model, "feature_names_in_", None)
         if names is not None:
@@ -63,4 +76,4 @@ def check_probe_point(model, x) -> np.ndarray:
         )
     if not np.all(np.isfinite(arr)):
         raise ValueError(f"The probe point 'x' must be finite. Got {arr.tolist()!r} instead.")
-    return arr.reshape(1, -1)
+    return checked_rows(arr.reshape(1, -1), model, "x")

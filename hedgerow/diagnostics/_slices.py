@@ -8,7 +8,8 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
-from hedgerow.diagnostics._report import ReportMixin, check_probe_point
+from hedgerow._validation import checked_rows, column_names
+from hedgerow.diagnostics._report import ReportMixin, check_probe_point, has_little_bags
 from hedgerow.inference import normal_interval
 
 __all__ = ["SliceReport", "slices", "method_label", "resolve_feature"]
@@ -31,7 +32,7 @@ def resolve_feature(model, feature) -> int:
     names = getattr(model, "feature_names_in_", None)
     d = model.n_features_in_
     if isinstance(feature, str):
-        if names is None and feature in [f"x{j}" for j in range(d)]:
+        if names is None and feature in column_names(model):
             # the default names reports give to unnamed columns
             return int(feature[1:])
         if names is None or feature not in list(names):
@@ -57,11 +58,6 @@ def _as_models(models):
     if hasattr(models, "predict"):
         models = [models]
     return [(method_label(m), m) for m in models]
-
-
-def _frame_like(model, X):
-    names = getattr(model, "feature_names_in_", None)
-    return pd.DataFrame(X, columns=list(names)) if names is not None else X
 
 
 @dataclass(frozen=True)
@@ -122,19 +118,19 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         raise ValueError("The 'grid' parameter must hold at least one value. Got an empty grid.")
     if not np.all(np.isfinite(grid)):
         raise ValueError("The 'grid' parameter must be finite.")
-    names = getattr(first, "feature_names_in_", None)
-    fname = str(names[j]) if names is not None else f"x{j}"
+    fname = column_names(first)[j]
     rows = []
     if not average:
         Q = np.repeat(xq[None, :], grid.size, axis=0)
         Q[:, j] = grid
+        Q = checked_rows(Q, first, "grid")  # checked once for every model below
         for name, model in pairs:
-            Qf = _frame_like(model, Q)
-            try:
-                pred, std = model.predict(Qf, return_std=True)
+            # kernel smoothers always give intervals, forests with little bags only
+            if not hasattr(model, "trees_per_bag_") or has_little_bags(model):
+                pred, std = model.predict(Q, return_std=True)
                 lo, hi = normal_interval(pred, std, level)
-            except ValueError:
-                pred = model.predict(Qf)
+            else:  # a forest without little bags: no intervals
+                pred = model.predict(Q)
                 lo = hi = np.full(grid.size, np.nan)
             rows.append((name, grid, np.asarray(pred, dtype=np.float64), lo, hi))
     else:
@@ -148,8 +144,9 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         nb = Xb.shape[0]
         Q = np.tile(Xb, (grid.size, 1))
         Q[:, j] = np.repeat(grid, nb)
+        Q = checked_rows(Q, first, "background")
         for name, model in pairs:
-            pred = np.asarray(model.predict(_frame_like(model, Q))).reshape(grid.size, nb)
+            pred = np.asarray(model.predict(Q)).reshape(grid.size, nb)
             nan = np.full(grid.size, np.nan)
             rows.append((name, grid, pred.mean(axis=1), nan, nan))
     # one frame from stacked columns (cheaper than one frame per method and a concat)

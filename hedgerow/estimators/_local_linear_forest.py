@@ -355,7 +355,7 @@ class LocalLinearForestRegressor(_ForestBase):
         means, centre = self._leaf_features()
         offset, gamma = linearisation_coefficients(
             Qc, centre, self.correction_scale_, np.nan_to_num(fit.intercept),
-            np.nan_to_num(fit.slopes_std), np.nan_to_num(fit.gram_inv[:, row, :]),
+            np.nan_to_num(fit.slopes_scaled), np.nan_to_num(fit.gram_inv[:, row, :]),
         )
         return linearised_from_leaf_means(
             leaves, usable, self.forest_, means, offset, gamma, n_jobs=self._n_threads()
@@ -475,7 +475,7 @@ class LocalLinearForestRegressor(_ForestBase):
             stacked = LocalFit(
                 intercept=np.tile(fit.intercept, n_j),
                 slopes=np.tile(fit.slopes, (n_j, 1)),
-                slopes_std=np.tile(fit.slopes_std, (n_j, 1)),
+                slopes_scaled=np.tile(fit.slopes_scaled, (n_j, 1)),
                 gram_inv=np.concatenate([fit.gram_inv[:, [0, j + 1], :] for j in js]),
                 fallback=np.tile(fit.fallback, n_j),
                 ridge_penalty=fit.ridge_penalty,

@@ -279,7 +279,7 @@ def _dot_leaf_means_chunk(leaves, usable, leaf_ptr, leaf_means, offset, gamma):
     return out
 
 
-def linearisation_coefficients(Qc, centre, scale, intercept, slopes_std, c0):
+def linearisation_coefficients(Qc, centre, scale, intercept, slopes_scaled, c0):
     """Return (offset, gamma) with psi_t(x) = offset + gamma . (leaf mean of the features).
 
     The features are ``hedgerow.local.moment_features`` of the rows,
@@ -292,7 +292,7 @@ def linearisation_coefficients(Qc, centre, scale, intercept, slopes_std, c0):
     m, k = Qc.shape
     qu = (Qc - centre) / scale
     a = np.asarray(intercept, dtype=np.float64)
-    b = np.asarray(slopes_std, dtype=np.float64).reshape(m, k)
+    b = np.asarray(slopes_scaled, dtype=np.float64).reshape(m, k)
     c = np.asarray(c0, dtype=np.float64)[:, 1:]
     L0 = c0[:, 0] - np.einsum("ij,ij->i", c, qu)
     R0 = -a + np.einsum("ij,ij->i", b, qu)

@@ -126,8 +126,9 @@ class LocalFit:
         The prediction at each query.
     slopes : ndarray of shape (m, k)
         Slopes in the original units of the correction columns (``(m, 0)`` for degree 0).
-    slopes_std : ndarray of shape (m, k)
-        Slopes per standardised unit (per unit of ``scale``).
+    slopes_scaled : ndarray of shape (m, k)
+        Slopes per standardised unit (per unit of ``scale``). ``slopes_std`` is the older
+        name of the same array (kept for callers; "std" elsewhere means standard error).
     gram_inv : ndarray of shape (m, k+1, k+1)
         Inverse of the penalised weighted Gram matrix
         ``M = sum_i w_i [1, z_i][1, z_i]^T + lam * s0 * diag(0, 1, ..., 1)``. For fallback
@@ -141,10 +142,15 @@ class LocalFit:
 
     intercept: np.ndarray
     slopes: np.ndarray
-    slopes_std: np.ndarray
+    slopes_scaled: np.ndarray
     gram_inv: np.ndarray
     fallback: np.ndarray
     ridge_penalty: float
+
+    @property
+    def slopes_std(self) -> np.ndarray:
+        """The older name of ``slopes_scaled`` (standardised slopes, not standard errors)."""
+        return self.slopes_scaled
 
 
 def _binary_magnitude(values) -> np.ndarray:
@@ -466,7 +472,7 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
         return LocalFit(
             intercept=intercept,
             slopes=slopes,
-            slopes_std=slopes.copy(),
+            slopes_scaled=slopes.copy(),
             gram_inv=gram_inv,
             fallback=np.zeros(m, dtype=bool),
             ridge_penalty=lam,
@@ -518,7 +524,7 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
     return LocalFit(
         intercept=a,
         slopes=b / moments.scale,
-        slopes_std=b,
+        slopes_scaled=b,
         gram_inv=gram_inv,
         fallback=fallback,
         ridge_penalty=lam,

@@ -6,12 +6,16 @@ import contextlib
 import html
 import logging
 
+import bqplot as bq
 import ipywidgets as W
 import traitlets as t
 
 from hedgerow.widgets._style import CSS
 
-__all__ = ["View", "held"]
+__all__ = ["FIGURE_MARGIN", "View", "held", "plain_figure"]
+
+#: Margins (pixels) of the views' two-axis figures.
+FIGURE_MARGIN = {"top": 10, "bottom": 45, "left": 70, "right": 20}
 
 log = logging.getLogger("hedgerow.widgets")
 
@@ -23,6 +27,17 @@ def held(*marks):
         for m in marks:
             stack.enter_context(m.hold_sync())
         yield
+
+
+def plain_figure(marks, x_scale, y_scale, x_label, y_label, *, y_format=".3g",
+                 width="520px", height="240px", margin=None):
+    """Return a bqplot figure of ``marks`` with a labelled x axis and vertical y axis."""
+    return bq.Figure(
+        marks=list(marks), animation_duration=0,
+        axes=[bq.Axis(scale=x_scale, label=x_label),
+              bq.Axis(scale=y_scale, orientation="vertical", label=y_label,
+                      tick_format=y_format)],
+        fig_margin=dict(margin or FIGURE_MARGIN), layout=W.Layout(width=width, height=height))
 
 
 class View(W.VBox):

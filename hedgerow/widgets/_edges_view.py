@@ -6,7 +6,8 @@ import bqplot as bq
 import ipywidgets as W
 import numpy as np
 
-from hedgerow.widgets._base import View, held
+from hedgerow.diagnostics import EDGE_BAND
+from hedgerow.widgets._base import View, held, plain_figure
 from hedgerow.widgets._style import (
     HIGHLIGHT_COLOUR,
     colour_of,
@@ -58,13 +59,9 @@ class EdgesView(View):
                                   colors=["#999999"], line_style="dashed")
         marks = [self.zero_mark, *self.dot_marks.values(), self.probe_rows_mark,
                  *self.whisker_marks.values(), *self.mean_marks.values()]
-        self.figure = bq.Figure(
-            marks=marks, animation_duration=0,
-            axes=[bq.Axis(scale=xs, label="edge depth (share of the data beyond the row)"),
-                  bq.Axis(scale=ys, orientation="vertical", label="held-out residual",
-                          tick_format=".3g")],
-            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
-            layout=W.Layout(width="100%", height="380px"))
+        self.figure = plain_figure(marks, xs, ys,
+                                   "edge depth (share of the data beyond the row)",
+                                   "held-out residual", width="100%", height="380px")
         self.bend_html = W.HTML()
         legend = " &nbsp; ".join(swatch(n) for n in names)
         self.children = [W.HTML(f"<b>edges</b> <small>{legend}; ringed: rows carrying the "
@@ -104,7 +101,8 @@ class EdgesView(View):
             f"</td><td>{fmt(r['lower'], 3)} to {fmt(r['upper'], 3)}</td><td>{r['n']}</td></tr>"
             for _, r in prof.bend.iterrows())
         self.bend_html.value = (
-            "<small>inward-bend score in the outer 10% (residual &times; side &times; sign of "
-            "the local slope; above 0: predictions bend toward the interior)</small>"
+            f"<small>inward-bend score in the outer {100 * EDGE_BAND:.0f}% (residual "
+            "&times; side &times; sign of the local slope; above 0: predictions bend toward "
+            "the interior)</small>"
             f"<table><tr><th>method</th><th>score</th><th>95% interval</th><th>rows</th></tr>"
             f"{rows}</table>")

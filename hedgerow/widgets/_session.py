@@ -19,7 +19,8 @@ import pandas as pd
 import traitlets as t
 
 from hedgerow import diagnostics as D
-from hedgerow._validation import check_ridge_penalty
+from hedgerow._validation import check_ridge_penalty, column_names
+from hedgerow.widgets._runner import ENDED, BackgroundRunner, Job, JobCancelled
 
 __all__ = ["ExploreSession", "ProbeScene", "RefitCancelled"]
 
@@ -32,8 +33,8 @@ REFIT_KEYS = ("subsample_rate", "min_samples_leaf", "n_estimators")
 _CACHE = 64
 
 
-class RefitCancelled(Exception):
-    """Raised inside a refit's progress callback to stop it."""
+#: Raised inside a refit's (any job's) progress report once it was cancelled.
+RefitCancelled = JobCancelled
 
 
 @dataclass(frozen=True)
@@ -45,14 +46,6 @@ class ProbeScene:
     readout: pd.DataFrame
     feature_index: int
     grid: np.ndarray
-
-
-class _Job:
-    def __init__(self, params):
-        self.params = dict(params)
-        self.cancel = threading.Event()
-        self.outcome = "waiting"
-        self.thread = None
 
 
 @contextlib.contextmanager
@@ -83,6 +76,7 @@ class ExploreSession(t.HasTraits):
     refit_status = t.Unicode("idle", help="idle, waiting, running, cancelled or failed.")
     refit_progress = t.Float(0.0, help="Share of the trees grown by the running refit.")
     refit_message = t.Unicode("", help="Plain-language state of the last refit.")
+    job_states = t.Dict(help="Outcome of the newest background job of each kind.")
 
     def __init__(self, X, y, *, model=None, compare=True, refit_delay=0.5, **forest_params):
         super().__init__()
@@ -92,8 +86,8 @@ class ExploreSession(t.HasTraits):
         self._lock = threading.RLock()
         self._cache = OrderedDict()
         self._refit_delay = float(refit_delay)
-        self._timer = None
-        self._job = None
+        self._subscribers = {}
+        self._runner = BackgroundRunner(self._publish, self._on_ui)
         self.refit_log = []  # (params, outcome) of every refit, oldest first
         try:
             self._loop = asyncio.get_running_loop()
@@ -105,9 +99,7 @@ class ExploreSession(t.HasTraits):
                 model = LocalLinearForestRegressor(**params).fit(X, y)
         self._model = model
         self._smoothers = self._fit_smoothers() if compare else []
-        names = getattr(model, "feature_names_in_", None)
-        self.feature_names = ([str(n) for n in names] if names is not None
-                              else [f"x{j}" for j in range(model.n_features_in_)])
+        self.feature_names = list(column_names(model))
         self.ridge_penalty = float(model.ridge_penalty_)
         self.probe_x = [float(v) for v in D.probe_anchor(model.X_train_)]
         self._update_settings()
@@ -134,27 +126,31 @@ class ExploreSession(t.HasTraits):
     def y_train(self) -> np.ndarray:
         return self._model.y_train_
 
+    def _state_key(self, per_penalty=True):
+        return ((self.generation, self.ridge_penalty) if per_penalty
+                else (self.generation, "any penalty"))
+
     def _cached(self, key, compute, per_penalty=True):
-        key = ((self.generation, self.ridge_penalty) if per_penalty
-               else (self.generation, "any penalty")) + key
+        key = self._state_key(per_penalty) + key
         with self._lock:
             if key in self._cache:
                 self._cache.move_to_end(key)
                 return self._cache[key]
         with _quiet():
             value = compute()
+        self._store(key, value)
+        return value
+
+    def _store(self, full_key, value):
         with self._lock:
-            self._cache[key] = value
+            self._cache[full_key] = value
             while len(self._cache) > _CACHE:
                 self._cache.popitem(last=False)
-        return value
 
     def peek(self, key, per_penalty=True):
         """Return what ``_cached`` holds under ``key`` for the current state, or None."""
-        key = ((self.generation, self.ridge_penalty) if per_penalty
-               else (self.generation, "any penalty")) + key
         with self._lock:
-            return self._cache.get(key)
+            return self._cache.get(self._state_key(per_penalty) + key)
 
     def penalised_model(self):
         """The current forest seen at the session's ridge penalty (shared trees, no refit)."""
@@ -205,7 +201,58 @@ class ExploreSession(t.HasTraits):
         return self._cached(("verdict",), compute)
 
     def oob_summary(self):
+        """The out-of-bag summary at the current penalty, interval width included."""
         return self._cached(("oob",), lambda: D.oob_summary(self.penalised_model()))
+
+    def quick_oob_summary(self):
+        """The out-of-bag RMSE at the current penalty without the interval width (fast)."""
+        full = self.peek(("oob",))
+        if full is not None:
+            return full
+        return self._cached(("oob quick",), lambda: D.oob_summary(
+            self.penalised_model(), interval_width=False))
+
+    def request_oob_summary(self):
+        """Compute :meth:`oob_summary` in the background; return the job, or None if cached.
+
+        A job of kind "interval width", keyed by (generation, ridge penalty): the
+        little-bags errors of every training row are the slow part. The result is stored
+        in the cache under its key, then the subscribers hear of it.
+        """
+        if self.peek(("oob",)) is not None:
+            return None
+        key = self._state_key()
+        job = self._runner.latest("interval width")
+        if job is not None and job.key == key and job.outcome in ("waiting", "running"):
+            return job
+        model = self.penalised_model()
+
+        def compute(job):
+            with _quiet():
+                return D.oob_summary(model)
+
+        return self.submit("interval width", compute, key=key,
+                           on_done=lambda job, value: self._store(key + ("oob",), value))
+
+    def request_coverage(self, reps) -> Job:
+        """Run the coverage readout of the current forest in the background; the job.
+
+        Kind "coverage"; progress after every replication. Cancelling it ends the run
+        after the current replication (at least one, even if it had not started), and
+        the job (outcome "cancelled") still carries the readout of the replications
+        done. Its result is ``(CoverageReport, the settings line it was computed for)``.
+        """
+        from hedgerow._progress import RunControl
+
+        model, settings = self.penalised_model(), self.describe_settings()
+
+        def run(job):
+            control = RunControl(lambda done, total: job.report(done, total, stop=False))
+            job.on_cancel(control.cancel)
+            with _quiet():
+                return D.coverage_readout(model, reps=int(reps), progress=control), settings
+
+        return self.submit("coverage", run, params={"reps": int(reps)}, stops_itself=True)
 
     def ridge_curve(self, penalties):
         key = ("ridge", np.asarray(penalties, dtype=float).tobytes())
@@ -275,125 +322,118 @@ class ExploreSession(t.HasTraits):
                 f"subsample rate {s.get('subsample_rate', 0):.2f}, min leaf "
                 f"{s.get('min_samples_leaf')}, ridge penalty {s.get('ridge_penalty', 0):.3g}")
 
-    # -- refits off the UI thread ------------------------------------------------------
+    # -- background work: one runner for refits, interval widths, coverage, ... -------
+    def submit(self, kind, fn, *, key=None, params=None, delay=0.0, on_done=None,
+               replace=True, stops_itself=False) -> Job:
+        """Run ``fn(job)`` on the session's background runner; return the ``Job``.
+
+        The one way to work off the UI thread (views never start threads): the runner
+        starts the newest waiting job first, ``replace`` cancels older jobs of the same
+        ``kind``, ``fn`` reports progress with ``job.report(done, total)`` (which stops
+        a cancelled job), and ``on_done(job, result)`` runs on the kernel's event loop
+        before the job's subscribers hear of it (:meth:`subscribe`). ``stops_itself``:
+        see ``Job.cancel``.
+        """
+        job = Job(kind, fn, key=key, params=params, delay=delay, on_done=on_done,
+                  stops_itself=stops_itself)
+        return self._runner.submit(job, replace=replace)
+
+    def subscribe(self, kind, callback):
+        """Call ``callback(job)`` on the event loop at every state change of ``kind`` jobs.
+
+        Waiting, running (with each progress step), then done, cancelled or failed; the
+        job carries ``outcome``, ``progress``, ``result`` and ``message``.
+        """
+        self._subscribers.setdefault(str(kind), []).append(callback)
+
+    def latest_job(self, kind) -> Job | None:
+        """The newest job of ``kind`` submitted to this session's runner, or None."""
+        return self._runner.latest(kind)
+
+    def cancel_jobs(self, kind=None):
+        """Cancel the waiting and running jobs of ``kind`` (every kind if None)."""
+        self._runner.cancel(kind)
+
+    def wait_for(self, kind, timeout=60.0) -> str:
+        """Block until the newest ``kind`` job has ended and been delivered; its outcome.
+
+        "none" when no such job was submitted.
+        """
+        job = self._runner.latest(kind)
+        if job is None:
+            return "none"
+        if not job.join(timeout):
+            raise TimeoutError(f"The {kind} did not finish within {timeout} s.")
+        return job.outcome
+
+    def _publish(self, job):
+        """Runner callback (event loop): refit traits, job states, then the subscribers."""
+        latest = self._runner.latest(job.kind) is job
+        if latest:
+            self.job_states = {**self.job_states, job.kind: job.outcome}
+        if job.kind == "refit":
+            self._refit_published(job, latest)
+        for callback in list(self._subscribers.get(job.kind, ())):
+            callback(job)
+
+    # -- refits ------------------------------------------------------------------------
     def request_refit(self, **changes):
         """Refit with ``changes`` after ``refit_delay`` s, replacing any pending or running one.
 
-        Returns at once. A running refit is cancelled (it stops at its next progress
-        report) so that only the latest request is finished.
+        Returns the ``Job`` at once. A running refit is cancelled (it stops at its next
+        progress report) so that only the latest request is finished.
         """
         bad = set(changes) - set(REFIT_KEYS)
         if bad:
             raise ValueError(f"A refit can change {list(REFIT_KEYS)}. Got {sorted(bad)}.")
-        with self._lock:
-            base = self._job.params if self._job is not None and \
-                self._job.outcome in ("waiting", "running") else self._model.get_params()
-            params = {**base, **changes}
-            if self._timer is not None:
-                self._timer.cancel()
-            previous = self._job
-            if previous is not None and previous.outcome in ("waiting", "running"):
-                previous.cancel.set()
-            job = _Job(params)
-            self._job = job
-            if previous is not None and previous.thread is None:
-                self._finish(previous, "cancelled")  # superseded before it started
-            self._timer = threading.Timer(self._refit_delay, self._start, args=(job,))
-            self._timer.daemon = True
-            self._timer.start()
-        self._on_ui(lambda: self._set_status("waiting", "refit requested"))
-        return job
+        previous = self._runner.latest("refit")
+        base = previous.params if previous is not None and previous.outcome in (
+            "waiting", "running") else self._model.get_params()
+        params = {**base, **changes}
+        return self.submit("refit", self._refit, params=params, delay=self._refit_delay,
+                           on_done=self._install)
 
     def cancel_refit(self):
         """Cancel the pending or running refit, if any."""
-        with self._lock:
-            if self._timer is not None:
-                self._timer.cancel()
-            job = self._job
-            if job is not None and job.outcome in ("waiting", "running"):
-                job.cancel.set()
-                if job.thread is None:
-                    self._finish(job, "cancelled")
+        self._runner.cancel("refit")
 
     def wait_for_refit(self, timeout=60.0) -> str:
-        """Block until the latest refit ends; return its outcome."""
-        import time
+        """Block until the latest refit ends and the views have redrawn; its outcome."""
+        return self.wait_for("refit", timeout)
 
-        end = time.monotonic() + timeout
-        while time.monotonic() < end:
-            job = self._job
-            if job is None or job.outcome not in ("waiting", "running"):
-                return "none" if job is None else job.outcome
-            thread = job.thread
-            # _start names the thread before it starts it; a thread not started yet
-            # cannot be joined (ident is None until it runs)
-            if thread is not None and thread.ident is not None:
-                thread.join(timeout=0.05)
-            else:
-                time.sleep(0.02)
-        raise TimeoutError(f"The refit did not finish within {timeout} s.")
-
-    def _start(self, job):
-        with self._lock:
-            if job.cancel.is_set() or job is not self._job:
-                self._finish(job, "cancelled")
-                return
-            job.outcome = "running"
-            job.thread = threading.Thread(target=self._run, args=(job,), daemon=True,
-                                          name="hedgerow-refit")
-        self._on_ui(lambda: self._set_status("running", "refitting; the views show the "
-                                             "previous forest meanwhile", 0.0))
-        job.thread.start()
-
-    def _run(self, job):
+    def _refit(self, job):
         from sklearn.base import clone
 
         total = max(int(job.params["n_estimators"]), 1)
-
-        def progress(done):
-            if job.cancel.is_set():
-                raise RefitCancelled
-            self._on_ui(lambda: setattr(self, "refit_progress", min(done / total, 1.0)))
-
-        try:
-            model = clone(self._model).set_params(**job.params)
-            model.fit(self._X, self._y, progress=progress)
-        except RefitCancelled:
-            self._finish(job, "cancelled")
-            return
-        except Exception as exc:  # shown in the tuning view, never lost
-            log.exception("refit failed")
-            self._finish(job, "failed", f"refit failed: {type(exc).__name__}: {exc}")
-            return
-        if job.cancel.is_set():
-            self._finish(job, "cancelled")
-            return
-        self._on_ui(lambda: self._install(job, model))
+        model = clone(self._model).set_params(**job.params)
+        model.fit(self._X, self._y, progress=lambda done: job.report(done, total))
+        return model
 
     def _install(self, job, model):
         with self._lock:
-            if job.cancel.is_set():
-                self._finish(job, "cancelled")
-                return
             self._model = model
             self._cache.clear()
         self.generation += 1
         self._update_settings()
-        self._set_status("idle", "refit done", 1.0)
-        with self._lock:
-            # last, so that wait_for_refit returns only once every view has redrawn
-            self.refit_log.append((job.params, "done"))
-            job.outcome = "done"
 
-    def _finish(self, job, outcome, message=None):
-        with self._lock:
-            if job.outcome in ("done", "cancelled", "failed"):
-                return
-            job.outcome = outcome
-            self.refit_log.append((job.params, outcome))
-            latest = job is self._job
-        if latest:
-            self._on_ui(lambda: self._set_status(outcome, message or f"refit {outcome}"))
+    def _refit_published(self, job, latest):
+        if job.outcome in ENDED:
+            self.refit_log.append((job.params, job.outcome))
+        if not latest:
+            return
+        if job.outcome == "waiting":
+            self._set_status("waiting", "refit requested")
+        elif job.outcome == "running":
+            if job.progress == 0.0:
+                self._set_status("running", "refitting; the views show the previous forest "
+                                 "meanwhile", 0.0)
+            else:
+                self.refit_progress = job.progress
+        elif job.outcome == "done":
+            self._set_status("idle", "refit done", 1.0)
+        else:
+            self._set_status(job.outcome, f"refit failed: {job.message}" if job.message
+                             else f"refit {job.outcome}")
 
     def _set_status(self, status, message, progress=None):
         self.refit_status = status

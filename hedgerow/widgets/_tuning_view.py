@@ -1,19 +1,21 @@
-"""Tuning view: the ridge penalty (no refit) and the forest settings (refit, off-thread)."""
+"""Tuning view: the ridge penalty (no refit) and the forest settings (refit, off-thread).
+
+The view starts no thread: the interval width, the coverage readout and refits are jobs
+of the session's background runner; the view asks for them and subscribes to results.
+"""
 
 from __future__ import annotations
 
 import html
 import logging
 import threading
-import time
 
 import bqplot as bq
 import ipywidgets as W
 import numpy as np
 import traitlets as t
 
-from hedgerow import diagnostics as D
-from hedgerow.widgets._base import View, held
+from hedgerow.widgets._base import View, held, plain_figure
 from hedgerow.widgets._style import CSS, PROBE_COLOUR, colour_of, fmt
 
 __all__ = ["TuningView"]
@@ -78,11 +80,9 @@ class TuningView(View):
         self.coverage_cancel_button = W.Button(description="stop coverage readout",
                                                disabled=True, layout=W.Layout(width="200px"))
         self.coverage_cancel_button.on_click(self._on_coverage_cancel_clicked)
-        self._coverage_control = None
-        self._width_lock = threading.Lock()
+        # without an event loop (scripts, tests) results arrive on the runner's worker:
+        # one redraw at a time, so that a slow one never overwrites a newer readout
         self._draw_lock = threading.RLock()
-        self._width_thread = None
-        self._width_wanted = None
         self.coverage_progress = W.FloatProgress(value=0.0, min=0.0, max=1.0,
                                                  layout=W.Layout(width="200px"))
         self.coverage_html = W.HTML("<small>not run yet</small>")
@@ -90,6 +90,8 @@ class TuningView(View):
         s.observe(self._on_refit_state, names=["refit_status", "refit_progress",
                                                "refit_message"])
         s.observe(self._on_model_changed, names=["generation", "ridge_penalty"])
+        s.subscribe("interval width", self._on_width_job)
+        s.subscribe("coverage", self._on_coverage_job)
         self.children = [
             W.HTML("<b>tuning</b> <small>the ridge penalty re-solves the local lines on the "
                    "same trees; the other settings grow a new forest</small>"),
@@ -121,13 +123,8 @@ class TuningView(View):
                                    labels=["out-of-bag RMSE"])
         self.current_mark = bq.Scatter(x=np.ones(1), y=np.zeros(1), scales=sc,
                                        colors=[PROBE_COLOUR], default_size=80)
-        self.curve = bq.Figure(
-            marks=[self.curve_mark, self.current_mark], animation_duration=0,
-            axes=[bq.Axis(scale=xs, label="ridge penalty"),
-                  bq.Axis(scale=ys, orientation="vertical", label="out-of-bag RMSE",
-                          tick_format=".3g")],
-            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
-            layout=W.Layout(width="520px", height="240px"))
+        self.curve = plain_figure([self.curve_mark, self.current_mark], xs, ys,
+                                  "ridge penalty", "out-of-bag RMSE")
 
     # -- handlers ----------------------------------------------------------------------
     def _on_ridge_slid(self, change):
@@ -163,68 +160,30 @@ class TuningView(View):
         self._redraw()
 
     def _redraw(self):
-        # without an event loop (scripts, tests) the width thread redraws itself: one
-        # redraw at a time, so a slow one never overwrites a newer readout
         with self._draw_lock, self._shown_errors("drawing the tuning view"):
             s = self._session
-            key = (s.generation, s.ridge_penalty)
-            summary = s.peek(("oob",))  # the full summary, once the width thread has it
-            pending = summary is None
-            if pending:
-                # RMSE now; the interval width (little-bags errors of every training row,
-                # the slow part) follows from a background thread
-                summary = s._cached(("oob quick",), lambda: D.oob_summary(
-                    s.penalised_model(), interval_width=False))
-                self._start_width(key)
+            # the RMSE now; the interval width (little-bags errors of every training row,
+            # the slow part) arrives from the session's background runner
+            summary = s.quick_oob_summary()
+            pending = not np.isfinite(summary["mean_width"]) and \
+                s.request_oob_summary() is not None
             self._draw(summary, s.ridge_curve(CURVE_PENALTIES), s.verdict_report(),
                        width_pending=pending)
 
-    def _start_width(self, key):
-        with self._width_lock:
-            self._width_wanted = key
-            if self._width_thread is not None and self._width_thread.is_alive():
-                return  # the running one starts the newest request when it ends
-            thread = threading.Thread(target=self._width_worker, daemon=True,
-                                      name="hedgerow-oob-width")
-            thread.start()
-            # published once started: wait_for_width reads it without the lock and takes
-            # a thread that is not alive for one that has finished
-            self._width_thread = thread
-
-    def _width_worker(self):
+    def _on_width_job(self, job):
         s = self._session
-        while True:
-            with self._width_lock:
-                key, self._width_wanted = self._width_wanted, None
-                if key is None:
-                    return
-            if key != (s.generation, s.ridge_penalty):
-                continue  # the slider moved on before we started
-            try:
-                s.oob_summary()  # fills the session cache: the full summary at this key
-            except Exception as exc:  # shown in the view, never lost
-                log.exception("out-of-bag interval width failed")
-                s._on_ui(lambda exc=exc: setattr(
-                    self, "error", f"computing the interval width: {type(exc).__name__}: "
-                                   f"{exc}"))
-                continue
-            s._on_ui(lambda key=key: self._width_ready(key))
-
-    def _width_ready(self, key):
-        s = self._session
-        if key == (s.generation, s.ridge_penalty):
+        if job.outcome == "failed":
+            self.error = f"computing the interval width: {job.message}"
+        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
             self._redraw()
 
     def wait_for_width(self, timeout=60.0) -> bool:
         """Block until the interval-width readout is filled (tests, scripts); True if so."""
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            thread = self._width_thread
-            if thread is None or not thread.is_alive():
-                s = self._session
-                return s.peek(("oob",)) is not None
-            thread.join(min(0.5, max(0.0, deadline - time.monotonic())))
-        return False
+        s = self._session
+        job = s.latest_job("interval width")
+        if job is not None:
+            job.join(timeout)
+        return s.peek(("oob",)) is not None
 
     def _draw(self, summary, curve, verdict, width_pending=False):
         s = self._session
@@ -263,49 +222,40 @@ class TuningView(View):
 
     def cancel_coverage(self):
         """Ask a running coverage readout to stop after its current replication."""
-        if self._coverage_control is not None:
-            self._coverage_control.cancel()
+        self._session.cancel_jobs("coverage")
 
     def start_coverage(self):
-        """Run the coverage readout of the current forest in a thread; return the thread.
+        """Ask the session for the coverage readout of the current forest; return the job.
 
         Progress arrives after every replication; :meth:`cancel_coverage` (the stop
         button) ends the run after the current one and shows the replications done.
         """
-        from hedgerow._progress import RunControl
-        from hedgerow.diagnostics import coverage_readout
-
-        model, settings = self._session.penalised_model(), self._session.describe_settings()
         self.coverage_status, self.coverage_progress.bar_style = "running", "info"
         self.coverage_progress.value, self.coverage_button.disabled = 0.0, True
         self.coverage_cancel_button.disabled = False
         self.coverage_html.value = "<small>running&hellip;</small>"
-        session = self._session
+        return self._session.request_coverage(int(self.coverage_reps))
 
-        def progressed(done, total):
-            session._on_ui(lambda: setattr(self.coverage_progress, "value", done / total))
+    def _on_coverage_job(self, job):
+        if job is not self._session.latest_job("coverage"):
+            return
+        if job.outcome == "running":
+            self.coverage_progress.value = job.progress
+        elif job.outcome == "failed":
+            self._coverage_failed(job.message)
+        elif job.result is not None:
+            self._coverage_done(*job.result)
+        elif job.outcome == "cancelled":  # stopped before its first replication
+            self.coverage_status, self.coverage_button.disabled = "cancelled", False
+            self.coverage_cancel_button.disabled = True
+            self.coverage_progress.bar_style = "warning"
+            self.coverage_html.value = "<small>stopped before it started</small>"
 
-        control = self._coverage_control = RunControl(progressed)
-
-        def run():
-            try:
-                rep = coverage_readout(model, reps=int(self.coverage_reps), progress=control)
-            except Exception as exc:  # shown in the view, never lost
-                log.exception("coverage readout failed")
-                session._on_ui(lambda exc=exc: self._coverage_failed(exc))
-                return
-            session._on_ui(lambda: self._coverage_done(rep, settings))
-
-        thread = threading.Thread(target=run, daemon=True, name="hedgerow-coverage")
-        thread.start()
-        self._coverage_thread = thread
-        return thread
-
-    def _coverage_failed(self, exc):
+    def _coverage_failed(self, message):
         self.coverage_status, self.coverage_button.disabled = "failed", False
         self.coverage_cancel_button.disabled = True
         self.coverage_progress.bar_style = "danger"
-        self.error = f"coverage readout failed: {type(exc).__name__}: {exc}"
+        self.error = f"coverage readout failed: {message}"
 
     def _coverage_done(self, rep, settings):
         self.coverage_button.disabled, self.coverage_cancel_button.disabled = False, True

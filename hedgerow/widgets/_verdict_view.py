@@ -8,7 +8,8 @@ import bqplot as bq
 import ipywidgets as W
 import numpy as np
 
-from hedgerow.widgets._base import View, held
+from hedgerow.diagnostics import EDGE_BAND
+from hedgerow.widgets._base import View, held, plain_figure
 from hedgerow.widgets._style import CSS, colour_of, fmt, swatch
 
 __all__ = ["VerdictView"]
@@ -29,13 +30,10 @@ class VerdictView(View):
         self.whisker_mark = bq.Lines(x=[[p, p] for p in PARTS], y=np.zeros((3, 2)),
                                      scales={"x": xs, "y": ys}, colors=["#222222"],
                                      stroke_width=1.5)
-        self.figure = bq.Figure(
-            marks=[self.bars_mark, self.whisker_mark], animation_duration=0,
-            axes=[bq.Axis(scale=xs, label="rows (edge: outer 10% of the data)"),
-                  bq.Axis(scale=ys, orientation="vertical", tick_format=".0%",
-                          label="held-out error removed")],
-            fig_margin={"top": 10, "bottom": 45, "left": 70, "right": 20},
-            layout=W.Layout(width="520px", height="280px"))
+        self.figure = plain_figure(
+            [self.bars_mark, self.whisker_mark], xs, ys,
+            f"rows (edge: outer {100 * EDGE_BAND:.0f}% of the data)", "held-out error removed",
+            y_format=".0%", height="280px")
         self.table_html = W.HTML()
         self.children = [W.HTML("<b>verdict</b> <small>the local linear forest against each "
                                 "method: paired held-out errors (cross-fitted unless marked "

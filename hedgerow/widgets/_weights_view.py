@@ -6,7 +6,7 @@ import bqplot as bq
 import ipywidgets as W
 import numpy as np
 
-from hedgerow.widgets._base import View, held
+from hedgerow.widgets._base import View, held, plain_figure
 from hedgerow.widgets._style import colour_of, dash_of, swatch
 
 __all__ = ["WeightsView"]
@@ -35,20 +35,14 @@ class WeightsView(View):
             self.cumulative_marks[name] = bq.Lines(x=np.ones(1), y=np.zeros(1),
                                                    scales={"x": rx, "y": ry}, colors=[c],
                                                    line_style=dash_of(name), stroke_width=2)
-        lay = W.Layout(width="49%", height="320px")
-        margin = {"top": 10, "bottom": 45, "left": 65, "right": 15}
-        self.distance_figure = bq.Figure(
-            marks=list(self.weight_marks.values()), animation_duration=0, fig_margin=margin,
-            axes=[bq.Axis(scale=dx, label="distance to the probe (standard deviations)"),
-                  bq.Axis(scale=dy, orientation="vertical", label="weight", tick_format=".2g")],
-            layout=lay)
-        self.rank_figure = bq.Figure(
-            marks=list(self.cumulative_marks.values()), animation_duration=0,
-            fig_margin=margin,
-            axes=[bq.Axis(scale=rx, label="rank (1 = heaviest row)"),
-                  bq.Axis(scale=ry, orientation="vertical", label="cumulative weight",
-                          tick_format=".0%")],
-            layout=lay)
+        side = {"width": "49%", "height": "320px",
+                "margin": {"top": 10, "bottom": 45, "left": 65, "right": 15}}
+        self.distance_figure = plain_figure(
+            self.weight_marks.values(), dx, dy, "distance to the probe (standard deviations)",
+            "weight", y_format=".2g", **side)
+        self.rank_figure = plain_figure(
+            self.cumulative_marks.values(), rx, ry, "rank (1 = heaviest row)",
+            "cumulative weight", y_format=".0%", **side)
         legend = " &nbsp; ".join(
             swatch(n) + (" <small>(both forests)</small>" if n == "local linear forest" else "")
             for n in self._methods)

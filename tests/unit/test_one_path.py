@@ -186,3 +186,66 @@ def test_no_module_outside_estimators_calls_a_private_estimator_method():
                                      and target.value.id == "self"):
                         found.append(f"{rel}:{node.lineno} sets .{target.attr}")
     assert found == []
+
+
+def _named_fits(seed):
+    X, y = make_friedman1(n_samples=220, n_features=5, noise=1.0, random_state=50 + seed)
+    Xf = pd.DataFrame(X, columns=[f"col_{j}" for j in range(5)])
+    from hedgerow.estimators import NadarayaWatsonRegressor
+
+    llf = LocalLinearForestRegressor(n_estimators=60, random_state=seed,
+                                     correction_features=[0, 3]).fit(Xf, y)
+    nw = NadarayaWatsonRegressor(bandwidth=0.3).fit(Xf, y)
+    return Xf, llf, nw
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_probe_point_is_checked_once_and_solved_once(seed, monkeypatch):
+    import warnings
+
+    import hedgerow._validation as V
+    import hedgerow.estimators._local_linear_forest as L
+
+    Xf, llf, nw = _named_fits(seed)
+    x = Xf.iloc[7].to_numpy()
+    expected = {"fit": llf.local_fit(Xf.iloc[[7]]),
+                "std": llf.predict(Xf.iloc[[7]], return_std=True)[1][0],
+                "slope_se": llf.slope_std(Xf.iloc[[7]])[0],
+                "nw": nw.predict(Xf.iloc[[7]], return_std=True)}
+    general, solves = [], []
+    real_validate, real_solve = V._validate, L.solve_local
+    monkeypatch.setattr(V, "_validate", lambda *a, **k: general.append(1) or
+                        real_validate(*a, **k))
+    monkeypatch.setattr(L, "solve_local", lambda *a, **k: solves.append(1) or
+                        real_solve(*a, **k))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no feature-name warning for the plain point
+        report = D.probe(llf, x, compare=[nw])
+    assert general == []  # the point was never converted or checked the general way
+    assert len(solves) == 1  # one local solve gives the forest's whole readout
+    m = report.method("local linear forest")
+    assert m.prediction == expected["fit"].intercept[0]
+    np.testing.assert_array_equal(m.slopes, expected["fit"].slopes[0])
+    np.testing.assert_array_equal(m.slope_se, expected["slope_se"])
+    assert (m.upper - m.lower) / 2 == pytest.approx(1.959963984540054 * expected["std"],
+                                                    rel=1e-12)
+    k = report.method("Nadaraya-Watson")
+    assert k.prediction == expected["nw"][0][0]
+
+
+def test_checked_rows_are_refused_by_other_columns_and_bad_values():
+    from hedgerow._validation import checked_rows, fitted_columns
+
+    Xf, llf, _ = _named_fits(0)
+    q = checked_rows(Xf.to_numpy()[:3], llf)
+    assert q.columns == fitted_columns(llf) == (5, tuple(Xf.columns))
+    unnamed = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(
+        Xf.to_numpy(), llf.y_train_)
+    # rows checked for named columns are an ordinary array to a model without names
+    np.testing.assert_array_equal(unnamed.predict(q), unnamed.predict(np.asarray(q)))
+    with pytest.warns(UserWarning, match="feature names"):
+        llf.predict(checked_rows(Xf.to_numpy()[:3], unnamed))  # checked for other columns
+    with pytest.raises(ValueError, match="'x' parameter must have 5 values per row"):
+        checked_rows(np.zeros((2, 4)), llf, "x")
+    with pytest.raises(ValueError, match="'x' parameter must be finite"):
+        checked_rows([[0, 1, 2, 3, np.nan]], llf, "x")

@@ -1,7 +1,6 @@
 """Views driven through their traits and handlers, no browser: marks hold what the
 diagnostics functions give."""
 
-import threading
 
 import numpy as np
 import pytest
@@ -236,7 +235,7 @@ def test_refit_request_cancels_the_running_one(data):
     assert first.outcome == "running"
     second = s.request_refit(n_estimators=100, subsample_rate=0.3)
     assert s.wait_for_refit(60) == "done"
-    first.thread.join(30)
+    first.join(30)
     assert first.outcome == "cancelled" and second.outcome == "done"
     assert s.generation == gen + 1
     assert s.settings["subsample_rate"] == 0.3 and s.settings["n_estimators"] == 100
@@ -248,27 +247,15 @@ def test_refit_request_cancels_the_running_one(data):
         .method("local linear forest").prediction)
 
 
-def test_waiting_for_a_refit_whose_thread_is_not_started_yet(data):
-    # _start names the refit thread, reports "running" to the UI, then starts it; a
-    # wait in between once tried to join the unstarted thread (RuntimeError, seen in CI).
-    import time
-
+def test_waiting_for_a_refit_that_has_not_started_yet(data):
+    # a wait while the refit was still pending once joined a thread that was named but
+    # not started (RuntimeError, seen in CI); the session's jobs end on an event instead
     X, y = data
-    s = ExploreSession(X, y, n_estimators=50, compare=False, refit_delay=0.0)
-    slow_ui = s._on_ui
-
-    def delayed(fn):
-        if threading.current_thread().name != "MainThread":
-            time.sleep(0.3)  # the gap between naming and starting the thread
-        slow_ui(fn)
-
-    s._on_ui = delayed
-    s.request_refit(min_samples_leaf=6)
-    deadline = time.monotonic() + 10
-    while s._job.thread is None and time.monotonic() < deadline:
-        time.sleep(0.005)
-    assert s._job.thread is not None and s._job.thread.ident is None  # inside the gap
+    s = ExploreSession(X, y, n_estimators=50, compare=False, refit_delay=0.3)
+    job = s.request_refit(min_samples_leaf=6)
+    assert job.outcome == "waiting"
     assert s.wait_for_refit(60) == "done"
+    assert s.model.get_params()["min_samples_leaf"] == 6 and s.generation == 1
 
 
 def test_quick_requests_are_debounced_and_failures_shown(data):
