@@ -35,12 +35,13 @@ class CoverageReport(ReportMixin):
     coverage, lower, upper (Clopper-Pearson 95% interval of the coverage), mean_width,
     interval (the interval method, ``predict_interval(method=...)``), rms_bias (root mean
     square over the evaluation rows of the interval centre's mean over replications minus
-    the truth, less the noise of that mean, sd^2 / R), mean_sd (mean little-bags standard error), sd_across (mean over rows of
-    the centre's standard deviation across replications), coverage_bias_removed (coverage
-    of the same intervals shifted by each row's bias, estimated from the other
-    replications; needs >= 2 replications) and flag ("" or words such as "under-covers:
-    off centre at the edges"). A coverage whose binomial interval lies below the nominal
-    level is flagged "off centre" when removing the bias brings the coverage to the
+    the truth, less the noise of that mean, sd^2 / R), mean_sd (mean little-bags standard
+    error), sd_across (mean over rows of the centre's standard deviation across
+    replications), coverage_bias_removed (coverage of the same intervals shifted by each
+    row's bias, estimated from the other replications; needs >= 2 replications) and flag
+    ("" or words such as "under-covers: off centre at the edges"). A coverage whose
+    binomial interval lies below the nominal level is flagged "off centre" when removing
+    the bias brings the coverage to the
     nominal level (its binomial interval reaches it), else "too narrow".
 
     ``mode`` is "known truth", "surrogate truth (fitted model)" or "surrogate truth
