@@ -170,3 +170,35 @@ def test_coverage_seed_sequence_is_the_same_as_its_int(data):
     c = coverage_readout(m, random_state=6, **kw).frame
     assert a.equals(b)
     assert not a["mean_width"].equals(c["mean_width"])
+
+
+def test_tuning_surface_carries_a_coverage_flag_per_cell(data):
+    X, y = data
+    kw = dict(n_estimators=40, progress=False, random_state=3)
+    ts = tuning_surface(X, y, [0.5], [0.0, 10.0], coverage_reps=2, **kw)
+    assert {"coverage", "coverage_flag"} <= set(ts.frame.columns)
+    # each cell's numbers are those of a coverage readout of that cell's forest
+    from hedgerow.diagnostics import at_ridge_penalty
+
+    m = LocalLinearForestRegressor(subsample_rate=0.5, n_estimators=40, random_state=3)
+    m.fit(X, y)
+    view = at_ridge_penalty(m, 10.0)
+    view.ridge_penalty = 10.0
+    rep = coverage_readout(view, reps=2, progress=False, random_state=3)
+    cell = ts.frame[ts.frame.ridge_penalty == 10.0].iloc[0]
+    assert cell["coverage"] == rep.coverage("local linear forest")
+    flags = [f for f in rep.frame[(rep.frame.method == "local linear forest")
+                                  & (rep.frame.interval == "bias_corrected")]["flag"] if f]
+    assert cell["coverage_flag"] == "; ".join(flags)
+    best = ts.recommended()
+    ok = ts.frame[ts.frame.coverage_flag == ""]
+    assert (best is None) == ok.empty
+    if best is not None:
+        assert best["oob_rmse"] == ok["oob_rmse"].min()
+    # without coverage the surface has no flag and says how to get one
+    plain = tuning_surface(X, y, [0.5], [0.0], **kw)
+    assert "coverage_flag" not in plain.frame
+    with pytest.raises(ValueError, match="coverage_reps"):
+        plain.recommended()
+    with pytest.raises(ValueError, match="The 'coverage_reps' parameter must be 0"):
+        tuning_surface(X, y, [0.5], [0.0], coverage_reps=1, **kw)
