@@ -11,7 +11,6 @@ fixed X, 150 evaluation rows; the binomial interval of a coverage over 1500 (row
 replication) pairs is about +-0.011, wider in truth because rows share replications.
 """
 
-import numpy as np
 import pytest
 
 from hedgerow import LocalLinearForestRegressor
