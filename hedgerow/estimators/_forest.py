@@ -411,10 +411,15 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         if is_dask_collection(X):
             check_level(level)
             self._check_lazy(True)
-            return lazy_predict(self, X, "predict_interval", ("lower", "upper"), level=level,
-                                method=method, curvature_bound=curvature_bound)
+            # (lazy_predict's own positional argument is called method)
+            return lazy_predict(self, X, "_interval_block", ("lower", "upper"), level=level,
+                                interval=method, curvature_bound=curvature_bound)
         check_level(level)
         return self.interval_parts(X, method, curvature_bound=curvature_bound).interval(level)
+
+    def _interval_block(self, X, level, interval, curvature_bound):
+        """Return ``predict_interval(X, level, interval, ...)``: one lazy block's work."""
+        return self.predict_interval(X, level, interval, curvature_bound=curvature_bound)
 
     def interval_parts(self, X, method=DEFAULT_INTERVAL, *, curvature_bound=None):
         """Return the ``IntervalParts`` (centre, little-bags std, bias bound) at X."""

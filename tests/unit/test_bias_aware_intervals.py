@@ -202,3 +202,14 @@ def test_readout_flags_say_off_centre_or_too_narrow():
     f = _summarise(fine, list(range(R)), {"f": None}, target, edge, 0.95)
     assert (f["flag"] == "").all()
     assert f["coverage_bias_removed"].between(0.93, 0.97).all()
+
+
+def test_lazy_intervals_equal_eager_ones_for_every_method(fitted):
+    da = pytest.importorskip("dask.array")
+    llf, hf, Q = fitted
+    for model in (llf, hf):
+        for method in ("bias_corrected", "bias_bound", "clt"):
+            lo, hi = model.predict_interval(da.from_array(Q, chunks=25), method=method)
+            want_lo, want_hi = model.predict_interval(Q, method=method)
+            np.testing.assert_allclose(lo.compute(), want_lo, rtol=1e-10, atol=1e-12)
+            np.testing.assert_allclose(hi.compute(), want_hi, rtol=1e-10, atol=1e-12)
