@@ -60,9 +60,9 @@ DEFAULT_INTERVAL = "bias_corrected"
 _MAX_SQUARED = 8
 
 #: Ridge penalty of the bias correction's local quadratic. Robust bias correction wants
-#: the bias estimate (nearly) unpenalised; a penalty chosen by out-of-bag error shrank the
-#: linear and square terms alike and left first-order bias (0.3 on the "gentle bend"
-#: design: coverage 0.90 against 0.95 at 1e-3). Only 1e-3 was tried besides that choice.
+#: the bias estimate (nearly) unpenalised; a penalty chosen by out-of-bag error (0.3 on
+#: the "gentle bend" design) shrank the linear and square terms alike and left bias there
+#: (coverage 0.90, against 0.95 at 1e-3). Only 1e-3 was tried besides that choice.
 BIAS_CORRECTION_PENALTY = 1e-3
 
 # Queries per block when the bias bound needs the sparse forest weights (memory bound).
@@ -74,7 +74,8 @@ class IntervalParts:
     """What an interval is made of at each query: centre, standard error, bias bound.
 
     The interval is ``centre -/+ cv(bias_bound / std) * std`` (``cv`` the folded normal
-    quantile); for ``method="clt"`` the bias bound is 0 and ``cv`` the normal quantile.
+    quantile); for ``method="clt"`` and ``"bias_corrected"`` the bias bound is 0 and
+    ``cv`` the normal quantile.
     ``curvature_bound`` is the constant M the bias bound used.
     """
 
