@@ -29,6 +29,8 @@ from sklearn.utils import check_random_state
 
 __all__ = [
     "NUISANCE_SENSORS",
+    "CoverageDesign",
+    "coverage_designs",
     "bump_truth",
     "load_bump_demo",
     "load_orchard_demo",
@@ -296,3 +298,103 @@ def make_softplus_design(
     mean = softplus_truth(X)
     y = mean + rng.normal(0.0, np.sqrt(noise_var), size=X.shape[0])
     return X, y, mean
+
+
+# -- a family of smooth designs for the interval checks ----------------------------------
+def _design_truth(kind: str, X: np.ndarray) -> np.ndarray:
+    X = np.asarray(X, dtype=np.float64)
+    x1, x2 = X[:, 0], X[:, 1]
+    if kind == "gentle bend":
+        return np.sin(2.0 * x1) + 0.5 * x2
+    if kind == "strong curvature":
+        return 2.0 * np.sin(4.0 * x1) + (x2 - 0.5) ** 2 * 3.0
+    if kind == "wide, two curved columns":
+        return np.logaddexp(0.0, 5.0 * x1) + 3.0 * (x2 - 0.5) ** 2
+    if kind == "correlated normal columns":
+        return x1 + 0.4 * x1**2 + np.sin(x2)
+    if kind == "skewed columns":
+        return 3.0 * np.exp(-2.0 * x1) + 2.0 * x2**2
+    if kind == "steep rise at an edge":
+        return 4.0 / (1.0 + np.exp(-25.0 * (x1 - 0.9))) + x2
+    if kind == "large n, eight columns":
+        return np.sin(3.0 * x1) + np.cos(2.0 * x2) + 0.5 * X[:, 2]
+    if kind == "interaction, low noise":
+        return 2.0 * np.sin(np.pi * x1 * x2) + X[:, 2]
+    if kind == "linear":
+        return 2.0 * x1 - x2 + 0.5 * X[:, 2]
+    raise ValueError(f"Unknown design kind {kind!r}.")
+
+
+#: (kind, n, d, noise sd, X distribution) of every design of the family.
+_DESIGNS = (
+    ("gentle bend", 500, 2, 0.5, "uniform"),
+    ("strong curvature", 1000, 5, 1.0, "uniform"),
+    ("wide, two curved columns", 2000, 20, 1.0, "uniform"),
+    ("correlated normal columns", 1000, 6, 1.0, "correlated normal"),
+    ("skewed columns", 1500, 4, 0.5, "beta(2, 5)"),
+    ("steep rise at an edge", 1000, 3, 0.5, "uniform"),
+    ("large n, eight columns", 5000, 8, 1.0, "uniform"),
+    ("interaction, low noise", 800, 3, 0.3, "uniform"),
+    ("linear", 1000, 4, 1.0, "uniform"),
+)
+
+
+class CoverageDesign:
+    """One smooth simulation design: ``sample(random_state)`` -> ``(X, y, mean)``.
+
+    ``truth(X)`` is the noise-free mean (a function of the first three columns at most;
+    the other columns are noise). Attributes: ``name``, ``n_samples``, ``n_features``,
+    ``noise_sd``, ``columns`` (how X is drawn).
+    """
+
+    def __init__(self, name, n_samples, n_features, noise_sd, columns):
+        self.name = name
+        self.n_samples = int(n_samples)
+        self.n_features = int(n_features)
+        self.noise_sd = float(noise_sd)
+        self.columns = columns
+
+    def __repr__(self):
+        return (f"CoverageDesign({self.name!r}, n={self.n_samples}, d={self.n_features}, "
+                f"noise sd={self.noise_sd}, X {self.columns})")
+
+    def truth(self, X) -> np.ndarray:
+        """Return the noise-free mean at the rows of X."""
+        return _design_truth(self.name, X)
+
+    def draw_X(self, rng, n=None) -> np.ndarray:
+        n = self.n_samples if n is None else int(n)
+        d = self.n_features
+        if self.columns == "uniform":
+            return rng.uniform(0.0, 1.0, size=(n, d))
+        if self.columns == "beta(2, 5)":
+            return rng.beta(2.0, 5.0, size=(n, d))
+        # equicorrelated normal columns (rho = 0.6), unit variance
+        common = rng.normal(size=(n, 1))
+        return np.sqrt(0.6) * common + np.sqrt(0.4) * rng.normal(size=(n, d))
+
+    def sample(self, random_state=None, n_samples=None):
+        """Return ``(X, y, mean)`` drawn from ``random_state``."""
+        rng = check_random_state(random_state)
+        X = self.draw_X(rng, n_samples)
+        mean = self.truth(X)
+        return X, mean + rng.normal(0.0, self.noise_sd, size=X.shape[0]), mean
+
+
+def coverage_designs(names=None) -> list[CoverageDesign]:
+    """Return the seeded family of smooth designs for the interval checks.
+
+    Nine designs vary the curvature, the number of columns (2 to 20), the rows (500 to
+    5000), the noise, correlated and non-uniform columns, include one with a steep rise
+    at an edge and one linear truth (where a bias correction should cost little width).
+    Invented for the checks; every truth is smooth. ``names``: a subset by name.
+    """
+    out = [CoverageDesign(*spec) for spec in _DESIGNS]
+    if names is None:
+        return out
+    known = {d.name: d for d in out}
+    missing = [n for n in names if n not in known]
+    if missing:
+        raise ValueError(f"The 'names' parameter must list designs of {list(known)}. "
+                         f"Got unknown {missing!r} instead.")
+    return [known[n] for n in names]

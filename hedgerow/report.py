@@ -877,16 +877,17 @@ def _oob_html(r: Report) -> str:
 
 def _coverage_html(r: Report) -> str:
     c = r.coverage
-    rows = [[_method_cell(row["method"]), _e(row["part"]), _num(row["covered"]),
-             _num(row["n"]), _num(row["coverage"]),
-             f"{_num(row['lower'])} to {_num(row['upper'])}", _num(row["mean_width"])]
+    rows = [[_method_cell(row["method"]), _e(str(row.get("interval", ""))), _e(row["part"]),
+             _num(row["covered"]), _num(row["n"]), _num(row["coverage"]),
+             f"{_num(row['lower'])} to {_num(row['upper'])}", _num(row["mean_width"]),
+             _e(str(row.get("flag", "")))]
             for _, row in c.frame.iterrows()]
     note = (f"{c.mode}; {c.reps_done} of {c.reps} replications; nominal "
             f"{100 * c.level:.0f}%.")
     return (f"<p>Share of simulated intervals that cover the mean ({_e(note)}) with a "
             f"Clopper-Pearson 95% interval of that share.</p>"
-            + _table(["method", "part", "covered", "intervals", "coverage", "95% interval",
-                      "mean width"], rows, "hr-coverage"))
+            + _table(["method", "interval", "part", "covered", "intervals", "coverage",
+                      "95% interval", "mean width", "flag"], rows, "hr-coverage"))
 
 
 def _cautions_html(r: Report) -> str:

@@ -20,7 +20,10 @@ class TuningSurface(ReportMixin):
     """Out-of-bag RMSE and mean interval width for every (subsample rate, penalty) cell.
 
     ``frame`` columns: subsample_rate, ridge_penalty, oob_rmse, mean_width (of the
-    out-of-bag ``level`` intervals), n_rows (rows with an out-of-bag prediction).
+    out-of-bag ``level`` intervals), n_rows (rows with an out-of-bag prediction); with
+    ``coverage_reps > 0`` also coverage (the local linear forest's default interval,
+    overall, from a ``coverage_readout`` of that cell) and coverage_flag (its flags for
+    that interval joined by "; ", "" when none).
     ``complete`` is False when the run was interrupted: ``frame`` then holds the cells
     finished before the interruption. ``refit_seconds`` / ``total_seconds``: time spent
     growing forests / in all.
@@ -39,6 +42,18 @@ class TuningSurface(ReportMixin):
     def best(self) -> pd.Series:
         """Return the cell with the lowest out-of-bag RMSE."""
         return self.frame.loc[self.frame["oob_rmse"].idxmin()]
+
+    def recommended(self) -> pd.Series | None:
+        """Return the lowest out-of-bag RMSE among cells whose coverage is not flagged.
+
+        Needs a surface computed with ``coverage_reps > 0``; None when every cell is
+        flagged (then no setting gave intervals that cover: say so, do not pick one).
+        """
+        if "coverage_flag" not in self.frame:
+            raise ValueError("The surface has no coverage flags: compute it with "
+                             "tuning_surface(..., coverage_reps=R) with R >= 2.")
+        ok = self.frame[self.frame["coverage_flag"] == ""]
+        return None if ok.empty else ok.loc[ok["oob_rmse"].idxmin()]
 
     def grid(self, value: str = "oob_rmse") -> pd.DataFrame:
         """Return ``value`` as a subsample-rate × ridge-penalty table."""
@@ -90,8 +105,28 @@ def _rate_task(task, X, y):
     return [_cell(model, rate, lam, level) for lam in lams], refit
 
 
+def _coverage_cell(model, lam, reps, truth, level, random_state, client) -> dict:
+    """Return the coverage and flags of one cell (the model's forest at penalty lam)."""
+    from hedgerow.diagnostics._coverage import coverage_readout
+    from hedgerow.diagnostics._interactive import at_ridge_penalty
+    from hedgerow.estimators._forest import DEFAULT_INTERVAL
+
+    view = at_ridge_penalty(model, lam)
+    view.ridge_penalty = float(lam)  # the refits use this penalty (and split with it)
+    rep = coverage_readout(view, truth=truth, reps=reps, level=level, progress=False,
+                           random_state=random_state, client=client)
+    f = rep.frame
+    f = f[(f["method"] == "local linear forest") & (f["interval"] == DEFAULT_INTERVAL)]
+    flags = [x for x in f["flag"] if x]
+    if rep.reps_done < rep.reps:
+        raise KeyboardInterrupt
+    return {"coverage": float(f[f["part"] == "all"]["coverage"].iloc[0]),
+            "coverage_flag": "; ".join(flags)}
+
+
 def tuning_surface(X, y, subsample_rates, ridge_penalties, *, level=0.95, progress=True,
-                   random_state=0, n_jobs=None, client=None, **forest_params) -> TuningSurface:
+                   random_state=0, n_jobs=None, client=None, coverage_reps=0,
+                   coverage_truth=None, **forest_params) -> TuningSurface:
     """Return the ``TuningSurface`` of a local linear forest over two axes.
 
     Each subsample rate grows one forest (``LocalLinearForestRegressor(**forest_params)``
@@ -103,7 +138,17 @@ def tuning_surface(X, y, subsample_rates, ridge_penalties, *, level=0.95, progre
     its workers (the data are sent once; the costliest rates, the largest, go first) and
     the surface is the same as without it; an interruption cancels the tasks not finished.
     ``refit_seconds`` then adds up the workers' fitting time.
+
+    ``coverage_reps`` (default 0: off): replications of a ``coverage_readout`` per cell
+    (``coverage_truth`` as its ``truth``), which adds the columns coverage and
+    coverage_flag; the tuning rule is then ``TuningSurface.recommended()``, the lowest
+    out-of-bag error among cells whose coverage is not flagged. It costs
+    2 * coverage_reps forest fits per cell.
     """
+    if (isinstance(coverage_reps, bool) or not isinstance(coverage_reps, int | np.integer)
+            or coverage_reps < 0 or coverage_reps == 1):
+        raise ValueError(f"The 'coverage_reps' parameter must be 0 (off) or an integer >= 2. "
+                         f"Got {coverage_reps!r} instead.")
     from hedgerow._distributed import check_client
 
     rates = _check_grid("subsample_rates", subsample_rates, 0.0, 1.0, closed_low=False)
@@ -132,8 +177,29 @@ def tuning_surface(X, y, subsample_rates, ridge_penalties, *, level=0.95, progre
         bar.close()
     # cells in grid order whatever order the rates finished in
     rows = [row for i in sorted(by_rate) for row in by_rate[i]]
-    frame = pd.DataFrame(rows, columns=["subsample_rate", "ridge_penalty", "oob_rmse",
-                                        "mean_width", "n_rows"])
+    columns = ["subsample_rate", "ridge_penalty", "oob_rmse", "mean_width", "n_rows"]
+    if coverage_reps and complete:
+        try:
+            cbar = progress_bar(len(rows), "coverage per cell", progress)
+            models = {}  # one forest per rate, as for the surface itself
+            for row in rows:
+                rate = row["subsample_rate"]
+                if rate not in models:
+                    models[rate], seconds = _fit_rate(X, y, rate, random_state, n_jobs,
+                                                      forest_params)
+                    refit[0] += seconds
+                model = models[rate]
+                row.update(_coverage_cell(model, row["ridge_penalty"], int(coverage_reps),
+                                          coverage_truth, level, random_state, client))
+                cbar.update(1)
+        except KeyboardInterrupt:
+            complete = False
+            rows = [r for r in rows if "coverage_flag" in r]
+        finally:
+            cbar.close()
+    if coverage_reps:
+        columns += ["coverage", "coverage_flag"]
+    frame = pd.DataFrame(rows, columns=columns)
     return TuningSurface(frame=frame, complete=complete, refit_seconds=refit[0],
                          total_seconds=time.perf_counter() - t0, level=level)
 

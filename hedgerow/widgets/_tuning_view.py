@@ -265,12 +265,14 @@ class TuningView(View):
             self.coverage_status, self.coverage_progress.bar_style = "done", "success"
         self.coverage_progress.value = rep.reps_done / rep.reps
         rows = "".join(
-            f"<tr><td>{html.escape(r['method'])}</td><td>{html.escape(r['part'])}</td>"
+            f"<tr><td>{html.escape(r['method'])}</td>"
+            f"<td>{html.escape(str(r.get('interval', '')))}</td><td>{html.escape(r['part'])}</td>"
             f"<td class='hedgerow-value'>{fmt(r['coverage'], 3)}</td>"
-            f"<td>{fmt(r['lower'], 3)} to {fmt(r['upper'], 3)}</td><td>{r['n']}</td></tr>"
+            f"<td>{fmt(r['lower'], 3)} to {fmt(r['upper'], 3)}</td><td>{r['n']}</td>"
+            f"<td class='hedgerow-flag'>{html.escape(str(r.get('flag', '')))}</td></tr>"
             for _, r in rep.frame.iterrows())
         self.coverage_html.value = (
             f"<small>{html.escape(rep.mode)}, {rep.reps_done} of {rep.reps} replications, "
             f"nominal {100 * rep.level:.0f}%; computed for: {html.escape(settings)}</small>"
-            f"<table><tr><th>method</th><th>rows</th><th>coverage</th>"
-            f"<th>95% binomial interval</th><th>n</th></tr>{rows}</table>")
+            f"<table><tr><th>method</th><th>interval</th><th>rows</th><th>coverage</th>"
+            f"<th>95% binomial interval</th><th>n</th><th>flag</th></tr>{rows}</table>")

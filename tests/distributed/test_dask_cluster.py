@@ -351,7 +351,8 @@ def test_coverage_interrupt_returns_partial(client, data, monkeypatch):
     monkeypatch.setattr(coverage, "progress_bar", _Interrupting)
     cr = coverage_readout(model, reps=4, n_eval=20, client=client)
     assert cr.reps_done == 1
-    assert cr.frame.set_index(["method", "part"]).loc[("honest forest", "all"), "n"] == 20
+    f = cr.frame.set_index(["method", "interval", "part"])
+    assert f.loc[("honest forest", "clt", "all"), "n"] == 20
     assert _wait_until_no_hedgerow_tasks(client) == []
 
 

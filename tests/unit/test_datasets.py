@@ -125,3 +125,27 @@ def test_correction_does_not_help_on_the_step_scenario(seed):
     v = D.verdict(X, y, forest=llf, smoothers=None, baseline=False)
     assert v.comparisons.loc["local linear forest", "gain_all"] < 0.02
     assert not v.conclusion.startswith("The local linear correction lowers")
+
+
+def test_coverage_design_family_spans_the_stated_ranges():
+    from hedgerow.datasets import coverage_designs
+
+    family = coverage_designs()
+    assert len(family) >= 8
+    assert min(d.n_features for d in family) == 2 and max(d.n_features for d in family) == 20
+    assert min(d.n_samples for d in family) == 500 and max(d.n_samples for d in family) == 5000
+    assert len({d.noise_sd for d in family}) >= 3
+    assert {"uniform", "beta(2, 5)", "correlated normal"} <= {d.columns for d in family}
+    for design in family:
+        X, y, mean = design.sample(random_state=3, n_samples=300)
+        X2, y2, _ = design.sample(random_state=3, n_samples=300)
+        np.testing.assert_array_equal(y, y2)  # seeded
+        np.testing.assert_array_equal(mean, design.truth(X))
+        assert X.shape == (300, design.n_features)
+        # the noise has the stated sd (common practice: sample sd within a few s.e.)
+        assert abs(np.std(y - mean) / design.noise_sd - 1) < 0.15
+    corr = [d for d in family if d.columns == "correlated normal"][0]
+    X, _, _ = corr.sample(random_state=0, n_samples=4000)
+    assert abs(np.corrcoef(X[:, 0], X[:, 1])[0, 1] - 0.6) < 0.05
+    with pytest.raises(ValueError, match="The 'names' parameter must list designs"):
+        coverage_designs(["no such design"])

@@ -478,7 +478,7 @@ def test_return_std_is_positive_and_interval_brackets_prediction(bagged, friedma
     mean, std = bagged.predict(friedman_query, return_std=True)
     np.testing.assert_array_equal(mean, bagged.predict(friedman_query))
     assert np.all(np.isfinite(std)) and np.all(std > 0)
-    lo, hi = bagged.predict_interval(friedman_query, level=0.9)
+    lo, hi = bagged.predict_interval(friedman_query, level=0.9, method="clt")
     assert np.all(lo < mean) and np.all(mean < hi)
     # reference: scipy.stats.norm.ppf (two-sided 90% normal interval: z = ppf(0.95))
     np.testing.assert_allclose((hi - lo) / (2 * std), norm.ppf(0.95), rtol=1e-12)

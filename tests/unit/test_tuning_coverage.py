@@ -89,13 +89,15 @@ def test_coverage_counts_are_consistent(data):
     m = LocalLinearForestRegressor(n_estimators=50, random_state=0).fit(X, y)
     cr = coverage_readout(m, reps=2, n_eval=50, progress=False)
     assert cr.mode == "surrogate truth" and cr.reps_done == 2
-    f = cr.frame.set_index(["method", "part"])
+    f = cr.frame.set_index(["method", "interval", "part"])
     for method in ("local linear forest", "honest forest"):
-        assert f.loc[(method, "all"), "n"] == 100
-        assert (f.loc[(method, "edge"), "covered"] + f.loc[(method, "interior"), "covered"]
-                == f.loc[(method, "all"), "covered"])
-        lo, hi = f.loc[(method, "all"), ["lower", "upper"]]
-        assert lo <= f.loc[(method, "all"), "coverage"] <= hi
+        for interval in ("bias_corrected", "bias_bound", "clt"):
+            key = (method, interval)
+            assert f.loc[(*key, "all"), "n"] == 100
+            assert (f.loc[(*key, "edge"), "covered"] + f.loc[(*key, "interior"), "covered"]
+                    == f.loc[(*key, "all"), "covered"])
+            lo, hi = f.loc[(*key, "all"), ["lower", "upper"]]
+            assert lo <= f.loc[(*key, "all"), "coverage"] <= hi
 
 
 def test_coverage_interrupt_returns_partial(data, monkeypatch):
@@ -115,7 +117,8 @@ def test_coverage_interrupt_returns_partial(data, monkeypatch):
     monkeypatch.setattr(HonestForestRegressor, "fit", fit)
     cr = coverage_readout(m, reps=4, n_eval=20, progress=False)
     assert cr.reps_done == 1
-    assert cr.frame.set_index(["method", "part"]).loc[("honest forest", "all"), "n"] == 20
+    f = cr.frame.set_index(["method", "interval", "part"])
+    assert f.loc[("honest forest", "clt", "all"), "n"] == 20
 
 
 @pytest.mark.slow
@@ -126,9 +129,10 @@ def test_coverage_readout_with_truth_on_softplus_design():
     X, y, _ = make_softplus_design(1000, random_state=31)
     m = LocalLinearForestRegressor(random_state=0, n_jobs=2).fit(X, y)
     cr = coverage_readout(m, truth=softplus_truth, reps=8, n_eval=150, progress=False)
-    cov = cr.coverage("local linear forest")
+    cov = cr.coverage("local linear forest", interval="clt")
     assert abs(cov - 0.932) <= 0.03, cr.frame
-    assert cr.coverage("honest forest", "edge") < cr.coverage("local linear forest", "edge")
+    assert (cr.coverage("honest forest", "edge", "clt")
+            < cr.coverage("local linear forest", "edge", "clt"))
 
 
 def test_run_control_follows_and_stops_a_long_run():
@@ -166,3 +170,35 @@ def test_coverage_seed_sequence_is_the_same_as_its_int(data):
     c = coverage_readout(m, random_state=6, **kw).frame
     assert a.equals(b)
     assert not a["mean_width"].equals(c["mean_width"])
+
+
+def test_tuning_surface_carries_a_coverage_flag_per_cell(data):
+    X, y = data
+    kw = dict(n_estimators=40, progress=False, random_state=3)
+    ts = tuning_surface(X, y, [0.5], [0.0, 10.0], coverage_reps=2, **kw)
+    assert {"coverage", "coverage_flag"} <= set(ts.frame.columns)
+    # each cell's numbers are those of a coverage readout of that cell's forest
+    from hedgerow.diagnostics import at_ridge_penalty
+
+    m = LocalLinearForestRegressor(subsample_rate=0.5, n_estimators=40, random_state=3)
+    m.fit(X, y)
+    view = at_ridge_penalty(m, 10.0)
+    view.ridge_penalty = 10.0
+    rep = coverage_readout(view, reps=2, progress=False, random_state=3)
+    cell = ts.frame[ts.frame.ridge_penalty == 10.0].iloc[0]
+    assert cell["coverage"] == rep.coverage("local linear forest")
+    flags = [f for f in rep.frame[(rep.frame.method == "local linear forest")
+                                  & (rep.frame.interval == "bias_corrected")]["flag"] if f]
+    assert cell["coverage_flag"] == "; ".join(flags)
+    best = ts.recommended()
+    ok = ts.frame[ts.frame.coverage_flag == ""]
+    assert (best is None) == ok.empty
+    if best is not None:
+        assert best["oob_rmse"] == ok["oob_rmse"].min()
+    # without coverage the surface has no flag and says how to get one
+    plain = tuning_surface(X, y, [0.5], [0.0], **kw)
+    assert "coverage_flag" not in plain.frame
+    with pytest.raises(ValueError, match="coverage_reps"):
+        plain.recommended()
+    with pytest.raises(ValueError, match="The 'coverage_reps' parameter must be 0"):
+        tuning_surface(X, y, [0.5], [0.0], coverage_reps=1, **kw)

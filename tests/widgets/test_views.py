@@ -323,6 +323,12 @@ def test_coverage_readout_reports_progress_and_matches_the_function(app):
 
     for cov in direct.frame["coverage"]:
         assert f"'hedgerow-value'>{fmt(cov, 3)}<" in shown
+    # every flag of the readout is shown in words, beside its interval method
+    import html
+
+    for flag in direct.frame["flag"]:
+        assert f"<td class='hedgerow-flag'>{html.escape(flag)}</td>" in shown
+    assert "<td>bias_corrected</td>" in shown and "<td>clt</td>" in shown
 
 
 def test_coverage_readout_stops_when_asked(app):
