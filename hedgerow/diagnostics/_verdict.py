@@ -149,10 +149,10 @@ def _source(errors, best, edge):
         return ""
     share = d[ok & edge].sum() / total
     band = (f"the edge band (the outer {100 * EDGE_BAND:.0f}% of the data in any corrected "
-            f"column, {_pc(edge[ok].mean())} of rows)")
+            f"column: {_pc(edge[ok].mean())} of rows)")
     if share > 0.5:
-        return f"; {_pc(share)} of the difference comes from {band}"
-    return f"; most of the difference comes from the interior, {_pc(share)} from {band}"
+        return f"; {band} carries {_pc(share)} of the difference"
+    return f"; most of the difference comes from the interior ({band} carries {_pc(share)})"
 
 
 def _conclusion(comparisons, errors, edge, best, level, scoring):
@@ -165,7 +165,8 @@ def _conclusion(comparisons, errors, edge, best, level, scoring):
     if not np.isfinite(g):
         return "no evidence either way", lead + "Not enough held-out predictions to compare."
     against = f"against the best alternative, the {best}"
-    where = _source(errors, best, edge)
+    # where a difference comes from means something only once there is one
+    where = _source(errors, best, edge) if (lo > 0 or hi < 0) else ""
     if g >= 0:
         interval = f"({pct} interval {_pc(lo, True)} to {_pc(hi, True)})"
         head = f"The local linear forest lowers held-out error by {_pc(g)} {interval} {against}"
@@ -181,8 +182,13 @@ def _conclusion(comparisons, errors, edge, best, level, scoring):
                           "Decision: no evidence either way; keep the simpler model.")
     parts = [f"{lead}{head}{where}.", tail]
     if r["fragile"]:
-        parts.append(f"Fragile: {int(r['rows_for_half'])} rows carry "
-                     f"{_pc(r['share_of_half'])} of the difference.")
+        k, share = int(r["rows_for_half"]), r["share_of_half"]
+        rows = "1 row carries" if k == 1 else f"{k} rows carry"
+        if share > 1:
+            parts.append(f"Fragile: {rows} more than the whole difference ({_pc(share)}; "
+                         f"the other rows pull the other way).")
+        else:
+            parts.append(f"Fragile: {rows} {_pc(share)} of the difference.")
     if decision != "warranted" and SAME_TREES in comparisons.index:
         s = comparisons.loc[SAME_TREES]
         if s["lower_all"] > 0:
@@ -324,7 +330,7 @@ def _specs(template, smoothers, baseline, others, random_state, n_jobs):
 
 def _settings(specs):
     out = {}
-    for label, template, extra in specs:
+    for label, template, _ in specs:
         if template is None:
             out[label] = "the local linear forest's settings and trees (split_rule='mean')"
         elif label == SKLEARN:
@@ -499,7 +505,7 @@ def _preview(X, y, template, fitted, specs, n_jobs):
         warnings.simplefilter("ignore", RuntimeWarning)
         llf = fitted if fitted is not None else clone(template).fit(X, y)
         preds = {LLF: llf.oob_predict(), SAME_TREES: llf.oob_local_average()}
-        for label, tmpl, extra in specs[1:]:
+        for label, tmpl, _ in specs[1:]:
             if tmpl is None:
                 preds[label] = preds[SAME_TREES]
             elif label == SKLEARN:
