@@ -197,9 +197,11 @@ class ExploreSession(t.HasTraits):
     def verdict_report(self):
         def compute():
             s = [m for m in self._smoothers if hasattr(m, "loo_predict")]
+            # fold fits kept per forest: a penalty change re-predicts, it does not refit
+            folds = self._cached(("verdict folds",), dict, per_penalty=False)
             return D.verdict(self._model.X_train_, self._model.y_train_,
                              forest=self.penalised_model(), smoothers=s, baseline=False,
-                             progress=False)
+                             progress=False, fold_cache=folds)
 
         return self._cached(("verdict",), compute)
 

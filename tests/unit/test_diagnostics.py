@@ -174,15 +174,20 @@ def test_slices_bad_input(data, llf):
 
 
 @pytest.mark.slow
-def test_verdict_on_softplus_design_says_correction_helps():
-    # Friedberg et al. (2021), eq. 1, n = 1000: a smooth signal with edge bias for a forest
+def test_verdict_on_softplus_design_separates_the_same_trees_from_a_plain_forest():
+    # Friedberg et al. (2021), eq. 1, n = 1000: a smooth signal with edge bias for a forest.
+    # On the correction's own trees the local line clearly helps, most at the edges; against
+    # a plain honest forest grown on its own the cross-fitted gain was about 1% (interval
+    # across 0 at seed 21), so the sentence must not call it warranted from the diagnostic
     X, y, _ = make_softplus_design(1000, random_state=21)
-    # cross-fitted against the plain honest forest and scikit-learn's forest
     v = verdict(X, y, smoothers=None, random_state=0, n_estimators=500, progress=False)
-    assert v.decision == "warranted", v.conclusion
-    row = v.comparisons.loc["honest forest"]
-    assert row["gain_edge"] > row["gain_interior"]
-    assert v.conclusion.startswith("The local linear forest lowers held-out error")
+    same = v.comparisons.loc["honest forest (same trees, diagnostic)"]
+    assert same["lower_all"] > 0 and same["gain_edge"] > same["gain_interior"]
+    best = v.comparisons.loc[v.best_alternative]
+    assert v.decision == ("warranted" if best["lower_all"] > 0 else
+                          "hurts" if best["upper_all"] < 0 else "no evidence either way")
+    if v.decision != "warranted":
+        assert "It beats only the local average on its own trees" in v.conclusion
 
 
 @pytest.mark.slow
