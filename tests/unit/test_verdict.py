@@ -4,7 +4,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from sklearn.base import clone
-from sklearn.ensemble import HistGradientBoostingRegressor
+from sklearn.ensemble import GradientBoostingRegressor
 
 from hedgerow import HonestForestRegressor, LocalLinearForestRegressor
 from hedgerow._progress import RunControl
@@ -167,9 +167,9 @@ def test_preview_is_labelled_and_others_join_cross_fit():
                 progress=False)
     assert p.scoring == PREVIEW and p.conclusion.startswith("Preview (selection not held out)")
     v = verdict(X, y, forest=_forest(), smoothers=None, baseline=False, progress=False,
-                others=[HistGradientBoostingRegressor(max_iter=30, random_state=0)])
-    assert "HistGradientBoostingRegressor" in v.comparisons.index
-    assert v.comparisons.loc["HistGradientBoostingRegressor", "role"] == "alternative"
+                others=[GradientBoostingRegressor(n_estimators=30, random_state=0)])
+    assert "GradientBoostingRegressor" in v.comparisons.index
+    assert v.comparisons.loc["GradientBoostingRegressor", "role"] == "alternative"
     best = v.comparisons[v.comparisons["role"] == "alternative"]["mse"].idxmin()
     assert v.best_alternative == best and f"the {best}" in v.conclusion
 
