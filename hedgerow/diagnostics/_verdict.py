@@ -128,6 +128,8 @@ class Verdict(ReportMixin):
 
     def _notes(self):
         notes = [self.conclusion, f"scored by {self.scoring}"]
+        if self.settings and SKLEARN in self.settings:
+            notes.append(f"{SKLEARN}: {self.settings[SKLEARN]}")
         if self.data_note:
             notes.append(self.data_note)
         return notes
