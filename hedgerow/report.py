@@ -781,6 +781,11 @@ def _settings_html(r: Report) -> str:
     return out
 
 
+def _sklearn_note(v) -> str:
+    s = (v.settings or {}).get("random forest (scikit-learn)")
+    return f" The scikit-learn forest: {_e(s)}." if s else ""
+
+
 def _verdict_html(r: Report) -> str:
     v = r.verdict
     lvl = f"{100 * v.level:.0f}%"
@@ -797,7 +802,7 @@ def _verdict_html(r: Report) -> str:
             f"intervals; scored by {_e(v.scoring)}. The diagnostic row is the local average "
             f"on the local linear forest's own trees (split for the correction, so a "
             f"handicapped plain forest). Edge band: rows with edge depth below "
-            f"{D.EDGE_BAND:.2f}.</p>"
+            f"{D.EDGE_BAND:.2f}.{_sklearn_note(v)}</p>"
             + _table(["against", "all rows", "edge band", "interior"], rows, "hr-verdict"))
 
 

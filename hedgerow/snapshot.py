@@ -347,7 +347,8 @@ class Snapshot:
         feature : the column to show on the probe view (name or index), or None.
         ridge_penalty : the penalty the numbers are computed at (local linear forests;
             default: the fitted one).
-        verdict : also compute the verdict sentence (a few seconds on large data).
+        verdict : also compute the verdict sentence (cross-fitted over 5 folds: several
+            forest fits).
         compare : whether a restored explorer fits the kernel smoothers for comparison.
         """
         from hedgerow import diagnostics as D
@@ -656,7 +657,7 @@ def _headline(model, x, ridge_penalty, want_verdict):
                 raise ValueError("The 'verdict' parameter needs a local linear forest. Got "
                                  f"{type(model).__name__} instead.")
             conclusion = D.verdict(model.X_train_, model.y_train_, forest=view,
-                                   smoothers=None, baseline=False,
+                                   smoothers=None, baseline=True,
                                    progress=False).conclusion
     return ({"oob_rmse": rmse, "mean_interval_width": width, "interval_level": level,
              "verdict": conclusion, "probe_prediction": pred_at}, lam)

@@ -3,7 +3,7 @@
 - ``probe``: neighbour weights, local line and every method's prediction at one point.
 - ``slices``: predictions along one column (or partial dependence).
 - ``edges``: held-out residuals by edge depth and the edge-bias sign pattern.
-- ``verdict``: paired held-out errors and a plain-language conclusion.
+- ``verdict``: cross-fitted paired errors against plain forests and a stated decision.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the

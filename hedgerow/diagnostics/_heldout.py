@@ -91,16 +91,19 @@ def take_rows(X, rows):
     return X[rows]
 
 
-def cross_fit_fold(k, X, y, fold, specs, step=None) -> dict:
+def cross_fit_fold(k, X, y, fold, specs, step=None, cache=None) -> dict:
     """Fit every method of ``specs`` on the rows outside fold ``k``; predict fold ``k``.
 
-    ``specs``: ``(label, template, extra)`` with ``extra`` one of ``None``, ``"same trees"``
-    (also return the fitted forest's local average under the label in ``template`` pairs)
-    or ``"local average of <label>"`` (reuse that method's local average instead of a fit).
-    Returns ``{"rows": held-out row indices, label: predictions, "correction_features": ...}``.
-    Each template is cloned, so every choice it makes (penalty, columns, bandwidth) is made
-    on the training rows of the fold alone. ``step()`` is called between methods (the
-    caller counts the last step once it holds the result, so a stop there loses nothing).
+    ``specs``: ``(label, template, extra)``. ``extra`` is ``None``; a dict for the local
+    linear forest (``{"penalty": λ or None}``: predict at λ, and also return its local
+    average under ``"_local_average <label>"``); or ``"local average of <label>"`` (reuse
+    that method's local average instead of a fit). Returns ``{"rows": held-out row indices,
+    label: predictions, "correction_features": ..., "ridge_penalty": ...}``. Each template is
+    cloned, so every choice it makes (penalty, columns, bandwidth) is made on the training
+    rows of the fold alone. ``step()`` is called between methods (the caller counts the last
+    step once it holds the result, so a stop there loses nothing). ``cache``: a dict keyed
+    by (fold, label, settings) holding fitted models, so a later call that changes only the
+    penalty a forest is viewed at refits nothing.
     """
     from sklearn.base import clone
 
@@ -111,16 +114,26 @@ def cross_fit_fold(k, X, y, fold, specs, step=None) -> dict:
         warnings.simplefilter("ignore", RuntimeWarning)
         warnings.filterwarnings("ignore", message="X does not have valid feature names")
         for label, template, extra in specs:
-            if isinstance(extra, str) and extra.startswith("local average of "):
+            if isinstance(extra, str):
                 out[label] = out[f"_local_average {extra[len('local average of '):]}"]
             else:
-                model = clone(template).fit(Xtr, ytr)
-                out[label] = np.asarray(model.predict(Xte), dtype=np.float64).ravel()
-                if extra is not None:
+                key = (k, label, repr(template.get_params(deep=True)))
+                model = None if cache is None else cache.get(key)
+                if model is None:
+                    model = clone(template).fit(Xtr, ytr)
+                    if cache is not None:
+                        cache[key] = model
+                if isinstance(extra, dict):
+                    lam = extra.get("penalty")
+                    pred = (model.predict(Xte) if lam is None
+                            else model.predict(Xte, ridge_penalty=lam))
                     out[f"_local_average {label}"] = np.asarray(
                         model.local_average(Xte), dtype=np.float64)
                     out["correction_features"] = np.asarray(model.correction_features_)
-                    out["ridge_penalty"] = float(model.ridge_penalty_)
+                    out["ridge_penalty"] = float(model.ridge_penalty_ if lam is None else lam)
+                else:
+                    pred = model.predict(Xte)
+                out[label] = np.asarray(pred, dtype=np.float64).ravel()
             if step is not None and label != specs[-1][0]:
                 step()
     return out

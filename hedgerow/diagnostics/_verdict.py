@@ -128,6 +128,8 @@ class Verdict(ReportMixin):
 
     def _notes(self):
         notes = [self.conclusion, f"scored by {self.scoring}"]
+        if self.settings and SKLEARN in self.settings:
+            notes.append(f"{SKLEARN}: {self.settings[SKLEARN]}")
         if self.data_note:
             notes.append(self.data_note)
         return notes
@@ -149,10 +151,10 @@ def _source(errors, best, edge):
         return ""
     share = d[ok & edge].sum() / total
     band = (f"the edge band (the outer {100 * EDGE_BAND:.0f}% of the data in any corrected "
-            f"column, {_pc(edge[ok].mean())} of rows)")
+            f"column: {_pc(edge[ok].mean())} of rows)")
     if share > 0.5:
-        return f"; {_pc(share)} of the difference comes from {band}"
-    return f"; most of the difference comes from the interior, {_pc(share)} from {band}"
+        return f"; {band} carries {_pc(share)} of the difference"
+    return f"; most of the difference comes from the interior ({band} carries {_pc(share)})"
 
 
 def _conclusion(comparisons, errors, edge, best, level, scoring):
@@ -165,7 +167,8 @@ def _conclusion(comparisons, errors, edge, best, level, scoring):
     if not np.isfinite(g):
         return "no evidence either way", lead + "Not enough held-out predictions to compare."
     against = f"against the best alternative, the {best}"
-    where = _source(errors, best, edge)
+    # where a difference comes from means something only once there is one
+    where = _source(errors, best, edge) if (lo > 0 or hi < 0) else ""
     if g >= 0:
         interval = f"({pct} interval {_pc(lo, True)} to {_pc(hi, True)})"
         head = f"The local linear forest lowers held-out error by {_pc(g)} {interval} {against}"
@@ -181,8 +184,13 @@ def _conclusion(comparisons, errors, edge, best, level, scoring):
                           "Decision: no evidence either way; keep the simpler model.")
     parts = [f"{lead}{head}{where}.", tail]
     if r["fragile"]:
-        parts.append(f"Fragile: {int(r['rows_for_half'])} rows carry "
-                     f"{_pc(r['share_of_half'])} of the difference.")
+        k, share = int(r["rows_for_half"]), r["share_of_half"]
+        rows = "1 row carries" if k == 1 else f"{k} rows carry"
+        if share > 1:
+            parts.append(f"Fragile: {rows} more than the whole difference ({_pc(share)}; "
+                         f"the other rows pull the other way).")
+        else:
+            parts.append(f"Fragile: {rows} {_pc(share)} of the difference.")
     if decision != "warranted" and SAME_TREES in comparisons.index:
         s = comparisons.loc[SAME_TREES]
         if s["lower_all"] > 0:
@@ -235,14 +243,19 @@ def _as_arrays(X, y):
 
 # -- the methods ------------------------------------------------------------------------------
 def _forest_template(forest, X, y, on_new_data, random_state, n_jobs, forest_params):
-    """Return (unfitted template, fitted forest on these rows or None, data note)."""
+    """Return (unfitted template, fitted forest on these rows or None, data note, penalty).
+
+    ``penalty``: the value a fitted forest is viewed at (``at_ridge_penalty``) when it
+    differs from its own out-of-bag choice; the folds then grow their trees as the forest
+    did (``"auto"``) and predict at that value. None otherwise.
+    """
     from sklearn.base import clone
 
     from hedgerow.estimators import LocalLinearForestRegressor
 
     if forest is None:
         params = {"random_state": random_state, "n_jobs": n_jobs, **forest_params}
-        return LocalLinearForestRegressor(**params), None, ""
+        return LocalLinearForestRegressor(**params), None, "", None
     if not isinstance(forest, LocalLinearForestRegressor):
         raise TypeError(f"The 'forest' parameter must be a LocalLinearForestRegressor or "
                         f"None. Got {type(forest).__name__} instead.")
@@ -250,7 +263,7 @@ def _forest_template(forest, X, y, on_new_data, random_state, n_jobs, forest_par
         raise TypeError(f"Forest settings {sorted(forest_params)} are given together with a "
                         f"'forest'; set them on the forest instead.")
     template = clone(forest)
-    fitted, note = None, ""
+    fitted, note, view_penalty = None, "", None
     if hasattr(forest, "ridge_penalty_"):
         if same_rows(forest, X, y):
             fitted = forest
@@ -264,17 +277,16 @@ def _forest_template(forest, X, y, on_new_data, random_state, n_jobs, forest_par
             note = (f"The forest passed was fitted on other rows ({forest.X_train_.shape[0]}); "
                     f"its settings were fitted and scored on the {np.shape(X)[0]} rows given.")
         path = forest.ridge_path_
-        chosen_by_oob = (isinstance(forest.ridge_penalty, str) and path is not None and
-                         forest.ridge_penalty_ == float(
-                             path["ridge_penalty"][int(np.nanargmin(path["oob_mse"]))]))
-        if not chosen_by_oob:
-            # a penalty set by hand (or a view at one) stays fixed in every fold
-            template.set_params(ridge_penalty=float(forest.ridge_penalty_))
+        if isinstance(forest.ridge_penalty, str) and path is not None and (
+                forest.ridge_penalty_ != float(
+                    path["ridge_penalty"][int(np.nanargmin(path["oob_mse"]))])):
+            # a view at a penalty picked by hand: that penalty in every fold
+            view_penalty = float(forest.ridge_penalty_)
     if template.random_state is None:
         template.set_params(random_state=random_state)
     if n_jobs is not None:
         template.set_params(n_jobs=n_jobs)
-    return template, fitted, note
+    return template, fitted, note, view_penalty
 
 
 def _plain_template(llf):
@@ -292,11 +304,11 @@ def _sklearn_template(random_state, n_jobs):
     return RandomForestRegressor(**SKLEARN_FOREST, random_state=random_state, n_jobs=n_jobs)
 
 
-def _specs(template, smoothers, baseline, others, random_state, n_jobs):
+def _specs(template, smoothers, baseline, others, random_state, n_jobs, view_penalty=None):
     """Return ``[(label, template, extra)]`` and ``{label: role}`` for the comparison."""
     from sklearn.base import clone
 
-    specs = [(LLF, template, "same trees")]
+    specs = [(LLF, template, {"penalty": view_penalty})]
     if template.split_rule == "mean":
         # the same seed and settings grow the same trees (a test pins it): reuse them
         specs.append((PLAIN, None, f"local average of {LLF}"))
@@ -324,7 +336,7 @@ def _specs(template, smoothers, baseline, others, random_state, n_jobs):
 
 def _settings(specs):
     out = {}
-    for label, template, extra in specs:
+    for label, template, _ in specs:
         if template is None:
             out[label] = "the local linear forest's settings and trees (split_rule='mean')"
         elif label == SKLEARN:
@@ -367,7 +379,8 @@ def _constant(y, level, scoring):
 
 def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, folds=5,
             scoring="cross-fit", on_new_data="refit", level=0.95, random_state=0,
-            n_jobs=None, progress=True, client=None, **forest_params) -> Verdict:
+            n_jobs=None, progress=True, client=None, fold_cache=None,
+            **forest_params) -> Verdict:
     """Return the ``Verdict`` on whether the local linear correction is warranted.
 
     Parameters
@@ -400,6 +413,10 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, fo
         decision is ``"incomplete"`` (rows of unfinished folds are NaN; no decision drawn).
     client : dask.distributed.Client, optional
         Run the folds as tasks on its workers; the numbers are those of the local run.
+    fold_cache : dict, optional
+        Kept by the caller between calls (the decision panel keeps one per model): fold
+        fits are reused when the rows, folds and a method's settings are unchanged, so
+        viewing the forest at another penalty refits nothing. Not used with ``client``.
     """
     from hedgerow._validation import check_level
 
@@ -410,8 +427,8 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, fo
     n = ya.size
     if scoring == "cross-fit":
         folds = _check_folds(folds, n)
-    template, fitted, note = _forest_template(forest, X, y, on_new_data, random_state,
-                                              n_jobs, forest_params)
+    template, fitted, note, view_penalty = _forest_template(
+        forest, X, y, on_new_data, random_state, n_jobs, forest_params)
     label_scoring = f"cross-fit, {folds} folds" if scoring == "cross-fit" else PREVIEW
     if n > 0 and np.ptp(ya) == 0:
         return _constant(ya, level, label_scoring)
@@ -420,17 +437,23 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, fo
 
         client = check_client(client)
     specs = _specs(template, smoothers, baseline, others if scoring == "cross-fit" else None,
-                   random_state, n_jobs)
+                   random_state, n_jobs, view_penalty)
     roles = {label: "alternative" for label, _, _ in specs}
     roles[SAME_TREES] = "diagnostic"
     labels = [LLF, SAME_TREES] + [s[0] for s in specs[1:]]
     if scoring == "preview":
-        preds, cols = _preview(X, ya, template, fitted, specs, n_jobs)
+        preds, cols = _preview(X, ya, template, fitted, specs, view_penalty)
         fold = np.zeros(n, dtype=np.int64)
         done, folds = 1, 1
     else:
         fold = fold_assignment(n, folds, random_state)
-        results = _run_folds(X, ya, fold, folds, specs, progress, client)
+        cache = None
+        if fold_cache is not None and client is None:
+            from hedgerow._cache import array_key
+
+            cache = fold_cache.setdefault((array_key(Xa), array_key(ya), folds, str(
+                random_state)), {})
+        results = _run_folds(X, ya, fold, folds, specs, progress, client, cache)
         done = len(results)
         preds = {label: np.full(n, np.nan) for label in labels}
         chosen = np.zeros(Xa.shape[1])
@@ -464,7 +487,7 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, fo
                    settings=_settings(specs), data_note=note)
 
 
-def _run_folds(X, y, fold, folds, specs, progress, client):
+def _run_folds(X, y, fold, folds, specs, progress, client, cache=None):
     """Return ``{k: cross_fit_fold(k, ...)}`` of the folds finished before any interrupt."""
     from hedgerow._progress import progress_bar
 
@@ -473,7 +496,8 @@ def _run_folds(X, y, fold, folds, specs, progress, client):
     try:
         if client is None:
             for k in range(folds):
-                results[k] = cross_fit_fold(k, X, y, fold, specs, step=bar.update)
+                results[k] = cross_fit_fold(k, X, y, fold, specs, step=bar.update,
+                                            cache=cache)
                 bar.update(1)
         else:
             from hedgerow._distributed import run_tasks
@@ -491,15 +515,16 @@ def _run_folds(X, y, fold, folds, specs, progress, client):
     return results
 
 
-def _preview(X, y, template, fitted, specs, n_jobs):
+def _preview(X, y, template, fitted, specs, view_penalty):
     """Return out-of-bag / leave-one-out predictions of full-data fits (selection not held out)."""
     from sklearn.base import clone
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         llf = fitted if fitted is not None else clone(template).fit(X, y)
-        preds = {LLF: llf.oob_predict(), SAME_TREES: llf.oob_local_average()}
-        for label, tmpl, extra in specs[1:]:
+        preds = {LLF: llf.oob_predict(ridge_penalty=view_penalty),
+                 SAME_TREES: llf.oob_local_average()}
+        for label, tmpl, _ in specs[1:]:
             if tmpl is None:
                 preds[label] = preds[SAME_TREES]
             elif label == SKLEARN:

@@ -193,10 +193,14 @@ class ExploreSession(t.HasTraits):
 
     def verdict_report(self):
         def compute():
-            s = [m for m in self._smoothers if hasattr(m, "loo_predict")]
+            # The forests a user would fit instead, as in a snapshot's headline. Kernel
+            # smoothers are left out here: cross-fitting them re-runs the bandwidth search
+            # in every fold (minutes on wide data), too slow for a view; the report has them.
+            # Fold fits are kept per forest: a penalty change re-predicts, it does not refit.
+            folds = self._cached(("verdict folds",), dict, per_penalty=False)
             return D.verdict(self._model.X_train_, self._model.y_train_,
-                             forest=self.penalised_model(), smoothers=s, baseline=False,
-                             progress=False)
+                             forest=self.penalised_model(), smoothers=None, baseline=True,
+                             progress=False, fold_cache=folds)
 
         return self._cached(("verdict",), compute)
 

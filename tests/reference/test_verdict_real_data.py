@@ -80,7 +80,7 @@ def _reference_interval(X, y, alternative, level=0.95):
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", list(SETS))
-def test_headline_interval_overlaps_an_independent_cross_validation(name):
+def test_headline_interval_overlaps_an_independent_cross_validation(name, report):
     X, y = SETS[name]()
     v = verdict(X, y, forest=LocalLinearForestRegressor(n_estimators=TREES), smoothers=None,
                 progress=False, random_state=0)
@@ -90,6 +90,9 @@ def test_headline_interval_overlaps_an_independent_cross_validation(name):
                    else HonestForestRegressor(n_estimators=TREES, random_state=11))
     g, lo, hi = _reference_interval(X, y, alternative)
     row = v.comparisons.loc[best]
+    report(f"verdict on {name} (n = {y.size}) against the {best}: {row['gain_all']:+.3f} "
+           f"[{row['lower_all']:+.3f}, {row['upper_all']:+.3f}]; independent 5-fold CV "
+           f"{g:+.3f} [{lo:+.3f}, {hi:+.3f}]; decision: {v.decision}")
     assert row["lower_all"] <= hi and lo <= row["upper_all"], (
         f"{name}: verdict {row['gain_all']:.3f} [{row['lower_all']:.3f}, "
         f"{row['upper_all']:.3f}] vs CV {g:.3f} [{lo:.3f}, {hi:.3f}]")

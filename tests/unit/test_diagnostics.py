@@ -135,10 +135,10 @@ def test_paired_gain_by_hand():
 
 def test_verdict_interval_from_its_own_rows(data, llf):
     X, y = data
-    v = verdict(X, y, forest=llf, smoothers=None, baseline=False)
+    v = verdict(X, y, forest=llf, smoothers=None, baseline=False, progress=False)
     e = v.errors
     g, lo, hi = paired_relative_gain(e["honest forest"], e["local linear forest"])
-    row = v.comparisons.loc["local linear forest"]
+    row = v.comparisons.loc["honest forest"]
     assert row["gain_all"] == pytest.approx(g) and row["lower_all"] == pytest.approx(lo)
     edge = e["edge_depth"] < 0.10
     g_e, _, _ = paired_relative_gain(e["honest forest"][edge], e["local linear forest"][edge])
@@ -174,14 +174,20 @@ def test_slices_bad_input(data, llf):
 
 
 @pytest.mark.slow
-def test_verdict_on_softplus_design_says_correction_helps():
-    # Friedberg et al. (2021), eq. 1, n = 1000: a smooth signal with edge bias for a forest
+def test_verdict_on_softplus_design_separates_the_same_trees_from_a_plain_forest():
+    # Friedberg et al. (2021), eq. 1, n = 1000: a smooth signal with edge bias for a forest.
+    # On the correction's own trees the local line clearly helps, most at the edges; against
+    # a plain honest forest grown on its own the cross-fitted gain was about 1% (interval
+    # across 0 at seed 21), so the sentence must not call it warranted from the diagnostic
     X, y, _ = make_softplus_design(1000, random_state=21)
-    v = verdict(X, y, smoothers=None, random_state=0)
-    row = v.comparisons.loc["local linear forest"]
-    assert row["lower_all"] > 0, v.conclusion
-    assert row["gain_edge"] > row["gain_interior"]
-    assert v.conclusion.startswith("The local linear correction lowers held-out error")
+    v = verdict(X, y, smoothers=None, random_state=0, n_estimators=500, progress=False)
+    same = v.comparisons.loc["honest forest (same trees, diagnostic)"]
+    assert same["lower_all"] > 0 and same["gain_edge"] > same["gain_interior"]
+    best = v.comparisons.loc[v.best_alternative]
+    assert v.decision == ("warranted" if best["lower_all"] > 0 else
+                          "hurts" if best["upper_all"] < 0 else "no evidence either way")
+    if v.decision != "warranted":
+        assert "It beats only the local average on its own trees" in v.conclusion
 
 
 @pytest.mark.slow
@@ -191,8 +197,8 @@ def test_verdict_on_step_truth_does_not_claim_help():
     rng = np.random.default_rng(5)
     X = rng.uniform(size=(1000, 5))
     y = np.where(X[:, 0] > 0.5, 2.0, 0.0) + rng.normal(0, 1.0, 1000)
-    v = verdict(X, y, smoothers=None, random_state=0)
-    assert not v.conclusion.startswith("The local linear correction lowers"), v.conclusion
+    v = verdict(X, y, smoothers=None, random_state=0, n_estimators=500, progress=False)
+    assert v.decision != "warranted", v.conclusion
 
 
 def test_kernel_loo_predict_matches_refits():
@@ -225,7 +231,9 @@ def test_probe_and_verdict_with_smoothers(data, llf):
     cols = llf.correction_features_
     np.testing.assert_allclose(ll_row.slopes, ll.local_slopes(x[None, :])[0][cols])
     assert ll_row.ess == pytest.approx(kish_ess(ll.neighbour_weights(x[None, :]).data))
-    v = verdict(X, y, forest=llf, smoothers=[nw, ll], baseline=True)
+    # the preview scores leave-one-out errors of full-data fits (refitted clones)
+    v = verdict(X, y, forest=llf, smoothers=[nw, ll], baseline=True, scoring="preview",
+                progress=False)
     e = v.errors
     np.testing.assert_allclose(e["Nadaraya-Watson"], (y - nw.loo_predict()) ** 2)
     assert {"Nadaraya-Watson", "local linear (kernel)", "random forest (scikit-learn)"} <= set(

@@ -203,8 +203,7 @@ def test_edges_and_verdict_follow_the_ridge_penalty(app, session):
     assert not np.allclose(app.edges_view.mean_marks["local linear forest"].y, bands0)
     v = D.verdict(session.X_train, session.y_train,
                   forest=D.at_ridge_penalty(session.model, 50.0),
-                  smoothers=[s for s in session._smoothers if hasattr(s, "loo_predict")],
-                  baseline=False, progress=False)
+                  smoothers=None, baseline=True, progress=False)
     assert v.conclusion in app.verdict_view.conclusion_html.value.replace("&#x27;", "'")
     np.testing.assert_allclose(np.asarray(app.verdict_view.bars_mark.y)[0],
                                v.comparisons.iloc[0][["gain_all", "gain_edge",
