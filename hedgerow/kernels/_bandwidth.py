@@ -399,7 +399,8 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
     drifts to large bandwidths and drops out of the kernel (Hall, Li & Racine 2007,
     *Review of Economics and Statistics* 89(4)). A local linear fit then still has a
     global slope in such a column; it is left out of the local line too where that does
-    not raise the error by more than the same tolerance (``CVCurve.ignored``).
+    not raise the error by more than the same tolerance (``CVCurve.ignored``). Stage 4
+    re-tunes the remaining finite bandwidths by L-BFGS-B once columns became flat.
 
     Parameters
     ----------
@@ -477,7 +478,7 @@ class _Search:
             err, grad = np.inf, (np.zeros(self.d) if gradient else None)
         self.seen[key] = (err, grad)
         self.bar.update(1)
-        if record and hit is None:
+        if record:
             self.path_h.append(np.array(h, dtype=np.float64))
             self.path_e.append(err)
         return err, grad
@@ -534,8 +535,6 @@ class _Search:
         return grid_h, factors[done], errors[done]
 
     def run(self):
-        from scipy.optimize import minimize
-
         grid_h, grid_f, grid_e = self.common_factor(self.start())
         best = int(np.argmin(grid_e))
         h, err = grid_h[best].copy(), float(grid_e[best])
@@ -554,14 +553,12 @@ class _Search:
                 # A box below the start keeps the first steps from jumping into the
                 # nearest-neighbour plateau of tiny bandwidths; upward moves are free.
                 floor = np.maximum(np.log(h) - CV_STEP_DOWN, log_lo)
-                res = minimize(objective, np.log(h), jac=True, method="L-BFGS-B",
-                               bounds=list(zip(floor, log_hi, strict=True)),
-                               options={"maxfun": CV_MAX_EVALUATIONS, "ftol": CV_FTOL,
-                                        "gtol": CV_GTOL})
+                res = self._quasi_newton(objective, np.log(h), floor, log_hi)
                 h, err = self._best(h, err)
                 if not np.any((res.x <= floor + 1e-9) & (floor > log_lo)):
                     break
             h, err, ignored = self._flatten(h, err)
+            h, err = self._refine(h, err, ignored)
         return CVCurve(
             grid_bandwidth=grid_h,
             grid_factor=grid_f,
@@ -572,6 +569,50 @@ class _Search:
             loo_error=float(err),
             ignored=ignored,
         )
+
+    def _quasi_newton(self, objective, theta, lo, hi):
+        from scipy.optimize import minimize
+
+        return minimize(objective, theta, jac=True, method="L-BFGS-B",
+                        bounds=list(zip(lo, hi, strict=True)),
+                        options={"maxfun": CV_MAX_EVALUATIONS, "ftol": CV_FTOL,
+                                 "gtol": CV_GTOL})
+
+    def _refine(self, h, err, ignored):
+        """Stage 4: once columns are flat or dropped, re-tune the others' bandwidths.
+
+        Their best values move when a flat column leaves the local line. One L-BFGS-B
+        run over the finite bandwidths of the remaining columns, from ``h``.
+        """
+        keep = ~ignored
+        tune = np.isfinite(h)[keep]
+        if tune.all() and keep.all() or not tune.any():
+            return h, err
+        sub = _Search(np.ascontiguousarray(self.X[:, keep]), self.y, self.kernel,
+                      self.degree, self.bar)
+        hk = h[keep].copy()
+        penalty = 10.0 * err / self.unit
+
+        def objective(theta):
+            trial = hk.copy()
+            trial[tune] = np.exp(theta)
+            e, g = sub.evaluate(trial, gradient=True)
+            if not np.isfinite(e):
+                return penalty, -np.ones(theta.size) * penalty
+            return e / self.unit, g[tune] / self.unit
+
+        theta = np.log(hk[tune])
+        self._quasi_newton(objective, theta, np.maximum(theta - CV_STEP_DOWN,
+                                                        np.log(sub.lo[tune])),
+                           np.log(sub.hi[tune]))
+        for trial, e in zip(sub.path_h, sub.path_e, strict=True):
+            full = np.where(ignored, np.inf, h)
+            full[keep] = trial
+            self.path_h.append(full)
+            self.path_e.append(e)
+            if e < err:
+                h, err = np.where(ignored, h, full), e
+        return h, err
 
     def _best(self, h, err):
         """Return the best evaluated point of the quasi-Newton stage (or ``h``)."""
