@@ -249,7 +249,8 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             # The training rows are one fixed set of queries: BLAS products (stable=False).
             fit, _ = self._compute_local_fit(X, stable=False)  # not cached: n queries
             resid2 = (self.y_train_ - fit.intercept) ** 2
-            R = self._kernel_rows().sums(self._used(X), np.stack([np.ones_like(resid2), resid2], 1),
+            R = self._kernel_rows().sums(self._used(X),
+                                         np.stack([np.ones_like(resid2), resid2], 1),
                                          stable=False)
             self._variance_cache["sigma2"] = R[:, 1] / R[:, 0]
         return self._variance_cache["sigma2"]

@@ -58,7 +58,7 @@ CV_FLAT_FROM = 10.0
 CV_FLAT_TOLERANCE = 1e-7
 
 # L-BFGS-B stopping rules on the error relative to the variance of y, in log bandwidth.
-CV_MAX_EVALUATIONS = 200
+CV_MAX_EVALUATIONS = 25
 CV_FTOL = 1e-9
 CV_GTOL = 1e-5
 # Each quasi-Newton round may lower a log bandwidth by at most CV_STEP_DOWN (a factor
@@ -146,7 +146,7 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale, features=None):
 
 
 @numba.njit(cache=True, fastmath={"reassoc", "contract"})
-def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
+def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, out):
     """Add ``sum_i factor_i sum_j w_ij a_ij (-e_ij - r_i a_ij) phi(u_ijc)`` to ``out[c]``.
 
     Query ``i`` runs over the training rows (columns of ``XT``, centred and divided by
@@ -156,7 +156,9 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
     ``e_ij = y_j - beta_i^T z_ij`` its residual from that local line, and
     ``phi(u) = -u k'(u) / k(u)`` the derivative of a kernel factor in log bandwidth over
     the factor: ``u^2`` (Gaussian), ``2 u^2 / (1 - u^2)`` (Epanechnikov),
-    ``9 |u|^3 / (1 - |u|^3)`` (tricube).
+    ``9 |u|^3 / (1 - |u|^3)`` (tricube). A query marked ``alone`` (refitted without
+    itself) leaves its own row out and, for the Gaussian, shifts and truncates its
+    weights by its nearest other row, as the refit did.
     """
     d, n = XT.shape
     k = XsT.shape[0]
@@ -174,10 +176,19 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
                 for j in range(n):
                     t = row[j] - q
                     w[j] += t * t
-            cut = 2.0 * log_cut
+            sh = 0.0
+            if alone[i]:
+                w[i] = np.inf
+                sh = np.inf
+                for j in range(n):
+                    sh = min(sh, w[j])
+                if not np.isfinite(sh):
+                    sh = 0.0
+            cut = 2.0 * log_cut + sh
             for j in range(n):
                 dist = w[j]
-                w[j] = _exp_nonpositive(max(-0.5 * dist, _EXP_LOWEST)) if dist <= cut else 0.0
+                w[j] = (_exp_nonpositive(max(-0.5 * (dist - sh), _EXP_LOWEST)) if dist <= cut
+                        else 0.0)
         else:
             w[:] = 1.0
             for c in range(d):
@@ -191,6 +202,8 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
                         a = 1.0 - t * t * t
                         f = a * a * a
                     w[j] *= max(f, 0.0)
+            if alone[i]:
+                w[i] = 0.0
         # a_ij and e_ij, accumulated column by column (z_ij = [1, x_j - x_i] / scale)
         a0 = g[i, 0]
         b0 = beta[i, 0]
@@ -260,6 +273,8 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     with np.errstate(divide="ignore", invalid="ignore"):
         factor = resid / (1.0 - leverage)
     r = resid.copy()
+    alone = np.zeros(n, dtype=np.bool_)
+    alone[direct] = True
     if direct.size:
         g[direct] = fd.gram_inv[:, 0, :]
         beta[direct, 0] = fd.intercept
@@ -275,7 +290,7 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     out = np.zeros(d)
     code = _CODES[kernel]
     _gradient_sums(XT, XsT, np.ascontiguousarray(y), code, -math.log(GAUSSIAN_TRUNCATION),
-                   g, beta, r, factor, out)
+                   g, beta, r, factor, alone, out)
     out *= 2.0 / n
     out[np.isinf(h)] = 0.0
     return out
@@ -485,7 +500,7 @@ class _Search:
 
     def evaluate_without(self, h, drop):
         """Return the error with the columns ``drop`` left out entirely (one step)."""
-        key = np.asarray(drop).tobytes()
+        key = np.asarray(drop).tobytes() + np.asarray(h, dtype=np.float64).tobytes()
         if key not in self.drop_results:
             keep = ~drop
             Xk = np.ascontiguousarray(self.X[:, keep])
@@ -558,7 +573,10 @@ class _Search:
                 if not np.any((res.x <= floor + 1e-9) & (floor > log_lo)):
                     break
             h, err, ignored = self._flatten(h, err)
-            h, err = self._refine(h, err, ignored)
+            refined, err = self._refine(h, err, ignored)
+            if not np.array_equal(refined, h):  # re-tuned columns may have widened
+                h, err, more = self._flatten(refined, err, ignored)
+                ignored |= more
         return CVCurve(
             grid_bandwidth=grid_h,
             grid_factor=grid_f,
@@ -625,9 +643,13 @@ class _Search:
     def _accept(self, trial_err, err):
         return trial_err <= err * (1.0 + CV_FLAT_TOLERANCE)
 
-    def _flatten(self, h, err):
-        """Stage 3: flat kernels in wide columns, then (local linear) drop them."""
-        wide = np.flatnonzero(h >= CV_FLAT_FROM * self.scale)
+    def _flatten(self, h, err, ignored=None):
+        """Stage 3: flat kernels in wide columns, then (local linear) drop them.
+
+        ``ignored``: columns already left out (a second pass after stage 4).
+        """
+        before = np.zeros(self.d, dtype=bool) if ignored is None else ignored
+        wide = np.flatnonzero((h >= CV_FLAT_FROM * self.scale) & np.isfinite(h) & ~before)
         if wide.size:
             trials = [wide] + ([[j] for j in wide] if wide.size > 1 else [])
             for cols in trials:
@@ -635,18 +657,19 @@ class _Search:
                     continue
                 trial = h.copy()
                 trial[cols] = np.inf
-                e = self.evaluate(trial)[0]
+                e = (self.evaluate_without(trial, before) if before.any()
+                     else self.evaluate(trial)[0])
                 if self._accept(e, err):
                     h, err = trial, e
                     if cols is wide:
                         break
-        flat = np.isinf(h)
-        ignored = np.zeros(self.d, dtype=bool)
+        flat = np.isinf(h) & ~before
+        ignored = before.copy()
         if not flat.any():
             return h, err, ignored
         if self.degree == 0:
-            return h, err, flat
-        if flat.all():  # the local line of a flat kernel is one global line: keep it
+            return h, err, flat | before
+        if (flat | before).all():  # a flat kernel's local line is one global line: keep it
             return h, err, ignored
         cols = np.flatnonzero(flat)
         trials = [cols] + ([[j] for j in cols] if cols.size > 1 else [])

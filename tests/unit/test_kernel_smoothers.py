@@ -10,9 +10,9 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 
 from hedgerow.estimators._kernel import LocalLinearRegressor, NadarayaWatsonRegressor
 from hedgerow.kernels import (
+    CV_FLAT_TOLERANCE,
     GAUSSIAN_TRUNCATION,
     KERNELS,
-    CV_FLAT_TOLERANCE,
     CVCurve,
     KernelRows,
     kernel_profile,
