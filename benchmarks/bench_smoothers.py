@@ -164,12 +164,14 @@ def main():
     parser.add_argument("--quality-n", type=int, default=300,
                         help="rows of the comparison with KernelReg's cv_ls (it is slow)")
     parser.add_argument("--grid-points", type=int, default=40)
+    parser.add_argument("--quality-dims", type=int, nargs="+", default=[1, 2],
+                        help="column counts of the KernelReg comparison (d=5 took 170 s)")
     args = parser.parse_args()
     bench_fixed(args.repeat)
     if not args.skip_cv:
         bench_cv_speed(args.repeat, (1, 2, 5, 10, 14), 1000)
         bench_cv_large(args.repeat)
-        bench_cv_quality(args.quality_n, (1, 2, 5), args.grid_points)
+        bench_cv_quality(args.quality_n, args.quality_dims, args.grid_points)
 
 
 if __name__ == "__main__":

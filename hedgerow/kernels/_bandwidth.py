@@ -58,7 +58,10 @@ CV_FLAT_FROM = 10.0
 CV_FLAT_TOLERANCE = 1e-7
 
 # L-BFGS-B stopping rules on the error relative to the variance of y, in log bandwidth.
+# At most CV_MAX_EVALUATIONS evaluations per quasi-Newton round, CV_REFINE_EVALUATIONS
+# for the re-tuning after columns became flat (it starts next to its optimum).
 CV_MAX_EVALUATIONS = 25
+CV_REFINE_EVALUATIONS = 10
 CV_FTOL = 1e-9
 CV_GTOL = 1e-5
 # Each quasi-Newton round may lower a log bandwidth by at most CV_STEP_DOWN (a factor
@@ -588,12 +591,12 @@ class _Search:
             ignored=ignored,
         )
 
-    def _quasi_newton(self, objective, theta, lo, hi):
+    def _quasi_newton(self, objective, theta, lo, hi, budget=None):
         from scipy.optimize import minimize
 
         return minimize(objective, theta, jac=True, method="L-BFGS-B",
                         bounds=list(zip(lo, hi, strict=True)),
-                        options={"maxfun": CV_MAX_EVALUATIONS, "ftol": CV_FTOL,
+                        options={"maxfun": budget or CV_MAX_EVALUATIONS, "ftol": CV_FTOL,
                                  "gtol": CV_GTOL})
 
     def _refine(self, h, err, ignored):
@@ -622,7 +625,7 @@ class _Search:
         theta = np.log(hk[tune])
         self._quasi_newton(objective, theta, np.maximum(theta - CV_STEP_DOWN,
                                                         np.log(sub.lo[tune])),
-                           np.log(sub.hi[tune]))
+                           np.log(sub.hi[tune]), CV_REFINE_EVALUATIONS)
         for trial, e in zip(sub.path_h, sub.path_e, strict=True):
             full = np.where(ignored, np.inf, h)
             full[keep] = trial
