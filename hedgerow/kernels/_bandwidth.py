@@ -62,7 +62,7 @@ CV_FLAT_TOLERANCE = 1e-7
 # for the re-tuning after columns became flat (it starts next to its optimum).
 CV_MAX_EVALUATIONS = 25
 CV_REFINE_EVALUATIONS = 10
-CV_FTOL = 1e-9
+CV_FTOL = 1e-7
 CV_GTOL = 1e-5
 # Each quasi-Newton round may lower a log bandwidth by at most CV_STEP_DOWN (a factor
 # of 8); a round that ends on that floor starts another, up to CV_ROUNDS in all.
