@@ -103,6 +103,56 @@ def silverman_bandwidth(X) -> np.ndarray:
 LOO_DIRECT_LEVERAGE = 1.0 - 1e-4
 
 
+#: From this many rows on, leave-one-out sums run over the rows within the kernel's reach
+#: along one column only (see ``_reach_windows``).
+CV_WINDOW_FROM = 3000
+
+# Query blocks of the windowed leave-one-out sums (rows sorted along the window column).
+_WINDOW_BLOCK = 256
+
+
+def _reach_windows(X, bandwidth, kernel):
+    """Return ``(order, first, last)`` or None: rows within reach along one column.
+
+    Every weight of a training query beyond ``reach`` bandwidths in any one column is
+    exactly zero: compact kernels beyond 1, the Gaussian beyond ``sqrt(2 ln(1 /
+    GAUSSIAN_TRUNCATION))`` (8.6), where it is truncated (its shift is zero for a
+    training row, its own nearest row). With the rows sorted along the column where the
+    bandwidth is the smallest share of the range (``order``), query ``order[p]`` needs
+    only the sorted rows ``first[p]:last[p]``. None where that would keep most rows.
+    """
+    n = X.shape[0]
+    h = np.asarray(bandwidth, dtype=np.float64)
+    if n < CV_WINDOW_FROM or not np.isfinite(h).any():
+        return None
+    reach = (math.sqrt(-2.0 * math.log(GAUSSIAN_TRUNCATION)) if kernel == "gaussian"
+             else 1.0) * (1.0 + 1e-9)
+    span = np.ptp(X, axis=0)
+    share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
+    c = int(np.argmin(share))
+    if 2.0 * reach * share[c] > 0.8:
+        return None
+    order = np.argsort(X[:, c], kind="stable")
+    xs = X[order, c]
+    first = np.searchsorted(xs, xs - reach * h[c], side="left")
+    last = np.searchsorted(xs, xs + reach * h[c], side="right")
+    return order, first, last
+
+
+def _windowed_sums(X, B, bandwidth, kernel, windows):
+    """Return ``W @ B`` over the training rows as queries, row windows as above."""
+    order, first, last = windows
+    n = X.shape[0]
+    R = np.empty((n, B.shape[1]))
+    Xo, Bo = X[order], B[order]
+    for start in range(0, n, _WINDOW_BLOCK):
+        stop = min(n, start + _WINDOW_BLOCK)
+        lo, hi = first[start], last[stop - 1]
+        rows = KernelRows(Xo[lo:hi], bandwidth, kernel)
+        R[order[start:stop]] = rows.sums(Xo[start:stop], Bo[lo:hi], stable=False)
+    return R
+
+
 def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     """Return ``(resid, fit, leverage, direct, direct_fit)`` of the leave-one-out fits.
 
@@ -122,7 +172,9 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     B, centre = moment_features(X, y, scale, degree=degree) if features is None else features
     rows = KernelRows(X, bandwidth, kernel)
     # one fixed set of queries (the training rows): BLAS products (stable=False)
-    R = rows.sums(X, B, stable=False)
+    windows = _reach_windows(X, bandwidth, kernel)
+    R = (rows.sums(X, B, stable=False) if windows is None
+         else _windowed_sums(X, B, bandwidth, kernel, windows))
     moments = moments_from_sums(R, X, centre, scale, degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
@@ -149,7 +201,8 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale, features=None):
 
 
 @numba.njit(cache=True, fastmath={"reassoc", "contract"})
-def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, out):
+def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, first, last,
+                   out):
     """Add ``sum_i factor_i sum_j w_ij a_ij (-e_ij - r_i a_ij) phi(u_ijc)`` to ``out[c]``.
 
     Query ``i`` runs over the training rows (columns of ``XT``, centred and divided by
@@ -161,7 +214,8 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, out
     the factor: ``u^2`` (Gaussian), ``2 u^2 / (1 - u^2)`` (Epanechnikov),
     ``9 |u|^3 / (1 - |u|^3)`` (tricube). A query marked ``alone`` (refitted without
     itself) leaves its own row out and, for the Gaussian, shifts and truncates its
-    weights by its nearest other row, as the refit did.
+    weights by its nearest other row, as the refit did. Query ``i`` sums over the rows
+    ``first[i]:last[i]`` only (the rows within the kernel's reach; all for ``alone``).
     """
     d, n = XT.shape
     k = XsT.shape[0]
@@ -171,33 +225,36 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, out
     for i in range(n):
         if factor[i] == 0.0:
             continue
+        j0, j1 = first[i], last[i]
         if code == 0:
-            w[:] = 0.0
+            for j in range(j0, j1):
+                w[j] = 0.0
             for c in range(d):
                 q = XT[c, i]
                 row = XT[c]
-                for j in range(n):
+                for j in range(j0, j1):
                     t = row[j] - q
                     w[j] += t * t
             sh = 0.0
             if alone[i]:
                 w[i] = np.inf
                 sh = np.inf
-                for j in range(n):
+                for j in range(j0, j1):
                     sh = min(sh, w[j])
                 if not np.isfinite(sh):
                     sh = 0.0
             cut = 2.0 * log_cut + sh
-            for j in range(n):
+            for j in range(j0, j1):
                 dist = w[j]
                 w[j] = (_exp_nonpositive(max(-0.5 * (dist - sh), _EXP_LOWEST)) if dist <= cut
                         else 0.0)
         else:
-            w[:] = 1.0
+            for j in range(j0, j1):
+                w[j] = 1.0
             for c in range(d):
                 q = XT[c, i]
                 row = XT[c]
-                for j in range(n):
+                for j in range(j0, j1):
                     t = abs(row[j] - q)
                     if code == 1:
                         f = 1.0 - t * t
@@ -211,27 +268,27 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, out
         a0 = g[i, 0]
         b0 = beta[i, 0]
         r = resid[i]
-        for j in range(n):
+        for j in range(j0, j1):
             v[j] = a0
-        for j in range(n):
+        for j in range(j0, j1):
             e[j] = y[j] - b0
         for c in range(k):
             q = XsT[c, i]
             gc = g[i, 1 + c]
             bc = beta[i, 1 + c]
             row = XsT[c]
-            for j in range(n):
+            for j in range(j0, j1):
                 z = row[j] - q
                 v[j] += gc * z
                 e[j] -= bc * z
-        for j in range(n):
+        for j in range(j0, j1):
             a = v[j]
             v[j] = factor[i] * w[j] * a * (-e[j] - r * a)
         for c in range(d):
             q = XT[c, i]
             row = XT[c]
             acc = 0.0
-            for j in range(n):
+            for j in range(j0, j1):
                 t = row[j] - q
                 t2 = t * t
                 if code == 0:
@@ -292,8 +349,20 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     beta[bad] = 0.0
     out = np.zeros(d)
     code = _CODES[kernel]
-    _gradient_sums(XT, XsT, np.ascontiguousarray(y), code, -math.log(GAUSSIAN_TRUNCATION),
-                   g, beta, r, factor, alone, out)
+    windows = _reach_windows(X, h, kernel)
+    if windows is None:
+        first, last = np.zeros(n, dtype=np.int64), np.full(n, n, dtype=np.int64)
+        yy = np.ascontiguousarray(y)
+    else:  # the sums do not depend on the order of the rows: sort them
+        order, first, last = windows
+        XT, XsT = np.ascontiguousarray(XT[:, order]), np.ascontiguousarray(XsT[:, order])
+        g, beta = np.ascontiguousarray(g[order]), np.ascontiguousarray(beta[order])
+        r, factor, alone = r[order], factor[order], alone[order]
+        yy = np.ascontiguousarray(y[order])
+        first, last = first.astype(np.int64), last.astype(np.int64)
+        first[alone], last[alone] = 0, n
+    _gradient_sums(XT, XsT, yy, code, -math.log(GAUSSIAN_TRUNCATION),
+                   g, beta, r, factor, alone, first, last, out)
     out *= 2.0 / n
     out[np.isinf(h)] = 0.0
     return out

@@ -167,3 +167,25 @@ def test_flat_columns_cost_at_most_the_tolerance():
     finite = np.isfinite(curve.path_bandwidth).all(axis=1)
     # the best point with every bandwidth finite is not better beyond the tolerance
     assert curve.loo_error <= curve.path_loo_error[finite].min() * (1 + CV_FLAT_TOLERANCE)
+
+
+@pytest.mark.parametrize("kernel", KERNELS)
+@pytest.mark.parametrize("degree", [0, 1])
+def test_sums_within_the_kernels_reach_change_nothing(kernel, degree, monkeypatch):
+    """Large n: rows beyond the kernel's reach along one column are skipped; the
+    leave-one-out error and its gradient stay those of the full sums (round-off)."""
+    import hedgerow.kernels._bandwidth as bandwidth_module
+
+    X, y = _design(9, 700, 2)
+    # three rows far out, close to each other: nearly alone (refitted directly for
+    # narrow Gaussian bandwidths), yet with neighbours inside a compact support
+    X[:3] = X.max(axis=0) + 5.0 * X.std(axis=0) + 0.02 * X[:3]
+    h = silverman_bandwidth(X) * (0.5 if kernel == "gaussian" else 1.5)
+    full = loo_cv_gradient(X, y, h, kernel, degree)
+    assert np.isfinite(full[0]) and np.all(np.isfinite(full[1]))
+    monkeypatch.setattr(bandwidth_module, "CV_WINDOW_FROM", 100)
+    assert bandwidth_module._reach_windows(X, h, kernel) is not None
+    windowed = loo_cv_gradient(X, y, h, kernel, degree)
+    assert windowed[0] == pytest.approx(full[0], rel=1e-12)
+    np.testing.assert_allclose(windowed[1], full[1], rtol=0,
+                               atol=1e-10 * np.abs(full[1]).max())
