@@ -69,7 +69,10 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         return tags
 
     def _resolve_bandwidth(self, X, y, scale, progress=False):
-        """Return ``(bandwidth in the units of X, CVCurve or None)``."""
+        """Return ``(bandwidth in the units of X, CVCurve or None)``.
+
+        A bandwidth from ``"cv"`` is ``inf`` for a column the kernel is flat in.
+        """
         bw = self.bandwidth
         d = X.shape[1]
         if isinstance(bw, str):
@@ -134,6 +137,13 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         self.scale_ = scale
         self.bandwidth_ = bandwidth
         self.cv_curve_ = curve
+        self.ignored_features_ = (curve.ignored.copy() if curve is not None
+                                  else np.zeros(X.shape[1], dtype=bool))
+        self.n_features_used_ = int(X.shape[1] - self.ignored_features_.sum())
+        # The columns the fit is computed on (all of them if every one is ignored: then
+        # the kernel is flat everywhere and the fit is global).
+        used = np.flatnonzero(~self.ignored_features_)
+        self._columns = used if used.size else np.arange(X.shape[1])
         # Filled on the first request for standard errors (see _training_variance).
         self._variance_cache = {}
         return self
@@ -152,11 +162,19 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             self._variance_cache["local fits"][key] = entry
         return entry
 
+    def _used(self, X):
+        """Return the columns of ``X`` the fit is computed on (see ignored_features_)."""
+        cols = self.__dict__.get("_columns")
+        if cols is None or cols.size == X.shape[1]:
+            return X
+        return np.ascontiguousarray(X[:, cols])
+
     def _kernel_rows(self):
         """Return the training rows prepared for kernel queries (fit-scoped)."""
         cache = self._variance_cache
         if "rows" not in cache:
-            cache["rows"] = KernelRows(self.X_train_, self.bandwidth_, self.kernel)
+            cache["rows"] = KernelRows(self._used(self.X_train_),
+                                       self._used(self.bandwidth_[None, :])[0], self.kernel)
         return cache["rows"]
 
     def _features(self):
@@ -164,7 +182,8 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         cache = self._variance_cache
         if "features" not in cache:
             cache["features"] = moment_features(
-                self.X_train_, self.y_train_, self.scale_, degree=self._degree
+                self._used(self.X_train_), self.y_train_, self._used(self.scale_[None, :])[0],
+                degree=self._degree,
             )
         return cache["features"]
 
@@ -174,12 +193,13 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         # variance sums of squared weights come from the same pass.
         B, centre = self._features()
         rows = self._kernel_rows()
+        X = self._used(X)
+        scale = self._used(self.scale_[None, :])[0]
         if with_variance:
             R, V = rows.sums(X, B, squared=self._variance_features(), stable=stable)
         else:
             R, V = rows.sums(X, B, stable=stable), None
-        fit = solve_local(moments_from_sums(R, X, centre, self.scale_, degree=self._degree),
-                          0.0)
+        fit = solve_local(moments_from_sums(R, X, centre, scale, degree=self._degree), 0.0)
         return fit, (None if V is None else self._variance_from_sums(V, X, fit))
 
     def _variance_features(self):
@@ -191,7 +211,7 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         cache = self._variance_cache
         if "variance features" not in cache:
             B, _ = self._features()
-            k = self.n_features_in_ if self._degree else 0
+            k = self._columns.size if self._degree else 0
             width = 1 + k + k * (k + 1) // 2  # the [1, u, u u^T] columns of B
             cache["variance features"] = np.ascontiguousarray(
                 B[:, :width] * self._training_variance()[:, None]
@@ -205,14 +225,16 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         first row of the inverse local Gram matrix (:func:`hedgerow.local.equivalent_kernel`),
         so the sum is ``g^T V g`` with ``V = sum_i w_i^2 sigma^2(x_i) [1, z_i][1, z_i]^T``:
         ``V`` holds the squared-weight sums over :meth:`_variance_features`, centred here.
+        ``X`` holds the used columns only.
         """
         g = fit.gram_inv[:, 0, :]
         if self._degree == 0:
             return g[:, 0] ** 2 * V[:, 0]
-        m, k = V.shape[0], self.n_features_in_
+        m, k = V.shape[0], self._columns.size
         _, centre = self._features()
         # moments_from_sums expects the response columns too; they are not needed here
-        mom = moments_from_sums(np.hstack([V, np.zeros((m, 1 + k))]), X, centre, self.scale_)
+        mom = moments_from_sums(np.hstack([V, np.zeros((m, 1 + k))]), X, centre,
+                                self._used(self.scale_[None, :])[0])
         gram = np.empty((m, k + 1, k + 1))
         gram[:, 0, 0] = mom.s0
         gram[:, 0, 1:] = mom.s1
@@ -227,7 +249,8 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             # The training rows are one fixed set of queries: BLAS products (stable=False).
             fit, _ = self._compute_local_fit(X, stable=False)  # not cached: n queries
             resid2 = (self.y_train_ - fit.intercept) ** 2
-            R = self._kernel_rows().sums(X, np.stack([np.ones_like(resid2), resid2], 1),
+            R = self._kernel_rows().sums(self._used(X),
+                                         np.stack([np.ones_like(resid2), resid2], 1),
                                          stable=False)
             self._variance_cache["sigma2"] = R[:, 1] / R[:, 0]
         return self._variance_cache["sigma2"]
@@ -266,8 +289,9 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
         cache = self._variance_cache  # fit-scoped: the values depend on the fit only
         if "loo" not in cache:
             resid = loo_residuals(
-                self.X_train_, self.y_train_, self.bandwidth_, self.kernel, self._degree,
-                self.scale_,
+                self._used(self.X_train_), self.y_train_,
+                self._used(self.bandwidth_[None, :])[0], self.kernel, self._degree,
+                self._used(self.scale_[None, :])[0],
             )
             cache["loo"] = self.y_train_ - resid
         return cache["loo"].copy()
@@ -287,7 +311,7 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             ``hedgerow.kernels.GAUSSIAN_TRUNCATION`` of their row's maximum are dropped.
         """
         X = check_predict_data(self, X)
-        return self._kernel_rows().weights(X)
+        return self._kernel_rows().weights(self._used(X))
 
     def predict(self, X, return_std=False):
         """Return the smoother's estimate of E[y | x] (and its standard error).
@@ -357,15 +381,23 @@ default="cv"
         A float (or one float per column) is a bandwidth in standard deviations of each
         column (ddof=0; a constant column counts as 1). ``"silverman"`` is Silverman's
         rule of thumb per column. ``"cv"`` minimises the leave-one-out squared error with
-        one bandwidth per column (log grid of common factors, then coordinate-wise
-        refinement; see :func:`hedgerow.kernels.select_bandwidth_cv`).
+        one bandwidth per column (common factors of a rule of thumb, then L-BFGS-B in log
+        bandwidth with the closed-form gradient; a column the response does not depend
+        on gets a flat kernel; see :func:`hedgerow.kernels.select_bandwidth_cv`).
     kernel : {"gaussian", "epanechnikov", "tricube"}, default="gaussian"
         Product kernel over the columns.
 
     Attributes
     ----------
     bandwidth_ : ndarray of shape (n_features,)
-        The bandwidth of each column in the column's own units.
+        The bandwidth of each column in the column's own units; ``inf`` (only from
+        ``"cv"``) where the kernel is flat in the column (Hall, Li & Racine 2007): a
+        local constant fit then ignores it, a local linear fit keeps one global slope
+        in it unless it is also in ``ignored_features_``.
+    ignored_features_ : ndarray of shape (n_features,), bool
+        Columns the fit does not use at all (predictions do not change with them).
+    n_features_used_ : int
+        The number of columns the fit uses.
     scale_ : ndarray of shape (n_features,)
         Column standard deviations used to express ``bandwidth`` in original units.
     cv_curve_ : hedgerow.kernels.CVCurve or None
@@ -410,10 +442,16 @@ class LocalLinearRegressor(_KernelSmoother):
         -------
         ndarray of shape (m, n_features)
             ``d yhat / d x_j`` of the local line at each query (zero where the local
-            design was singular and the fit fell back to the weighted mean).
+            design was singular and the fit fell back to the weighted mean, and in the
+            columns of ``ignored_features_``).
         """
         X = check_predict_data(self, X)
-        return self._local_fit(X)[0].slopes
+        slopes = self._local_fit(X)[0].slopes
+        if slopes.shape[1] == X.shape[1]:
+            return slopes
+        full = np.zeros((X.shape[0], X.shape[1]))
+        full[:, self._columns] = slopes
+        return full
 
 
 # One parameter section for both smoothers, kept in one place.

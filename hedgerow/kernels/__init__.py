@@ -1,12 +1,14 @@
 """Kernel functions, sparse kernel weight matrices, dense weighted sums, bandwidth rules."""
 
 from hedgerow.kernels._bandwidth import (
+    CV_BANDWIDTH_RANGE,
+    CV_FLAT_FROM,
+    CV_FLAT_TOLERANCE,
     CV_GRID_FACTORS,
-    CV_POLISH_ROUNDS,
-    CV_REFINE_STEPS,
     LOO_DIRECT_LEVERAGE,
     CVCurve,
     loo_cv_error,
+    loo_cv_gradient,
     loo_residuals,
     select_bandwidth_cv,
     silverman_bandwidth,
@@ -22,9 +24,10 @@ from hedgerow.kernels._kernels import (
 )
 
 __all__ = [
+    "CV_BANDWIDTH_RANGE",
+    "CV_FLAT_FROM",
+    "CV_FLAT_TOLERANCE",
     "CV_GRID_FACTORS",
-    "CV_POLISH_ROUNDS",
-    "CV_REFINE_STEPS",
     "CVCurve",
     "GAUSSIAN_TRUNCATION",
     "KERNELS",
@@ -34,6 +37,7 @@ __all__ = [
     "kernel_sums",
     "kernel_weights",
     "loo_cv_error",
+    "loo_cv_gradient",
     "loo_residuals",
     "select_bandwidth_cv",
     "silverman_bandwidth",

@@ -29,32 +29,45 @@ from hedgerow.kernels._kernels import (
 from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
 
 __all__ = [
+    "CV_BANDWIDTH_RANGE",
+    "CV_FLAT_FROM",
+    "CV_FLAT_TOLERANCE",
     "CV_GRID_FACTORS",
-    "CV_POLISH_ROUNDS",
-    "CV_REFINE_STEPS",
     "CVCurve",
     "LOO_DIRECT_LEVERAGE",
     "loo_cv_error",
+    "loo_cv_gradient",
     "loo_residuals",
     "select_bandwidth_cv",
     "silverman_bandwidth",
 ]
 
-#: Multiples of the Silverman bandwidths tried in the first, common-factor stage of
-#: :func:`select_bandwidth_cv`.
-CV_GRID_FACTORS = np.geomspace(1.0 / 8.0, 64.0, 28)
+#: Common factors of the rule-of-thumb start walked over (downhill from 1, in steps of
+#: 2) in the first stage of :func:`select_bandwidth_cv`.
+CV_GRID_FACTORS = np.geomspace(1.0 / 16.0, 64.0, 11)
 
-#: Multiplicative steps of the coordinate-wise refinement (2, 2^(1/2), ..., 2^(1/32));
-#: the last fixes the resolution of the selected bandwidths (about 2%).
-CV_REFINE_STEPS = 2.0 ** (2.0 ** -np.arange(0.0, 6.0))
+#: Bandwidths are searched within these multiples of the column scale (s.d.).
+CV_BANDWIDTH_RANGE = (1e-3, 1e3)
 
-#: Newton steps in log bandwidth after the pattern search (see ``_polish``); each after
-#: the first costs 2 d + 1 evaluations.
-CV_POLISH_ROUNDS = 3
+#: Columns whose bandwidth ends above this many column scales are tried with a flat
+#: kernel (bandwidth ``inf``).
+CV_FLAT_FROM = 10.0
 
-# Bandwidths are kept within these multiples of the column scale. The upper end is
-# large enough that a Gaussian factor is flat over the data (the column drops out).
-_H_MIN, _H_MAX = 1e-3, 1e3
+#: A flat kernel (or, for local linear, leaving a flat column out of the local line) is
+#: kept when it raises the leave-one-out error by at most this share.
+CV_FLAT_TOLERANCE = 1e-7
+
+# L-BFGS-B stopping rules on the error relative to the variance of y, in log bandwidth.
+# At most CV_MAX_EVALUATIONS evaluations per quasi-Newton round, CV_REFINE_EVALUATIONS
+# for the re-tuning after columns became flat (it starts next to its optimum).
+CV_MAX_EVALUATIONS = 25
+CV_REFINE_EVALUATIONS = 10
+CV_FTOL = 1e-7
+CV_GTOL = 1e-5
+# Each quasi-Newton round may lower a log bandwidth by at most CV_STEP_DOWN (a factor
+# of 8); a round that ends on that floor starts another, up to CV_ROUNDS in all.
+CV_STEP_DOWN = math.log(8.0)
+CV_ROUNDS = 4
 
 
 def silverman_bandwidth(X) -> np.ndarray:
@@ -90,6 +103,56 @@ def silverman_bandwidth(X) -> np.ndarray:
 LOO_DIRECT_LEVERAGE = 1.0 - 1e-4
 
 
+#: From this many rows on, leave-one-out sums run over the rows within the kernel's reach
+#: along one column only (see ``_reach_windows``).
+CV_WINDOW_FROM = 3000
+
+# Query blocks of the windowed leave-one-out sums (rows sorted along the window column).
+_WINDOW_BLOCK = 256
+
+
+def _reach_windows(X, bandwidth, kernel):
+    """Return ``(order, first, last)`` or None: rows within reach along one column.
+
+    Every weight of a training query beyond ``reach`` bandwidths in any one column is
+    exactly zero: compact kernels beyond 1, the Gaussian beyond ``sqrt(2 ln(1 /
+    GAUSSIAN_TRUNCATION))`` (8.6), where it is truncated (its shift is zero for a
+    training row, its own nearest row). With the rows sorted along the column where the
+    bandwidth is the smallest share of the range (``order``), query ``order[p]`` needs
+    only the sorted rows ``first[p]:last[p]``. None where that would keep most rows.
+    """
+    n = X.shape[0]
+    h = np.asarray(bandwidth, dtype=np.float64)
+    if n < CV_WINDOW_FROM or not np.isfinite(h).any():
+        return None
+    reach = (math.sqrt(-2.0 * math.log(GAUSSIAN_TRUNCATION)) if kernel == "gaussian"
+             else 1.0) * (1.0 + 1e-9)
+    span = np.ptp(X, axis=0)
+    share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
+    c = int(np.argmin(share))
+    if 2.0 * reach * share[c] > 0.8:
+        return None
+    order = np.argsort(X[:, c], kind="stable")
+    xs = X[order, c]
+    first = np.searchsorted(xs, xs - reach * h[c], side="left")
+    last = np.searchsorted(xs, xs + reach * h[c], side="right")
+    return order, first, last
+
+
+def _windowed_sums(X, B, bandwidth, kernel, windows):
+    """Return ``W @ B`` over the training rows as queries, row windows as above."""
+    order, first, last = windows
+    n = X.shape[0]
+    R = np.empty((n, B.shape[1]))
+    Xo, Bo = X[order], B[order]
+    for start in range(0, n, _WINDOW_BLOCK):
+        stop = min(n, start + _WINDOW_BLOCK)
+        lo, hi = first[start], last[stop - 1]
+        rows = KernelRows(Xo[lo:hi], bandwidth, kernel)
+        R[order[start:stop]] = rows.sums(Xo[start:stop], Bo[lo:hi], stable=False)
+    return R
+
+
 def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     """Return ``(resid, fit, leverage, direct, direct_fit)`` of the leave-one-out fits.
 
@@ -109,7 +172,9 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     B, centre = moment_features(X, y, scale, degree=degree) if features is None else features
     rows = KernelRows(X, bandwidth, kernel)
     # one fixed set of queries (the training rows): BLAS products (stable=False)
-    R = rows.sums(X, B, stable=False)
+    windows = _reach_windows(X, bandwidth, kernel)
+    R = (rows.sums(X, B, stable=False) if windows is None
+         else _windowed_sums(X, B, bandwidth, kernel, windows))
     moments = moments_from_sums(R, X, centre, scale, degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
@@ -136,7 +201,8 @@ def _loo_residuals(X, y, bandwidth, kernel, degree, scale, features=None):
 
 
 @numba.njit(cache=True, fastmath={"reassoc", "contract"})
-def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
+def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, first, last,
+                   out):
     """Add ``sum_i factor_i sum_j w_ij a_ij (-e_ij - r_i a_ij) phi(u_ijc)`` to ``out[c]``.
 
     Query ``i`` runs over the training rows (columns of ``XT``, centred and divided by
@@ -146,7 +212,10 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
     ``e_ij = y_j - beta_i^T z_ij`` its residual from that local line, and
     ``phi(u) = -u k'(u) / k(u)`` the derivative of a kernel factor in log bandwidth over
     the factor: ``u^2`` (Gaussian), ``2 u^2 / (1 - u^2)`` (Epanechnikov),
-    ``9 |u|^3 / (1 - |u|^3)`` (tricube).
+    ``9 |u|^3 / (1 - |u|^3)`` (tricube). A query marked ``alone`` (refitted without
+    itself) leaves its own row out and, for the Gaussian, shifts and truncates its
+    weights by its nearest other row, as the refit did. Query ``i`` sums over the rows
+    ``first[i]:last[i]`` only (the rows within the kernel's reach; all for ``alone``).
     """
     d, n = XT.shape
     k = XsT.shape[0]
@@ -156,24 +225,36 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
     for i in range(n):
         if factor[i] == 0.0:
             continue
+        j0, j1 = first[i], last[i]
         if code == 0:
-            w[:] = 0.0
+            for j in range(j0, j1):
+                w[j] = 0.0
             for c in range(d):
                 q = XT[c, i]
                 row = XT[c]
-                for j in range(n):
+                for j in range(j0, j1):
                     t = row[j] - q
                     w[j] += t * t
-            cut = 2.0 * log_cut
-            for j in range(n):
+            sh = 0.0
+            if alone[i]:
+                w[i] = np.inf
+                sh = np.inf
+                for j in range(j0, j1):
+                    sh = min(sh, w[j])
+                if not np.isfinite(sh):
+                    sh = 0.0
+            cut = 2.0 * log_cut + sh
+            for j in range(j0, j1):
                 dist = w[j]
-                w[j] = _exp_nonpositive(max(-0.5 * dist, _EXP_LOWEST)) if dist <= cut else 0.0
+                w[j] = (_exp_nonpositive(max(-0.5 * (dist - sh), _EXP_LOWEST)) if dist <= cut
+                        else 0.0)
         else:
-            w[:] = 1.0
+            for j in range(j0, j1):
+                w[j] = 1.0
             for c in range(d):
                 q = XT[c, i]
                 row = XT[c]
-                for j in range(n):
+                for j in range(j0, j1):
                     t = abs(row[j] - q)
                     if code == 1:
                         f = 1.0 - t * t
@@ -181,31 +262,33 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, out):
                         a = 1.0 - t * t * t
                         f = a * a * a
                     w[j] *= max(f, 0.0)
+            if alone[i]:
+                w[i] = 0.0
         # a_ij and e_ij, accumulated column by column (z_ij = [1, x_j - x_i] / scale)
         a0 = g[i, 0]
         b0 = beta[i, 0]
         r = resid[i]
-        for j in range(n):
+        for j in range(j0, j1):
             v[j] = a0
-        for j in range(n):
+        for j in range(j0, j1):
             e[j] = y[j] - b0
         for c in range(k):
             q = XsT[c, i]
             gc = g[i, 1 + c]
             bc = beta[i, 1 + c]
             row = XsT[c]
-            for j in range(n):
+            for j in range(j0, j1):
                 z = row[j] - q
                 v[j] += gc * z
                 e[j] -= bc * z
-        for j in range(n):
+        for j in range(j0, j1):
             a = v[j]
             v[j] = factor[i] * w[j] * a * (-e[j] - r * a)
         for c in range(d):
             q = XT[c, i]
             row = XT[c]
             acc = 0.0
-            for j in range(n):
+            for j in range(j0, j1):
                 t = row[j] - q
                 t2 = t * t
                 if code == 0:
@@ -250,6 +333,8 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     with np.errstate(divide="ignore", invalid="ignore"):
         factor = resid / (1.0 - leverage)
     r = resid.copy()
+    alone = np.zeros(n, dtype=np.bool_)
+    alone[direct] = True
     if direct.size:
         g[direct] = fd.gram_inv[:, 0, :]
         beta[direct, 0] = fd.intercept
@@ -264,8 +349,20 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     beta[bad] = 0.0
     out = np.zeros(d)
     code = _CODES[kernel]
-    _gradient_sums(XT, XsT, np.ascontiguousarray(y), code, -math.log(GAUSSIAN_TRUNCATION),
-                   g, beta, r, factor, out)
+    windows = _reach_windows(X, h, kernel)
+    if windows is None:
+        first, last = np.zeros(n, dtype=np.int64), np.full(n, n, dtype=np.int64)
+        yy = np.ascontiguousarray(y)
+    else:  # the sums do not depend on the order of the rows: sort them
+        order, first, last = windows
+        XT, XsT = np.ascontiguousarray(XT[:, order]), np.ascontiguousarray(XsT[:, order])
+        g, beta = np.ascontiguousarray(g[order]), np.ascontiguousarray(beta[order])
+        r, factor, alone = r[order], factor[order], alone[order]
+        yy = np.ascontiguousarray(y[order])
+        first, last = first.astype(np.int64), last.astype(np.int64)
+        first[alone], last[alone] = 0, n
+    _gradient_sums(XT, XsT, yy, code, -math.log(GAUSSIAN_TRUNCATION),
+                   g, beta, r, factor, alone, first, last, out)
     out *= 2.0 / n
     out[np.isinf(h)] = 0.0
     return out
@@ -349,12 +446,18 @@ class CVCurve:
     grid_loo_error : ndarray of shape (G,)
         Leave-one-out mean squared error at each grid point (``inf`` where undefined).
     path_bandwidth : ndarray of shape (T, d)
-        Second stage: every bandwidth vector tried by the coordinate-wise refinement.
+        Later stages: every bandwidth vector evaluated by the quasi-Newton search and the
+        flat-column checks (``inf`` where a column's kernel was made flat).
     path_loo_error : ndarray of shape (T,)
     bandwidth : ndarray of shape (d,)
-        The selected bandwidths.
+        The selected bandwidths; ``inf`` for a column the kernel is flat in.
     loo_error : float
-        Leave-one-out error at ``bandwidth``.
+        Leave-one-out error at ``bandwidth`` (and without the ``ignored`` columns).
+    ignored : ndarray of shape (d,), bool
+        Columns the selected smoother does not use at all. For local constant fits these
+        are the columns with an infinite bandwidth; a local linear fit keeps such a
+        column as one global slope unless leaving it out of the local line too does not
+        raise the error (then it is ignored).
     """
 
     grid_bandwidth: np.ndarray
@@ -364,6 +467,7 @@ class CVCurve:
     path_loo_error: np.ndarray
     bandwidth: np.ndarray
     loo_error: float
+    ignored: np.ndarray
 
 
 def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
@@ -371,14 +475,19 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
     """Return the bandwidths minimising leave-one-out CV, one per column, with the search.
 
     Stage 1 evaluates :data:`CV_GRID_FACTORS` times the Silverman bandwidths (a common
-    factor, log grid). Stage 2 refines each column's bandwidth in turn by a pattern
-    search in log scale with the steps :data:`CV_REFINE_STEPS`, sweeping over the
-    columns until no step improves. Stage 3 takes up to :data:`CV_POLISH_ROUNDS` Newton
-    steps in log bandwidth from the parabolas through each column's neighbours, below
-    the pattern's 2% resolution (the selected bandwidths then agree with a continuous
-    optimiser's to about 0.1%). Per-column bandwidths matter: a column the response does
-    not depend on can take a large bandwidth and drop out instead of forcing all columns
-    to a common compromise.
+    factor, log grid), so that the next stage starts near the right overall scale and
+    not in a poor local minimum. Stage 2 minimises the error over all log bandwidths at
+    once by L-BFGS-B (``scipy.optimize.minimize``) from the best grid point, with the
+    closed-form gradient of :func:`loo_cv_gradient` (one weighted-sum pass more per
+    evaluation, however many columns), within :data:`CV_BANDWIDTH_RANGE` column scales.
+    Stage 3 makes the kernel flat (bandwidth ``inf``) in every column whose bandwidth
+    ended above :data:`CV_FLAT_FROM` column scales, where that raises the error by at
+    most :data:`CV_FLAT_TOLERANCE` (relative): a column the response does not depend on
+    drifts to large bandwidths and drops out of the kernel (Hall, Li & Racine 2007,
+    *Review of Economics and Statistics* 89(4)). A local linear fit then still has a
+    global slope in such a column; it is left out of the local line too where that does
+    not raise the error by more than the same tolerance (``CVCurve.ignored``). Stage 4
+    re-tunes the remaining finite bandwidths by L-BFGS-B once columns became flat.
 
     Parameters
     ----------
@@ -399,100 +508,251 @@ def select_bandwidth_cv(X, y, kernel: str = "gaussian", degree: int = 0, *,
 
     X = np.asarray(X, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64).ravel()
-    d = X.shape[1]
-    scale = default_scale(X)
-    features = moment_features(X, y, scale, degree=degree)  # the same for every bandwidth
-    base = silverman_bandwidth(X)
-    lo, hi = _H_MIN * scale, _H_MAX * scale
-    seen: dict[tuple, float] = {}
-    path_h: list[np.ndarray] = []
-    path_e: list[float] = []
-
+    _check_kernel(kernel)
     label = "local linear" if degree else "Nadaraya-Watson"
     bar = progress_bar(None, f"{label} bandwidths (leave-one-out CV)", progress)
-
-    def evaluate(h, record=True):
-        key = tuple(np.round(np.log(h), 12))
-        if key not in seen:
-            resid = _loo_residuals(X, y, h, kernel, degree, scale, features)
-            ok = np.all(np.isfinite(resid))
-            seen[key] = float(np.mean(resid**2)) if ok else np.inf
-            bar.update(1)
-            if record:
-                path_h.append(h.copy())
-                path_e.append(seen[key])
-        return seen[key]
-
     try:
-        return _search(base, lo, hi, d, evaluate, path_h, path_e)
+        with _one_blas_thread():
+            return _Search(X, y, kernel, degree, bar).run()
     finally:
         bar.close()
 
 
-def _search(base, lo, hi, d, evaluate, path_h, path_e):
-    """Grid over a common factor, then per-column pattern search (see the caller)."""
-    grid_h = np.clip(CV_GRID_FACTORS[:, None] * base[None, :], lo, hi)
-    grid_e = np.array([evaluate(h, record=False) for h in grid_h])
-    best = int(np.argmin(grid_e))
-    h = grid_h[best].copy()
-    err = grid_e[best]
-    if np.isfinite(err):
-        for factor in CV_REFINE_STEPS:
-            for _sweep in range(8):
-                moved = False
-                for j in range(d):
-                    for direction in (factor, 1.0 / factor):
-                        while True:
-                            trial = h.copy()
-                            trial[j] = np.clip(h[j] * direction, lo[j], hi[j])
-                            if trial[j] == h[j]:
-                                break
-                            e = evaluate(trial)
-                            if e < err:
-                                h, err, moved = trial, e, True
-                            else:
-                                break
-                if not moved:
-                    break
-        for _round in range(CV_POLISH_ROUNDS):
-            h, improved = _polish(h, err, lo, hi, CV_REFINE_STEPS[-1], evaluate)
-            if improved >= err:
-                break
-            err = improved
-    return CVCurve(
-        grid_bandwidth=grid_h,
-        grid_factor=CV_GRID_FACTORS.copy(),
-        grid_loo_error=grid_e,
-        path_bandwidth=np.array(path_h).reshape(-1, d),
-        path_loo_error=np.array(path_e),
-        bandwidth=h,
-        loo_error=float(err),
-    )
+def _one_blas_thread():
+    """Return a context running BLAS on one thread.
 
-
-def _polish(h, err, lo, hi, step, evaluate):
-    """Return ``(h, err)`` after one Newton step in log bandwidth, if it lowers the error.
-
-    Each column's errors at ``h / step``, ``h`` and ``h * step`` (the pattern search's
-    last sweep evaluated them, so they come from its cache) give a parabola in
-    ``log h_j``; all columns move to their vertices at once (cross terms ignored, each
-    move at most one step). This takes the bandwidths below the pattern's resolution
-    (about 2%) where the objective is smooth.
+    The search's products are small (a block of about 64 queries times n rows times a
+    few dozen features): with two threads on a busy two-core machine one of them waits
+    for a core, and a product measured 40x slower than single-threaded.
     """
-    delta = np.log(step)
-    move = np.zeros(h.shape[0])
-    for j in range(h.shape[0]):
-        up, down = h.copy(), h.copy()
-        up[j] = min(h[j] * step, hi[j])
-        down[j] = max(h[j] / step, lo[j])
-        if up[j] == h[j] or down[j] == h[j]:
-            continue  # at a bound of the search
-        e_up, e_down = evaluate(up), evaluate(down)
-        curvature = e_up - 2.0 * err + e_down
-        if np.isfinite(curvature) and curvature > 0.0:
-            move[j] = np.clip(0.5 * delta * (e_down - e_up) / curvature, -delta, delta)
-    if not move.any():
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+class _Search:
+    """The three stages of :func:`select_bandwidth_cv`, with one cache of evaluations."""
+
+    def __init__(self, X, y, kernel, degree, bar):
+        self.X, self.y, self.kernel, self.degree, self.bar = X, y, kernel, degree, bar
+        self.d = X.shape[1]
+        self.scale = default_scale(X)
+        self.features = moment_features(X, y, self.scale, degree=degree)
+        self.base = silverman_bandwidth(X)
+        self.lo, self.hi = CV_BANDWIDTH_RANGE[0] * self.scale, CV_BANDWIDTH_RANGE[1] * self.scale
+        # the objective handed to the optimiser is relative to the variance of y
+        spread = float(np.var(y)) if y.size else 0.0
+        self.unit = spread if spread > 0 else 1.0
+        self.seen: dict[bytes, tuple[float, np.ndarray | None]] = {}
+        self.path_h: list[np.ndarray] = []
+        self.path_e: list[float] = []
+        self.drop_results: dict[bytes, float] = {}
+
+    def evaluate(self, h, gradient=False, record=True):
+        """Return ``(error, gradient or None)`` at ``h``; each new evaluation is a step."""
+        key = np.asarray(h, dtype=np.float64).tobytes()
+        hit = self.seen.get(key)
+        if hit is not None and (hit[1] is not None or not gradient):
+            return hit
+        parts = _loo_parts(self.X, self.y, h, self.kernel, self.degree, self.scale,
+                           self.features)
+        resid = parts[0]
+        if np.all(np.isfinite(resid)):
+            err = float(np.mean(resid**2))
+            grad = (_loo_gradient(self.X, self.y, h, self.kernel, self.degree, self.scale,
+                                  parts) if gradient else None)
+        else:
+            err, grad = np.inf, (np.zeros(self.d) if gradient else None)
+        self.seen[key] = (err, grad)
+        self.bar.update(1)
+        if record:
+            self.path_h.append(np.array(h, dtype=np.float64))
+            self.path_e.append(err)
+        return err, grad
+
+    def evaluate_without(self, h, drop):
+        """Return the error with the columns ``drop`` left out entirely (one step)."""
+        key = np.asarray(drop).tobytes() + np.asarray(h, dtype=np.float64).tobytes()
+        if key not in self.drop_results:
+            keep = ~drop
+            Xk = np.ascontiguousarray(self.X[:, keep])
+            resid = _loo_residuals(Xk, self.y, h[keep], self.kernel, self.degree,
+                                   self.scale[keep])
+            self.drop_results[key] = (float(np.mean(resid**2)) if np.all(np.isfinite(resid))
+                                      else np.inf)
+            self.bar.update(1)
+            self.path_h.append(np.where(drop, np.inf, h))
+            self.path_e.append(self.drop_results[key])
+        return self.drop_results[key]
+
+    def start(self):
+        """Return the rule-of-thumb start: the normal reference rule in d dimensions.
+
+        ``spread_j * (4 / (d + 2)) ** (1 / (d + 4)) * n ** (-1 / (d + 4))`` with
+        Silverman's robust spread (Silverman 1986, eq. 4.14, per column): Silverman's
+        one-dimensional rule is far too narrow for a product kernel over many columns.
+        """
+        n, d = self.X.shape
+        spread = self.base / (0.9 * max(n, 1) ** (-0.2))
+        return spread * (4.0 / (d + 2.0)) ** (1.0 / (d + 4.0)) * max(n, 1) ** (-1.0 / (d + 4.0))
+
+    def common_factor(self, start):
+        """Stage 1: walk over common factors of ``start`` in steps of 2, downhill."""
+        factors = CV_GRID_FACTORS
+        errors = np.full(factors.size, np.nan)
+        origin = int(np.argmin(np.abs(np.log(factors))))  # the factor 1
+
+        def at(i):
+            if np.isnan(errors[i]):
+                h = np.clip(factors[i] * start, self.lo, self.hi)
+                errors[i] = self.evaluate(h, record=False)[0]
+            return errors[i]
+
+        best = origin
+        for step in (1, -1):
+            i = origin
+            while 0 <= i + step < factors.size and at(i + step) < at(i):
+                i += step
+            if at(i) < at(best):
+                best = i
+            if i != origin:
+                break  # moved downhill one way: the other way is uphill
+        done = ~np.isnan(errors)
+        grid_h = np.clip(factors[done, None] * start[None, :], self.lo, self.hi)
+        return grid_h, factors[done], errors[done]
+
+    def run(self):
+        grid_h, grid_f, grid_e = self.common_factor(self.start())
+        best = int(np.argmin(grid_e))
+        h, err = grid_h[best].copy(), float(grid_e[best])
+        ignored = np.zeros(self.d, dtype=bool)
+        if np.isfinite(err):
+            penalty = 10.0 * err / self.unit  # stands in for an undefined error
+
+            def objective(theta):
+                e, g = self.evaluate(np.exp(theta), gradient=True)
+                if not np.isfinite(e):
+                    return penalty, -np.ones(self.d) * penalty
+                return e / self.unit, g / self.unit
+
+            log_lo, log_hi = np.log(self.lo), np.log(self.hi)
+            for _round in range(CV_ROUNDS):
+                # A box below the start keeps the first steps from jumping into the
+                # nearest-neighbour plateau of tiny bandwidths; upward moves are free.
+                floor = np.maximum(np.log(h) - CV_STEP_DOWN, log_lo)
+                res = self._quasi_newton(objective, np.log(h), floor, log_hi)
+                h, err = self._best(h, err)
+                if not np.any((res.x <= floor + 1e-9) & (floor > log_lo)):
+                    break
+            h, err, ignored = self._flatten(h, err)
+            refined, err = self._refine(h, err, ignored)
+            if not np.array_equal(refined, h):  # re-tuned columns may have widened
+                h, err, more = self._flatten(refined, err, ignored)
+                ignored |= more
+        return CVCurve(
+            grid_bandwidth=grid_h,
+            grid_factor=grid_f,
+            grid_loo_error=grid_e,
+            path_bandwidth=np.array(self.path_h).reshape(-1, self.d),
+            path_loo_error=np.array(self.path_e),
+            bandwidth=h,
+            loo_error=float(err),
+            ignored=ignored,
+        )
+
+    def _quasi_newton(self, objective, theta, lo, hi, budget=None):
+        from scipy.optimize import minimize
+
+        return minimize(objective, theta, jac=True, method="L-BFGS-B",
+                        bounds=list(zip(lo, hi, strict=True)),
+                        options={"maxfun": budget or CV_MAX_EVALUATIONS, "ftol": CV_FTOL,
+                                 "gtol": CV_GTOL})
+
+    def _refine(self, h, err, ignored):
+        """Stage 4: once columns are flat or dropped, re-tune the others' bandwidths.
+
+        Their best values move when a flat column leaves the local line. One L-BFGS-B
+        run over the finite bandwidths of the remaining columns, from ``h``.
+        """
+        keep = ~ignored
+        tune = np.isfinite(h)[keep]
+        if tune.all() and keep.all() or not tune.any():
+            return h, err
+        sub = _Search(np.ascontiguousarray(self.X[:, keep]), self.y, self.kernel,
+                      self.degree, self.bar)
+        hk = h[keep].copy()
+        penalty = 10.0 * err / self.unit
+
+        def objective(theta):
+            trial = hk.copy()
+            trial[tune] = np.exp(theta)
+            e, g = sub.evaluate(trial, gradient=True)
+            if not np.isfinite(e):
+                return penalty, -np.ones(theta.size) * penalty
+            return e / self.unit, g[tune] / self.unit
+
+        theta = np.log(hk[tune])
+        self._quasi_newton(objective, theta, np.maximum(theta - CV_STEP_DOWN,
+                                                        np.log(sub.lo[tune])),
+                           np.log(sub.hi[tune]), CV_REFINE_EVALUATIONS)
+        for trial, e in zip(sub.path_h, sub.path_e, strict=True):
+            full = np.where(ignored, np.inf, h)
+            full[keep] = trial
+            self.path_h.append(full)
+            self.path_e.append(e)
+            if e < err:
+                h, err = np.where(ignored, h, full), e
         return h, err
-    trial = np.clip(h * np.exp(move), lo, hi)
-    e = evaluate(trial)
-    return (trial, e) if e < err else (h, err)
+
+    def _best(self, h, err):
+        """Return the best evaluated point of the quasi-Newton stage (or ``h``)."""
+        if self.path_e:
+            i = int(np.argmin(self.path_e))
+            if self.path_e[i] < err:
+                return self.path_h[i].copy(), self.path_e[i]
+        return h, err
+
+    def _accept(self, trial_err, err):
+        return trial_err <= err * (1.0 + CV_FLAT_TOLERANCE)
+
+    def _flatten(self, h, err, ignored=None):
+        """Stage 3: flat kernels in wide columns, then (local linear) drop them.
+
+        ``ignored``: columns already left out (a second pass after stage 4).
+        """
+        before = np.zeros(self.d, dtype=bool) if ignored is None else ignored
+        wide = np.flatnonzero((h >= CV_FLAT_FROM * self.scale) & np.isfinite(h) & ~before)
+        if wide.size:
+            trials = [wide] + ([[j] for j in wide] if wide.size > 1 else [])
+            for cols in trials:
+                if np.isinf(h[cols]).all():
+                    continue
+                trial = h.copy()
+                trial[cols] = np.inf
+                e = (self.evaluate_without(trial, before) if before.any()
+                     else self.evaluate(trial)[0])
+                if self._accept(e, err):
+                    h, err = trial, e
+                    if cols is wide:
+                        break
+        flat = np.isinf(h) & ~before
+        ignored = before.copy()
+        if not flat.any():
+            return h, err, ignored
+        if self.degree == 0:
+            return h, err, flat | before
+        if (flat | before).all():  # a flat kernel's local line is one global line: keep it
+            return h, err, ignored
+        cols = np.flatnonzero(flat)
+        trials = [cols] + ([[j] for j in cols] if cols.size > 1 else [])
+        for group in trials:
+            drop = ignored.copy()
+            drop[group] = True
+            if drop.all() or (drop == ignored).all():
+                continue
+            e = self.evaluate_without(h, drop)
+            if self._accept(e, err):
+                ignored, err = drop, e
+                if group is cols:
+                    break
+        return h, err, ignored
