@@ -112,9 +112,13 @@ class ProbeReport(ReportMixin):
                 f"{100 * self.top_share:.0f}% of the weight; {100 * self.level:.0f}% intervals"]
 
 
-def _method_entry(name, w, pred, std, slopes, slope_se, level):
+def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None):
+    # ``interval``: the estimator's own (lower, upper) where it has a default interval
+    # method of its own (the forests' bias-corrected one); otherwise mean -/+ z * std
     if std is None or not np.isfinite(std):
         lo = hi = np.nan
+    elif interval is not None:
+        lo, hi = (float(np.asarray(v).ravel()[0]) for v in interval)
     else:
         lo, hi = normal_interval(pred, std, level)
     w = sp.csr_matrix(w)
@@ -169,14 +173,20 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
             slope_se = np.full(k, np.nan)
         else:
             std, slope_se = float(std[0]), slope_se[0]
+        # the interval is the estimator's default method (the one that covers), not
+        # prediction -/+ z * std
         methods.append(_method_entry(
-            "local linear forest", W, fit.intercept[0], std, fit.slopes[0], slope_se, level
+            "local linear forest", W, fit.intercept[0], std, fit.slopes[0], slope_se, level,
+            interval=model.predict_interval(q, level=level) if bags else None,
         ))
     avg = model.local_average(q, return_std=bags)
     mean, std = (avg[0][0], float(avg[1][0])) if bags else (avg[0], None)
+    # the same-trees row of a local linear forest is a diagnostic: its CLT interval;
+    # an honest forest's own row takes its default interval
+    own = bags and not is_llf
     methods.append(_method_entry(
         "honest forest (same trees)", W, mean, std, np.full(k, np.nan), np.full(k, np.nan),
-        level,
+        level, interval=model.predict_interval(q, level=level) if own else None,
     ))
     for smoother in compare:
         qs = q if fitted_columns(smoother) == q.columns else xq

@@ -126,7 +126,13 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         Q = checked_rows(Q, first, "grid")  # checked once for every model below
         for name, model in pairs:
             # kernel smoothers always give intervals, forests with little bags only
-            if not hasattr(model, "trees_per_bag_") or has_little_bags(model):
+            forest = hasattr(model, "trees_per_bag_")
+            if forest and has_little_bags(model) and hasattr(model, "interval_parts"):
+                # a forest's default interval (bias-corrected: the one that covers)
+                pred = model.predict(Q)
+                lo, hi = model.predict_interval(Q, level=level)
+            elif not forest or has_little_bags(model):
+                # smoothers, and the same-trees local average (a diagnostic): CLT
                 pred, std = model.predict(Q, return_std=True)
                 lo, hi = normal_interval(pred, std, level)
             else:  # a forest without little bags: no intervals

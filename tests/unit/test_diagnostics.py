@@ -45,7 +45,7 @@ def test_probe_matches_direct_computation(data, llf):
     assert rep.neighbour_offset[0] < 0
     llf_row = rep.method("local linear forest")
     assert llf_row.prediction == pytest.approx(llf.predict(x[None, :])[0], rel=1e-12)
-    lo, hi = llf.predict_interval(x[None, :], method="clt")  # views show the CLT interval
+    lo, hi = llf.predict_interval(x[None, :])  # views show the default interval
     assert llf_row.lower == pytest.approx(lo[0]) and llf_row.upper == pytest.approx(hi[0])
     np.testing.assert_allclose(llf_row.slopes, llf.local_slopes(x[None, :])[0])
     assert np.all(llf_row.slope_se > 0)
@@ -82,8 +82,9 @@ def test_slice_at_grid_point_equals_predict(data, llf):
         Q = np.repeat(x[None, :], grid.size, axis=0)
         Q[:, 0] = grid
         np.testing.assert_allclose(part["prediction"], model.predict(Q), atol=1e-12)
-        lo, hi = model.predict_interval(Q, method="clt")
+        lo, hi = model.predict_interval(Q)  # the default (bias-corrected) interval
         np.testing.assert_allclose(part["lower"], lo, atol=1e-12)
+        np.testing.assert_allclose(part["upper"], hi, atol=1e-12)
 
 
 def test_partial_dependence_is_mean_over_background(data, llf):
