@@ -51,14 +51,6 @@ def resolve_feature(model, feature) -> int:
     )
 
 
-def _as_models(models):
-    if isinstance(models, dict):
-        return list(models.items())
-    if hasattr(models, "predict"):
-        models = [models]
-    return [(method_label(m), m) for m in models]
-
-
 def _frame_like(model, X):
     names = getattr(model, "feature_names_in_", None)
     return pd.DataFrame(X, columns=list(names)) if names is not None else X
@@ -111,13 +103,22 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         up to ``max_background`` training rows of the first model).
     level : interval level.
     """
-    pairs = _as_models(models)
-    if not pairs:
-        raise ValueError("The 'models' parameter must hold at least one fitted model.")
+    from hedgerow._validation import check_level
+    from hedgerow.diagnostics._checks import check_models, check_rows, check_values
+
+    pairs = check_models(models, "models", kinds=None)
     first = pairs[0][1]
+    d = first.n_features_in_
+    for name, model in pairs[1:]:
+        if model.n_features_in_ != d:
+            raise ValueError(
+                f"The 'models' parameter must hold models fitted on the same columns ({d}). "
+                f"Got {name!r} fitted on {model.n_features_in_} columns instead."
+            )
+    level = check_level(level)
     xq = check_probe_point(first, x)[0]
     j = resolve_feature(first, feature)
-    grid = np.asarray(grid, dtype=np.float64).ravel()
+    grid = check_values("grid", grid)
     if grid.size == 0:
         raise ValueError("The 'grid' parameter must hold at least one value. Got an empty grid.")
     if not np.all(np.isfinite(grid)):
@@ -138,13 +139,18 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
                 lo = hi = np.full(grid.size, np.nan)
             rows.append((name, grid, np.asarray(pred, dtype=np.float64), lo, hi))
     else:
+        if background is None and not hasattr(first, "X_train_"):
+            raise ValueError(
+                f"The 'background' parameter is needed for average=True with "
+                f"{type(first).__name__} (it keeps no training rows). Got None instead."
+            )
         if background is None:
             Xb = first.X_train_
             if Xb.shape[0] > max_background:
                 rng = np.random.default_rng(random_state)
                 Xb = Xb[rng.choice(Xb.shape[0], max_background, replace=False)]
         else:
-            Xb = np.asarray(background, dtype=np.float64)
+            Xb = check_rows("background", background, n_features=d)
         nb = Xb.shape[0]
         Q = np.tile(Xb, (grid.size, 1))
         Q[:, j] = np.repeat(grid, nb)
