@@ -176,3 +176,141 @@ def test_auto_penalty_needs_out_of_bag_rows(data, llf):
     LocalLinearForestRegressor(n_estimators=10, subsample_rate=1.0, trees_per_bag=1,
                                ridge_penalty=0.1).fit(X, y)
     np.testing.assert_array_equal(llf.predict(X[:5]), before)
+
+
+# -- input data ----------------------------------------------------------------------------
+@pytest.mark.parametrize("make", [
+    lambda n: pd.date_range("2024-01-01", periods=n, freq="D"),
+    lambda n: pd.date_range("2024-01-01", periods=n, freq="h", tz="UTC"),
+    lambda n: pd.to_timedelta(np.arange(n), unit="s"),
+    lambda n: pd.period_range("2024-01", periods=n, freq="M"),
+], ids=["datetime", "datetime-tz", "timedelta", "period"])
+@pytest.mark.parametrize("cls", [HonestForestRegressor, LocalLinearForestRegressor,
+                                 NadarayaWatsonRegressor])
+def test_date_columns_are_named(data, make, cls):
+    X, y = data
+    frame = pd.DataFrame(X, columns=["a", "b", "c"])
+    frame["when"] = make(len(frame))
+    with pytest.raises(ValueError, match="Column 'when' of X must hold numbers. Got dates"):
+        cls().fit(frame, y)
+
+
+def test_date_column_at_predict_is_named(data, forest):
+    X, _ = data
+    frame = pd.DataFrame(X, columns=["a", "b", "c"])
+    fitted = HonestForestRegressor(n_estimators=10, random_state=0).fit(frame, data[1])
+    frame["b"] = pd.date_range("2024-01-01", periods=len(frame), freq="D")
+    with pytest.raises(ValueError, match="Column 'b' of X must hold numbers. Got dates"):
+        fitted.predict(frame)
+
+
+# -- snapshots -----------------------------------------------------------------------------
+def test_snapshot_of_other_rows_is_refused(data, llf):
+    from hedgerow.snapshot import Snapshot, SnapshotDataMismatch
+
+    X, y = data
+    with pytest.raises(SnapshotDataMismatch, match="fitted on 120 rows, got 50 rows"):
+        Snapshot.from_model(llf, X[:50], y[:50])
+    y2 = y.copy()
+    y2[3] += 1.0
+    with pytest.raises(SnapshotDataMismatch, match="120 rows with other values"):
+        Snapshot.from_model(llf, X, y2)
+    # the training rows as a frame are the same rows
+    snap = Snapshot.from_model(llf, pd.DataFrame(X), pd.Series(y))
+    assert snap.data.n_rows == 120
+
+
+def test_deeply_nested_snapshot_is_a_snapshot_error(tmp_path):
+    from hedgerow.snapshot import Snapshot, SnapshotError
+
+    path = tmp_path / "deep.json"
+    path.write_text("[" * 100_000 + "]" * 100_000, encoding="utf-8")
+    with pytest.raises(SnapshotError, match="nested too deeply"):
+        Snapshot.load(path)
+    nested = []
+    for _ in range(100_000):
+        nested = [nested]
+    with pytest.raises(SnapshotError):
+        Snapshot.from_dict({"format": nested})
+
+
+def test_snapshot_save_to_unwritable_place_names_the_path(data, llf, tmp_path):
+    import os
+
+    from hedgerow.snapshot import Snapshot
+
+    if os.geteuid() == 0:
+        pytest.skip("root can write into a read-only folder")
+    X, y = data
+    snap = Snapshot.from_model(llf, X, y)
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    target = locked / "review.json"
+    os.chmod(locked, 0o500)
+    try:
+        with pytest.raises(PermissionError) as info:
+            snap.save(target)
+    finally:
+        os.chmod(locked, 0o700)
+    assert str(target) in str(info.value)
+    assert ".tmp" not in str(info.value)
+    assert list(locked.iterdir()) == []
+
+
+def test_snapshot_save_failure_names_the_given_path_not_the_temp_file(data, llf, tmp_path,
+                                                                      monkeypatch):
+    # the same failure injected (works as root too): the OS names the temporary file
+    import hedgerow.snapshot as snapshot_module
+    from hedgerow.snapshot import Snapshot
+
+    X, y = data
+    snap = Snapshot.from_model(llf, X, y)
+    target = tmp_path / "review.json"
+    snap.save(target)
+    before = target.read_bytes()
+
+    def refuse(prefix, suffix, dir):
+        raise PermissionError(13, "Permission denied", f"{dir}/{prefix}x1y2{suffix}")
+
+    monkeypatch.setattr(snapshot_module.tempfile, "mkstemp", refuse)
+    with pytest.raises(PermissionError) as info:
+        snap.save(target)
+    assert str(target) in str(info.value) and "Permission denied" in str(info.value)
+    assert ".tmp" not in str(info.value)
+    assert target.read_bytes() == before
+
+
+# -- command line --------------------------------------------------------------------------
+def _csv(tmp_path, text):
+    path = tmp_path / "t.csv"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_cli_duplicated_header_is_caught_before_pandas_renames_it(tmp_path, capsys):
+    from hedgerow import cli
+
+    rows = "\n".join(f"{i},{i * 0.5},{i % 7}" for i in range(60))
+    path = _csv(tmp_path, "u,u,y\n" + rows + "\n")
+    code = cli.main(["report", str(path), "--target", "y", "--quiet",
+                     "--out", str(tmp_path / "r.html")])
+    err = capsys.readouterr().err
+    assert code == cli.EXIT_USAGE
+    assert "repeated column names: 'u'" in err
+    # "u" and a genuine "u.1" are different names
+    path = _csv(tmp_path, "u,u.1,y\n" + rows + "\n")
+    X, _ = cli.read_table(path, "y")
+    assert list(X.columns) == ["u", "u.1"]
+
+
+def test_cli_constant_target_exits_non_zero(tmp_path, capsys):
+    from hedgerow import cli
+
+    rows = "\n".join(f"{i},{(i * 37) % 11},4.5" for i in range(120))
+    path = _csv(tmp_path, "a,b,y\n" + rows + "\n")
+    out = tmp_path / "r.html"
+    code = cli.main(["report", str(path), "--target", "y", "--quiet", "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == cli.EXIT_USAGE
+    assert "target column 'y' is constant" in err and "nothing to smooth" in err
+    assert not out.exists()
