@@ -26,7 +26,11 @@ from hedgerow._validation import (
 from hedgerow.forest import RULE_MEAN, grow_forest, plan_samples, subsample_size
 from hedgerow.inference import little_bags_variance, normal_interval
 
-__all__ = ["HonestForestRegressor", "resolve_trees_per_bag"]
+__all__ = ["HonestForestRegressor", "TinyDataWarning", "resolve_trees_per_bag"]
+
+
+class TinyDataWarning(UserWarning):
+    """The data are too few for any tree to split; every tree is a single leaf."""
 
 # Bags much larger than this gain little (VARIANCE-NOTES: any l within a factor two of the
 # optimum 1 + W/V costs at most ~15% extra variance, and W/V was 33-66 here).
@@ -103,14 +107,17 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         s = subsample_size(n, self.subsample_rate, l)
         n_grow = s // 2 if self.honest else s
         n_fill = s - n_grow if self.honest else s
-        if min(n_grow, n_fill) < self.min_samples_leaf:
-            raise ValueError(
-                f"Too few rows for the leaf constraint: with n={n} rows, "
-                f"subsample_rate={self.subsample_rate}, trees_per_bag={l} and "
-                f"honest={self.honest}, a tree has {n_grow} rows to place splits and "
-                f"{n_fill} to fill leaves, but 'min_samples_leaf' is "
-                f"{self.min_samples_leaf}; each part needs at least min_samples_leaf rows. "
-                f"Use more rows, a larger subsample_rate or a smaller min_samples_leaf."
+        if min(n_grow, n_fill) < 2 * self.min_samples_leaf:
+            # as scikit-learn's trees do: a node that cannot meet the leaf constraint stays
+            # a leaf; here no tree can split at all, which is said rather than hidden
+            warnings.warn(
+                f"Too few rows to split: with n={n} rows, subsample_rate="
+                f"{self.subsample_rate}, trees_per_bag={l} and honest={self.honest}, a tree "
+                f"has {n_grow} rows to place splits and {n_fill} to fill leaves, but a split "
+                f"needs 2 * min_samples_leaf = {2 * self.min_samples_leaf} of each. Every "
+                f"tree is a single leaf (the forest averages its rows). Use more rows, a "
+                f"larger subsample_rate or a smaller min_samples_leaf.",
+                TinyDataWarning, stacklevel=4,
             )
         return l, mtry, s
 
