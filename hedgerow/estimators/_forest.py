@@ -188,6 +188,21 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             )
         return bad
 
+    def _warn_missing_std(self, mean, std, what: str):
+        """Warn about rows with a finite prediction but no standard error (NaN)."""
+        lost = np.isfinite(mean) & ~np.isfinite(std)
+        if np.any(lost):
+            warnings.warn(
+                f"{int(lost.sum())} of {lost.size} {what} have a prediction but no "
+                f"standard error (NaN): their out-of-bag trees lie in fewer than two little "
+                f"bags with two or more such trees (a row is in-bag for every tree of a bag "
+                f"whose sample holds it), and the between-bag variance needs two. Use more "
+                f"trees (more bags) or a smaller subsample_rate.",
+                RuntimeWarning,
+                stacklevel=3,
+            )
+        return lost
+
     def _require_bags(self):
         if self.trees_per_bag_ < 2:
             raise ValueError(
@@ -246,7 +261,9 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         leaves, usable = self._oob_parts()
         self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
         if return_std:
-            return self._predict_from_leaves(leaves, usable, True)
+            mean, std = self._predict_from_leaves(leaves, usable, True)
+            self._warn_missing_std(mean, std, "training rows (out-of-bag)")
+            return mean, std
         cache = self._fit_cache
         if "oob average" not in cache:
             cache["oob average"] = self._predict_from_leaves(leaves, usable, False)

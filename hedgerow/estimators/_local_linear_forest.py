@@ -34,6 +34,7 @@ from hedgerow.local import (
     moments_from_sums,
     solve_local,
     standardise,
+    warn_fallback,
 )
 
 __all__ = ["LocalLinearForestRegressor", "RIDGE_GRID", "SPLIT_PENALTY_AUTO"]
@@ -428,6 +429,7 @@ class LocalLinearForestRegressor(_ForestBase):
             self._require_bags()
         leaves, W, mom = self._query_state(X)
         fit = self._solve(mom, lam)
+        warn_fallback(fit, "local linear forest")
         if not return_std:
             return fit.intercept
         var = self._std(leaves, None, W, X[:, self.correction_features_], fit)
@@ -498,4 +500,5 @@ class LocalLinearForestRegressor(_ForestBase):
         if not return_std:
             return fit.intercept
         var = self._std(leaves, usable, W, self._Xc, fit)
+        self._warn_missing_std(fit.intercept, var.std, "training rows (out-of-bag)")
         return fit.intercept, var.std

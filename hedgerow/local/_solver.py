@@ -46,6 +46,7 @@ import scipy.sparse as sp
 
 __all__ = [
     "COLLINEARITY_RCOND",
+    "LocalConstantFallbackWarning",
     "LocalFit",
     "LocalMoments",
     "binary_scale",
@@ -57,6 +58,7 @@ __all__ = [
     "moments_from_sums",
     "solve_local",
     "standardise",
+    "warn_fallback",
 ]
 
 #: Reciprocal condition number of the local correlation matrix of the correction columns
@@ -143,6 +145,30 @@ class LocalFit:
     gram_inv: np.ndarray
     fallback: np.ndarray
     ridge_penalty: float
+
+
+class LocalConstantFallbackWarning(RuntimeWarning):
+    """Some queries of a local linear fit got the local constant fit instead."""
+
+
+def warn_fallback(fit: LocalFit, what: str, stacklevel: int = 3) -> int:
+    """Warn once, with the count and the reason, if any query of ``fit`` fell back.
+
+    Returns the number of queries flagged in ``fit.fallback``.
+    """
+    count = int(np.count_nonzero(fit.fallback))
+    if count:
+        k = fit.slopes.shape[1] if fit.slopes.ndim == 2 else 0
+        warnings.warn(
+            f"{count} of {fit.fallback.size} queries of the {what} got the local constant "
+            f"(Nadaraya-Watson) fit instead of a local line: their neighbourhood does not "
+            f"support a line in {k} column(s) (too few distinct neighbours, or the columns "
+            f"collinear there). The flags are in local_fit(X).fallback; use fewer columns "
+            f"or a wider neighbourhood (larger bandwidth / leaves).",
+            LocalConstantFallbackWarning,
+            stacklevel=stacklevel,
+        )
+    return count
 
 
 def _binary_magnitude(values) -> np.ndarray:

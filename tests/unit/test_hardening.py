@@ -314,3 +314,69 @@ def test_cli_constant_target_exits_non_zero(tmp_path, capsys):
     assert code == cli.EXIT_USAGE
     assert "target column 'y' is constant" in err and "nothing to smooth" in err
     assert not out.exists()
+
+
+# -- nothing downgrades silently -----------------------------------------------------------
+@pytest.mark.parametrize("cls", [HonestForestRegressor, LocalLinearForestRegressor])
+@pytest.mark.parametrize("n,seed", [(91, 0), (150, 1)])
+def test_oob_rows_without_standard_error_are_counted_and_explained(cls, n, seed):
+    X, y, _ = make_softplus_design(n, 3, random_state=seed)
+    model = cls(n_estimators=40, random_state=seed).fit(X, y)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        mean, std = model.oob_predict(return_std=True)
+    lost = np.isfinite(mean) & np.isnan(std)
+    assert lost.any()  # 40 trees in 2 bags: many rows are out of bag in one bag only
+    # the explanation given is the real one: those rows have fewer than two bags holding
+    # two or more of their out-of-bag trees
+    _, usable = model._oob_parts()
+    g = model.trees_per_bag_
+    per_bag = usable.reshape(n, -1, g).sum(axis=2)
+    few_bags = (per_bag >= 2).sum(axis=1) < 2
+    np.testing.assert_array_equal(lost, few_bags & np.isfinite(mean))
+    texts = [str(w.message) for w in caught]
+    assert any(t.startswith(f"{int(lost.sum())} of {n} training rows (out-of-bag) have a "
+                            f"prediction but no standard error") for t in texts)
+    no_tree = int(np.isnan(mean).sum())
+    if no_tree:
+        assert any(t.startswith(f"{no_tree} of {n} training rows (out-of-bag) have no usable")
+                   for t in texts)
+
+
+@pytest.mark.parametrize("d,n", [(8, 30), (6, 25)])
+def test_local_linear_fallback_is_warned_once_with_count_and_flags(d, n):
+    from hedgerow import LocalLinearRegressor
+    from hedgerow.local import LocalConstantFallbackWarning
+
+    rng = np.random.default_rng(d)
+    X = rng.uniform(size=(n, d))
+    y = X[:, 0] + 0.1 * rng.normal(size=n)
+    ll = LocalLinearRegressor(bandwidth=0.3).fit(X, y)
+    nw = NadarayaWatsonRegressor(bandwidth=0.3).fit(X, y)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        pred = ll.predict(X[:10])
+    fallback = ll.local_fit(X[:10]).fallback
+    mine = [w for w in caught if issubclass(w.category, LocalConstantFallbackWarning)]
+    assert len(mine) == 1  # once per call, not once per query
+    assert str(mine[0].message).startswith(
+        f"{int(fallback.sum())} of 10 queries of the LocalLinearRegressor got the local "
+        f"constant")
+    assert f"a line in {d} column(s)" in str(mine[0].message)
+    # the flagged queries are exactly those equal to the Nadaraya-Watson fit
+    assert fallback.any()
+    np.testing.assert_allclose(pred[fallback], nw.predict(X[:10])[fallback], rtol=1e-12)
+
+
+def test_no_fallback_warning_when_the_line_is_supported():
+    from hedgerow import LocalLinearRegressor
+    from hedgerow.local import LocalConstantFallbackWarning
+
+    rng = np.random.default_rng(0)
+    X = rng.uniform(size=(200, 2))
+    y = X[:, 0] + 0.1 * rng.normal(size=200)
+    ll = LocalLinearRegressor(bandwidth=0.5).fit(X, y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", LocalConstantFallbackWarning)
+        ll.predict(X[:20])
+    assert not ll.local_fit(X[:20]).fallback.any()
