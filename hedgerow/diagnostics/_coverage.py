@@ -138,7 +138,9 @@ def coverage_readout(model, X=None, y=None, *, truth=None, reps=20, level=0.95,
             raise ValueError("The 'truth' function must return one finite value per row of X.")
         mode = "known truth"
     else:
-        mean = model.predict(X)
+        from hedgerow.diagnostics._slices import _frame_like
+
+        mean = model.predict(_frame_like(model, X))  # the fitted names: no sklearn warning
         mode = "surrogate truth"
     resid = y - mean
     depth, _, _ = edge_depth(X, model.correction_features_)

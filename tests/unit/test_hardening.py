@@ -380,3 +380,13 @@ def test_no_fallback_warning_when_the_line_is_supported():
         warnings.simplefilter("error", LocalConstantFallbackWarning)
         ll.predict(X[:20])
     assert not ll.local_fit(X[:20]).fallback.any()
+
+
+def test_coverage_readout_on_a_frame_fit_warns_nothing(data):
+    X, y = data
+    frame = pd.DataFrame(X, columns=["a", "b", "c"])
+    llf = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(frame, y)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)  # "X does not have valid feature names"
+        report = D.coverage_readout(llf, reps=1, n_eval=30, progress=False)
+    assert 0.0 <= report.coverage("local linear forest") <= 1.0
