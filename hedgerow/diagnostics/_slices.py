@@ -134,7 +134,7 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
             try:
                 pred, std = model.predict(Qf, return_std=True)
                 lo, hi = normal_interval(pred, std, level)
-            except ValueError:
+            except (ValueError, TypeError):  # no bags, or a model without return_std
                 pred = model.predict(Qf)
                 lo = hi = np.full(grid.size, np.nan)
             rows.append((name, grid, np.asarray(pred, dtype=np.float64), lo, hi))

@@ -390,3 +390,17 @@ def test_coverage_readout_on_a_frame_fit_warns_nothing(data):
         warnings.simplefilter("error", UserWarning)  # "X does not have valid feature names"
         report = D.coverage_readout(llf, reps=1, n_eval=30, progress=False)
     assert 0.0 <= report.coverage("local linear forest") <= 1.0
+
+
+def test_other_regressors_in_slices_and_edges(data, llf):
+    # a scikit-learn regressor without return_std gets predictions and NaN intervals in
+    # slices; edges names what it lacks (held-out predictions)
+    X, y = data
+    lin = LinearRegression().fit(X, y)
+    report = D.slices({"forest": llf, "linear": lin}, X[0], 0, [0.2, 0.6])
+    part = report.method("linear")
+    np.testing.assert_allclose(part["prediction"], lin.predict(
+        np.column_stack([[0.2, 0.6], np.repeat(X[0:1, 1:], 2, axis=0)])))
+    assert part["lower"].isna().all()
+    with pytest.raises(TypeError, match="must offer held-out predictions"):
+        D.edges([llf, lin])
