@@ -25,6 +25,7 @@ from hedgerow._validation import (
 )
 from hedgerow.forest import RULE_MEAN, grow_forest, plan_samples, subsample_size
 from hedgerow.inference import little_bags_variance, normal_interval
+from hedgerow.local import binary_scale
 
 __all__ = ["HonestForestRegressor", "TinyDataWarning", "resolve_trees_per_bag"]
 
@@ -35,6 +36,18 @@ class TinyDataWarning(UserWarning):
 # Bags much larger than this gain little (VARIANCE-NOTES: any l within a factor two of the
 # optimum 1 + W/V costs at most ~15% extra variance, and W/V was 33-66 here).
 _MAX_AUTO_BAG = 32
+
+
+def bag_std(psi: np.ndarray, trees_per_bag: int) -> np.ndarray:
+    """Return the little-bags standard error of the mean of ``psi`` along axis 1.
+
+    Computed on ``psi`` divided by a power of two near its largest finite magnitude (exact,
+    so the same bits on ordinary data), so that squared per-tree predictions of y near
+    1e+-200 neither overflow nor underflow; the standard error scales back linearly.
+    """
+    finite = np.abs(psi[np.isfinite(psi)])
+    p = float(binary_scale(finite.max())) if finite.size else 1.0
+    return little_bags_variance(psi / p, trees_per_bag).std * p
 
 
 def resolve_trees_per_bag(trees_per_bag, n_estimators: int, subsample_rate: float) -> int:
@@ -250,8 +263,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         if not return_std:
             return mean
         self._require_bags()
-        var = little_bags_variance(psi, self.trees_per_bag_)
-        return mean, var.std
+        return mean, bag_std(psi, self.trees_per_bag_)
 
     def oob_local_average(self, return_std=False):
         """Return the out-of-bag forest-weighted mean of y at the training rows."""

@@ -18,7 +18,7 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
-from hedgerow.estimators._forest import _ForestBase, resolve_trees_per_bag
+from hedgerow.estimators._forest import _ForestBase, bag_std, resolve_trees_per_bag
 from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL, subsample_size
 from hedgerow.inference import (
     linearisation_coefficients,
@@ -432,8 +432,8 @@ class LocalLinearForestRegressor(_ForestBase):
         warn_fallback(fit, "local linear forest")
         if not return_std:
             return fit.intercept
-        var = self._std(leaves, None, W, X[:, self.correction_features_], fit)
-        return fit.intercept, var.std
+        psi = self._tree_terms(leaves, None, X[:, self.correction_features_], fit)
+        return fit.intercept, bag_std(psi, self.trees_per_bag_)
 
     def local_fit(self, X, *, ridge_penalty=None):
         """Return the solver's ``LocalFit`` (intercept, slopes, Gram inverse) at X."""
@@ -499,6 +499,6 @@ class LocalLinearForestRegressor(_ForestBase):
         fit = self._solve(mom, lam)
         if not return_std:
             return fit.intercept
-        var = self._std(leaves, usable, W, self._Xc, fit)
-        self._warn_missing_std(fit.intercept, var.std, "training rows (out-of-bag)")
-        return fit.intercept, var.std
+        std = bag_std(self._tree_terms(leaves, usable, self._Xc, fit), self.trees_per_bag_)
+        self._warn_missing_std(fit.intercept, std, "training rows (out-of-bag)")
+        return fit.intercept, std

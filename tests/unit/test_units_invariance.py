@@ -173,3 +173,21 @@ def test_kernel_smoothers_with_a_given_bandwidth_survive_extreme_magnitudes(scal
         p1, s1 = est.fit(X * scale, y).predict(Q * scale, return_std=True)
         np.testing.assert_allclose(p1, p0, rtol=1e-8)
         np.testing.assert_allclose(s1, s0, rtol=1e-6)
+
+
+@pytest.mark.parametrize("c", [1e-300, 1e-200, 1e150, 1e200, 1e300])
+def test_standard_errors_scale_with_extreme_targets(c):
+    # squared per-tree predictions overflowed from y ~ 1e150 on (inf or NaN errors)
+    X, y = DESIGNS["friedman1"]
+    Q = _queries(X, 50)
+    for cls in (HonestForestRegressor, LocalLinearForestRegressor):
+        params = dict(n_estimators=20, random_state=9)
+        base = cls(**params).fit(X, y)
+        moved = cls(**params).fit(X, c * y)
+        p0, s0 = base.predict(Q, return_std=True)
+        p1, s1 = moved.predict(Q, return_std=True)
+        np.testing.assert_allclose(p1 / c, p0, rtol=1e-8)
+        np.testing.assert_allclose(s1 / c, s0, rtol=1e-6)
+        o0, os0 = base.oob_predict(return_std=True)
+        o1, os1 = moved.oob_predict(return_std=True)
+        np.testing.assert_allclose(os1 / c, os0, rtol=1e-6)
