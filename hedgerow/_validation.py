@@ -130,9 +130,12 @@ def _validate(estimator, X, y=None, **kwargs):
     _check_2d(X)
     _check_no_dates(X, y)
     try:
-        if y is None:
-            return validate_data(estimator, X, **kwargs)
-        return validate_data(estimator, X, y, **kwargs)
+        # scikit-learn's finiteness check sums X first: columns near the largest float
+        # overflow that sum (a RuntimeWarning) before the element-wise check decides
+        with np.errstate(over="ignore", invalid="ignore"):
+            if y is None:
+                return validate_data(estimator, X, **kwargs)
+            return validate_data(estimator, X, y, **kwargs)
     except ValueError as err:
         if "could not convert" not in str(err):
             raise

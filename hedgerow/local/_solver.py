@@ -172,7 +172,7 @@ def warn_fallback(fit: LocalFit, what: str, stacklevel: int = 3) -> int:
 
 
 def _binary_magnitude(values) -> np.ndarray:
-    """Return the power of two at the order of each ``values`` (1.0 where 0 or not finite).
+    """Return the power of two at or just below each ``|values|`` (1.0 where 0 or not finite).
 
     Dividing by a power of two is exact, so computing on ``x / p`` and scaling back gives
     the same bits as computing on ``x`` wherever ``x`` itself does not over- or underflow,
@@ -180,7 +180,9 @@ def _binary_magnitude(values) -> np.ndarray:
     """
     values = np.asarray(values, dtype=np.float64)
     ok = np.isfinite(values) & (values != 0.0)
-    return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, values, 1.0))[1]), 1.0)
+    # 2**(e - 1) <= |v| < 2**e: the lower power, so that it stays finite near the
+    # largest float (2**1024 is inf)
+    return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, values, 1.0))[1] - 1), 1.0)
 
 
 def binary_scale(values) -> float:

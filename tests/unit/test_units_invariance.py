@@ -191,3 +191,23 @@ def test_standard_errors_scale_with_extreme_targets(c):
         o0, os0 = base.oob_predict(return_std=True)
         o1, os1 = moved.oob_predict(return_std=True)
         np.testing.assert_allclose(os1 / c, os0, rtol=1e-6)
+
+
+def test_columns_spanning_the_whole_float_range():
+    # values from -1.7e308 to 1.7e308: the column spread (3.4e308) is not a float, yet
+    # every estimator standardises by halves or powers of two and gives the same answer
+    from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
+
+    X, y = DESIGNS["friedman1"]
+    Q = _queries(X, 60)
+    def wide(A):
+        return (A - 0.5) * 2 * 1.7e308
+    for est in (HonestForestRegressor(n_estimators=20, random_state=0),
+                LocalLinearForestRegressor(n_estimators=20, random_state=0),
+                NadarayaWatsonRegressor(bandwidth=0.6), LocalLinearRegressor(bandwidth=0.8)):
+        p0, s0 = est.fit(X, y).predict(Q, return_std=True)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            p1, s1 = est.fit(wide(X), y).predict(wide(Q), return_std=True)
+        np.testing.assert_allclose(p1, p0, rtol=1e-10, atol=1e-10)
+        np.testing.assert_allclose(s1, s0, rtol=1e-8, atol=1e-10)
