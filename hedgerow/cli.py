@@ -103,7 +103,8 @@ def read_table(path: Path, target: str, features=None, feature=None):
         raise InputError(f"data file '{path}' is a folder, not a CSV file")
     try:
         # the raw header first: read_csv renames a repeated name ("u" -> "u.1")
-        header = [str(c) for c in pd.read_csv(path, header=None, nrows=1, dtype=str).iloc[0]]
+        header = ["" if pd.isna(c) else str(c)
+                  for c in pd.read_csv(path, header=None, nrows=1, dtype=str).iloc[0]]
         frame = pd.read_csv(path)
     except pd.errors.EmptyDataError:
         raise InputError(f"data file '{path}' is empty (expected a header row and data "
