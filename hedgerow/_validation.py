@@ -108,13 +108,39 @@ def _check_2d(X):
         )
 
 
+def _check_no_dates(X, y=None):
+    """Raise naming the column if X (or y) holds dates, times or durations."""
+    for name, value in (("X", X), ("y", y)):
+        if value is None:
+            continue
+        dtypes = getattr(value, "dtypes", None)
+        if dtypes is not None and not isinstance(dtypes, np.dtype):
+            pairs = list(dtypes.items())
+        else:
+            dtype = getattr(value, "dtype", None)
+            pairs = [] if dtype is None else [(None, dtype)]
+        for col, dtype in pairs:
+            kind = getattr(dtype, "kind", "")
+            if (kind and kind in "mM") or isinstance(dtype, pd.PeriodDtype | pd.DatetimeTZDtype):
+                where = f"Column {col!r} of {name}" if col is not None else name
+                raise ValueError(
+                    f"{where} must hold numbers. Got dates or times (dtype {dtype}) "
+                    f"instead; convert them to numbers first (for example days since a "
+                    f"reference date) or leave the column out."
+                )
+
+
 def _validate(estimator, X, y=None, **kwargs):
     """``validate_data`` with messages that name X or y for non-numeric input."""
     _check_2d(X)
+    _check_no_dates(X, y)
     try:
-        if y is None:
-            return validate_data(estimator, X, **kwargs)
-        return validate_data(estimator, X, y, **kwargs)
+        # scikit-learn's finiteness check sums X first: columns near the largest float
+        # overflow that sum (a RuntimeWarning) before the element-wise check decides
+        with np.errstate(over="ignore", invalid="ignore"):
+            if y is None:
+                return validate_data(estimator, X, **kwargs)
+            return validate_data(estimator, X, y, **kwargs)
     except ValueError as err:
         if "could not convert" not in str(err):
             raise

@@ -102,6 +102,9 @@ def read_table(path: Path, target: str, features=None, feature=None):
     if path.is_dir():
         raise InputError(f"data file '{path}' is a folder, not a CSV file")
     try:
+        # the raw header first: read_csv renames a repeated name ("u" -> "u.1")
+        header = ["" if pd.isna(c) else str(c)
+                  for c in pd.read_csv(path, header=None, nrows=1, dtype=str).iloc[0]]
         frame = pd.read_csv(path)
     except pd.errors.EmptyDataError:
         raise InputError(f"data file '{path}' is empty (expected a header row and data "
@@ -114,7 +117,7 @@ def read_table(path: Path, target: str, features=None, feature=None):
     frame.columns = [str(c) for c in frame.columns]
     available = list(frame.columns)
     chose_features = features is not None
-    dup = sorted({c for c in available if available.count(c) > 1})
+    dup = sorted({c for c in header if header.count(c) > 1})
     if dup:
         raise InputError(f"data file '{path}' has repeated column names: {_columns_text(dup)}")
     if target not in available:
@@ -168,6 +171,9 @@ def read_table(path: Path, target: str, features=None, feature=None):
                          f"least {MIN_ROWS}")
     X = frame[features].astype("float64")
     y = frame[target].astype("float64")
+    if y.nunique() == 1:
+        raise InputError(f"the target column {target!r} is constant (every row is "
+                         f"{y.iloc[0]!r}): nothing to smooth; no report written")
     return X, y
 
 

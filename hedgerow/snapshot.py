@@ -377,6 +377,15 @@ class Snapshot:
         if fp.n_columns != model.n_features_in_:
             raise ValueError(f"The 'X' parameter must have the model's {model.n_features_in_} "
                              f"columns. Got {fp.n_columns} instead.")
+        if hasattr(model, "X_train_") and hasattr(model, "y_train_"):
+            trained = DataFingerprint.from_data(model.X_train_, model.y_train_)
+            if trained.sha256 != fp.sha256:
+                raise SnapshotDataMismatch(
+                    f"The 'X' and 'y' parameters must be the rows the model was fitted on "
+                    f"(checked by fingerprint): the model was fitted on {trained.n_rows} "
+                    f"rows, got {fp.n_rows} rows"
+                    + (" with other values" if trained.n_rows == fp.n_rows else "")
+                    + ". Pass its training data, or refit it on these rows.")
         params = {k: _plain(v, f"estimator parameter {k!r}")
                   for k, v in model.get_params(deep=False).items()}
         seed = params.get("random_state")
@@ -424,7 +433,10 @@ class Snapshot:
     @classmethod
     def from_dict(cls, d, *, source="the snapshot") -> Snapshot:
         """Return the snapshot held by ``d`` (as ``to_dict`` gives); ``SnapshotError`` if bad."""
-        _validate(d, source)
+        try:
+            _validate(d, source)
+        except RecursionError:
+            raise SnapshotError(f"{source} is nested too deeply to be a snapshot.") from None
         s, v, dt = d["settings"], d["view"], d["data"]
         fp = DataFingerprint(dt["n_rows"], dt["n_columns"],
                              None if dt["columns"] is None else tuple(dt["columns"]),
@@ -457,7 +469,12 @@ class Snapshot:
             raise IsADirectoryError(f"The 'path' parameter must name a file. Got the "
                                     f"directory {str(path)!r} instead.")
         mode = (path.stat().st_mode & 0o777) if path.exists() else 0o644
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=directory)
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=directory)
+        except OSError as exc:  # name the path given, not the temporary file
+            raise type(exc)(exc.errno, f"Cannot write the snapshot to {str(path)!r} "
+                                       f"({exc.strerror or exc}); choose a writable place",
+                            str(path)) from exc
         try:
             with os.fdopen(fd, "w", encoding="utf-8") as fh:
                 json.dump(payload, fh, indent=2, allow_nan=False)
@@ -466,6 +483,12 @@ class Snapshot:
                 os.fsync(fh.fileno())
             os.chmod(tmp, mode)
             os.replace(tmp, path)
+        except OSError as exc:
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+            raise type(exc)(exc.errno, f"Cannot write the snapshot to {str(path)!r} "
+                                       f"({exc.strerror or exc}); the earlier file is unchanged",
+                            str(path)) from exc
         except BaseException:
             with contextlib.suppress(OSError):
                 os.unlink(tmp)
@@ -496,6 +519,9 @@ class Snapshot:
             raise SnapshotError(f"{source} is not valid JSON (truncated or corrupted?): "
                                 f"{exc.msg} at line {exc.lineno}, column {exc.colno}.") \
                 from None
+        except RecursionError:
+            raise SnapshotError(f"{source} is nested too deeply to be a snapshot (corrupted "
+                                f"or not a snapshot).") from None
         snap = cls.from_dict(d, source=source)
         if data is not None:
             if not isinstance(data, tuple | list) or len(data) != 2:

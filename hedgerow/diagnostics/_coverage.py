@@ -264,8 +264,11 @@ def coverage_readout(model, X=None, y=None, *, truth=None, reps=20, level=0.95,
     the outstanding tasks on a cluster).
     """
     from hedgerow._distributed import check_client, run_tasks
-    from hedgerow.estimators import HonestForestRegressor
+    from hedgerow.diagnostics._checks import check_count, check_model
+    from hedgerow.estimators import HonestForestRegressor, LocalLinearForestRegressor
 
+    check_model(model, "model", (LocalLinearForestRegressor,))
+    n_eval = check_count("n_eval", n_eval)
     if isinstance(reps, bool) or not isinstance(reps, int | np.integer) or reps < 1:
         raise ValueError(f"The 'reps' parameter must be an integer >= 1. Got {reps!r} instead.")
     if surrogate not in ("model", "additive spline"):

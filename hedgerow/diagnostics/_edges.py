@@ -8,10 +8,10 @@ import numpy as np
 import pandas as pd
 from scipy.stats import t as student_t
 
-from hedgerow._validation import checked_rows
+from hedgerow._validation import check_level, checked_rows
+from hedgerow.diagnostics._checks import check_models, check_rows, check_values
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._report import ReportMixin
-from hedgerow.diagnostics._slices import method_label
 from hedgerow.diagnostics._verdict import EDGE_BAND
 
 __all__ = ["EdgeProfile", "edges", "DEPTH_BANDS"]
@@ -76,15 +76,31 @@ def edges(models, X=None, y=None, *, columns=None, slope_model=None, level=0.95)
     slope_model : model whose ``local_slopes`` sign the local trend (default: the first
         model that has ``local_slopes``); slopes are taken at each row in its edge column.
     """
-    if isinstance(models, dict):
-        pairs = list(models.items())
-    elif hasattr(models, "predict"):
-        pairs = [(method_label(models), models)]
-    else:
-        pairs = [(method_label(m), m) for m in models]
+    pairs = check_models(models, "models", kinds=None)
+    level = check_level(level)
     first = pairs[0][1]
-    X = np.asarray(first.X_train_ if X is None else X, dtype=np.float64)
-    y = np.asarray(first.y_train_ if y is None else y, dtype=np.float64).ravel()
+    d = first.n_features_in_
+    if (X is None or y is None) and not hasattr(first, "X_train_"):
+        raise ValueError(
+            f"The 'X' and 'y' parameters are needed with {type(first).__name__} (it keeps "
+            f"no training rows): pass the rows it was fitted on."
+        )
+    n = first.X_train_.shape[0] if hasattr(first, "X_train_") else None
+    X = check_rows("X", first.X_train_ if X is None else X, n_features=d, n_rows=n)
+    n = X.shape[0]
+    y = first.y_train_ if y is None else y
+    y = check_values("y", y.to_numpy() if hasattr(y, "to_numpy") else y)
+    if y.shape[0] != n or not np.all(np.isfinite(y)):
+        raise ValueError(
+            f"The 'y' parameter must hold {n} finite values (one per row of X). "
+            f"Got {y.shape[0]} values instead."
+        )
+    for name, model in pairs:
+        if model.n_features_in_ != d:
+            raise ValueError(
+                f"The 'models' parameter must hold models fitted on the same columns ({d}). "
+                f"Got {name!r} fitted on {model.n_features_in_} columns instead."
+            )
     if columns is None:
         for _, m in pairs:
             if hasattr(m, "correction_features_"):

@@ -8,7 +8,8 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from hedgerow._validation import column_names, fitted_columns
+from hedgerow._validation import check_level, column_names, fitted_columns
+from hedgerow.diagnostics._checks import FORESTS, SMOOTHERS, check_model
 from hedgerow.diagnostics._report import (
     ReportMixin,
     check_probe_point,
@@ -147,6 +148,23 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     """
     from hedgerow.estimators import LocalLinearForestRegressor
 
+    check_model(model, "model", FORESTS)
+    if hasattr(compare, "predict") or isinstance(compare, type):
+        compare = (compare,)
+    if not isinstance(compare, list | tuple):
+        raise TypeError(
+            f"The 'compare' parameter must be a list of fitted smoothers. "
+            f"Got {type(compare).__name__} instead."
+        )
+    for i, smoother in enumerate(compare):
+        check_model(smoother, f"compare[{i}]", SMOOTHERS + FORESTS)
+        if smoother.n_features_in_ != model.n_features_in_:
+            raise ValueError(
+                f"The 'compare' parameter must hold models fitted on the same columns "
+                f"({model.n_features_in_}). Got compare[{i}] fitted on "
+                f"{smoother.n_features_in_} columns instead."
+            )
+    level = check_level(level)
     # one validated array from here to the weights: every estimator fitted on these
     # columns takes it without checking it again
     q = check_probe_point(model, x)

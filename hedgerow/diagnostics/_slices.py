@@ -52,14 +52,6 @@ def resolve_feature(model, feature) -> int:
     )
 
 
-def _as_models(models):
-    if isinstance(models, dict):
-        return list(models.items())
-    if hasattr(models, "predict"):
-        models = [models]
-    return [(method_label(m), m) for m in models]
-
-
 @dataclass(frozen=True)
 class SliceReport(ReportMixin):
     """Predictions along one column for several methods (long format in ``frame``).
@@ -107,13 +99,22 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
         up to ``max_background`` training rows of the first model).
     level : interval level.
     """
-    pairs = _as_models(models)
-    if not pairs:
-        raise ValueError("The 'models' parameter must hold at least one fitted model.")
+    from hedgerow._validation import check_level
+    from hedgerow.diagnostics._checks import check_models, check_rows, check_values
+
+    pairs = check_models(models, "models", kinds=None)
     first = pairs[0][1]
+    d = first.n_features_in_
+    for name, model in pairs[1:]:
+        if model.n_features_in_ != d:
+            raise ValueError(
+                f"The 'models' parameter must hold models fitted on the same columns ({d}). "
+                f"Got {name!r} fitted on {model.n_features_in_} columns instead."
+            )
+    level = check_level(level)
     xq = check_probe_point(first, x)[0]
     j = resolve_feature(first, feature)
-    grid = np.asarray(grid, dtype=np.float64).ravel()
+    grid = check_values("grid", grid)
     if grid.size == 0:
         raise ValueError("The 'grid' parameter must hold at least one value. Got an empty grid.")
     if not np.all(np.isfinite(grid)):
@@ -133,20 +134,28 @@ def slices(models, x, feature, grid, *, average=False, background=None, level=0.
                 lo, hi = model.predict_interval(Q, level=level)
             elif not forest or has_little_bags(model):
                 # smoothers, and the same-trees local average (a diagnostic): CLT
-                pred, std = model.predict(Q, return_std=True)
+                try:
+                    pred, std = model.predict(Q, return_std=True)
+                except TypeError:  # a regressor without return_std: no interval
+                    pred, std = model.predict(Q), np.full(grid.size, np.nan)
                 lo, hi = normal_interval(pred, std, level)
             else:  # a forest without little bags: no intervals
                 pred = model.predict(Q)
                 lo = hi = np.full(grid.size, np.nan)
             rows.append((name, grid, np.asarray(pred, dtype=np.float64), lo, hi))
     else:
+        if background is None and not hasattr(first, "X_train_"):
+            raise ValueError(
+                f"The 'background' parameter is needed for average=True with "
+                f"{type(first).__name__} (it keeps no training rows). Got None instead."
+            )
         if background is None:
             Xb = first.X_train_
             if Xb.shape[0] > max_background:
                 rng = np.random.default_rng(random_state)
                 Xb = Xb[rng.choice(Xb.shape[0], max_background, replace=False)]
         else:
-            Xb = np.asarray(background, dtype=np.float64)
+            Xb = check_rows("background", background, n_features=d)
         nb = Xb.shape[0]
         Q = np.tile(Xb, (grid.size, 1))
         Q[:, j] = np.repeat(grid, nb)

@@ -67,7 +67,9 @@ class TuningSurface(ReportMixin):
 
 
 def _check_grid(name, values, low, high, closed_low):
-    arr = np.asarray(values, dtype=np.float64).ravel()
+    from hedgerow.diagnostics._checks import check_values
+
+    arr = check_values(name, values)
     if arr.size == 0:
         raise ValueError(f"The '{name}' parameter must hold at least one value. Got an empty "
                          f"grid.")

@@ -1,6 +1,6 @@
 """The four estimators, all with the scikit-learn API."""
 
-from hedgerow.estimators._forest import HonestForestRegressor
+from hedgerow.estimators._forest import HonestForestRegressor, TinyDataWarning
 from hedgerow.estimators._kernel import LocalLinearRegressor, NadarayaWatsonRegressor
 from hedgerow.estimators._local_linear_forest import LocalLinearForestRegressor
 
@@ -9,4 +9,5 @@ __all__ = [
     "LocalLinearForestRegressor",
     "LocalLinearRegressor",
     "NadarayaWatsonRegressor",
+    "TinyDataWarning",
 ]

@@ -34,13 +34,20 @@ from hedgerow.inference import (
     little_bags_variance,
     normal_interval,
 )
-from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
+from hedgerow.local import (
+    binary_scale,
+    default_scale,
+    moment_features,
+    moments_from_sums,
+    solve_local,
+)
 
 __all__ = [
     "DEFAULT_INTERVAL",
     "INTERVAL_METHODS",
     "HonestForestRegressor",
     "IntervalParts",
+    "TinyDataWarning",
     "resolve_trees_per_bag",
 ]
 
@@ -120,9 +127,26 @@ def check_curvature_bound(value):
         )
     return float(value)
 
+
+class TinyDataWarning(UserWarning):
+    """The data are too few for any tree to split; every tree is a single leaf."""
+
+
 # Bags much larger than this gain little (VARIANCE-NOTES: any l within a factor two of the
 # optimum 1 + W/V costs at most ~15% extra variance, and W/V was 33-66 here).
 _MAX_AUTO_BAG = 32
+
+
+def bag_std(psi: np.ndarray, trees_per_bag: int) -> np.ndarray:
+    """Return the little-bags standard error of the mean of ``psi`` along axis 1.
+
+    Computed on ``psi`` divided by a power of two near its largest finite magnitude (exact,
+    so the same bits on ordinary data), so that squared per-tree predictions of y near
+    1e+-200 neither overflow nor underflow; the standard error scales back linearly.
+    """
+    finite = np.abs(psi[np.isfinite(psi)])
+    p = float(binary_scale(finite.max())) if finite.size else 1.0
+    return little_bags_variance(psi / p, trees_per_bag).std * p
 
 
 def resolve_trees_per_bag(trees_per_bag, n_estimators: int, subsample_rate: float) -> int:
@@ -221,14 +245,17 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         s = subsample_size(n, self.subsample_rate, l)
         n_grow = s // 2 if self.honest else s
         n_fill = s - n_grow if self.honest else s
-        if min(n_grow, n_fill) < self.min_samples_leaf:
-            raise ValueError(
-                f"Too few rows for the leaf constraint: with n={n} rows, "
-                f"subsample_rate={self.subsample_rate}, trees_per_bag={l} and "
-                f"honest={self.honest}, a tree has {n_grow} rows to place splits and "
-                f"{n_fill} to fill leaves, but 'min_samples_leaf' is "
-                f"{self.min_samples_leaf}; each part needs at least min_samples_leaf rows. "
-                f"Use more rows, a larger subsample_rate or a smaller min_samples_leaf."
+        if min(n_grow, n_fill) < 2 * self.min_samples_leaf:
+            # as scikit-learn's trees do: a node that cannot meet the leaf constraint stays
+            # a leaf; here no tree can split at all, which is said rather than hidden
+            warnings.warn(
+                f"Too few rows to split: with n={n} rows, subsample_rate="
+                f"{self.subsample_rate}, trees_per_bag={l} and honest={self.honest}, a tree "
+                f"has {n_grow} rows to place splits and {n_fill} to fill leaves, but a split "
+                f"needs 2 * min_samples_leaf = {2 * self.min_samples_leaf} of each. Every "
+                f"tree is a single leaf (the forest averages its rows). Use more rows, a "
+                f"larger subsample_rate or a smaller min_samples_leaf.",
+                TinyDataWarning, stacklevel=4,
             )
         return l, mtry, s
 
@@ -299,6 +326,21 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             )
         return bad
 
+    def _warn_missing_std(self, mean, std, what: str):
+        """Warn about rows with a finite prediction but no standard error (NaN)."""
+        lost = np.isfinite(mean) & ~np.isfinite(std)
+        if np.any(lost):
+            warnings.warn(
+                f"{int(lost.sum())} of {lost.size} {what} have a prediction but no "
+                f"standard error (NaN): their out-of-bag trees lie in fewer than two little "
+                f"bags with two or more such trees (a row is in-bag for every tree of a bag "
+                f"whose sample holds it), and the between-bag variance needs two. Use more "
+                f"trees (more bags) or a smaller subsample_rate.",
+                RuntimeWarning,
+                stacklevel=3,
+            )
+        return lost
+
     def _require_bags(self):
         if self.trees_per_bag_ < 2:
             raise ValueError(
@@ -346,8 +388,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         if not return_std:
             return mean
         self._require_bags()
-        var = little_bags_variance(psi, self.trees_per_bag_)
-        return mean, var.std
+        return mean, bag_std(psi, self.trees_per_bag_)
 
     def oob_local_average(self, return_std=False):
         """Return the out-of-bag forest-weighted mean of y at the training rows."""
@@ -357,7 +398,9 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         leaves, usable = self._oob_parts()
         self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
         if return_std:
-            return self._predict_from_leaves(leaves, usable, True)
+            mean, std = self._predict_from_leaves(leaves, usable, True)
+            self._warn_missing_std(mean, std, "training rows (out-of-bag)")
+            return mean, std
         cache = self._fit_cache
         if "oob average" not in cache:
             cache["oob average"] = self._predict_from_leaves(leaves, usable, False)

@@ -36,6 +36,7 @@ from hedgerow.local import (
     moment_features,
     moments_from_sums,
     solve_local,
+    warn_fallback,
 )
 
 __all__ = ["LocalLinearRegressor", "NadarayaWatsonRegressor"]
@@ -339,11 +340,17 @@ class _KernelSmoother(RegressorMixin, BaseEstimator):
             return lazy_predict(self, X, "predict", names, return_std=bool(return_std))
         X = check_predict_data(self, X)
         fit, var = self._local_fit(X, with_variance=bool(return_std))
+        if self._degree:
+            warn_fallback(fit, type(self).__name__)
         if not return_std:
             return fit.intercept
         std = np.sqrt(np.maximum(var, 0.0))
         std[np.isnan(fit.intercept)] = np.nan
         return fit.intercept, std
+
+    def local_fit(self, X):
+        """Return the solver's ``LocalFit`` at X (``fallback`` flags the local constants)."""
+        return self._local_fit(check_predict_data(self, X))[0]
 
     def predict_interval(self, X, level=0.95):
         """Return normal-theory confidence limits for E[y | x].

@@ -20,7 +20,7 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
-from hedgerow.estimators._forest import _ForestBase, resolve_trees_per_bag
+from hedgerow.estimators._forest import _ForestBase, bag_std, resolve_trees_per_bag
 from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL, subsample_size
 from hedgerow.inference import (
     linearisation_coefficients,
@@ -36,6 +36,7 @@ from hedgerow.local import (
     moments_from_sums,
     solve_local,
     standardise,
+    warn_fallback,
 )
 
 __all__ = ["LocalLinearForestRegressor", "RIDGE_GRID", "SPLIT_PENALTY_AUTO"]
@@ -433,10 +434,11 @@ class LocalLinearForestRegressor(_ForestBase):
             self._require_bags()
         leaves, W, mom = self._query_state(X)
         fit = self._solve(mom, lam)
+        warn_fallback(fit, "local linear forest")
         if not return_std:
             return fit.intercept
-        var = self._std(leaves, None, W, X[:, self.correction_features_], fit)
-        return fit.intercept, var.std
+        psi = self._tree_terms(leaves, None, X[:, self.correction_features_], fit)
+        return fit.intercept, bag_std(psi, self.trees_per_bag_)
 
     def local_fit(self, X, *, ridge_penalty=None):
         """Return the solver's ``LocalFit`` (intercept, slopes, Gram inverse) at X."""
@@ -505,8 +507,9 @@ class LocalLinearForestRegressor(_ForestBase):
         fit = self._solve(mom, lam)
         if not return_std:
             return fit.intercept
-        var = self._std(leaves, usable, W, self._Xc, fit)
-        return fit.intercept, var.std
+        std = bag_std(self._tree_terms(leaves, usable, self._Xc, fit), self.trees_per_bag_)
+        self._warn_missing_std(fit.intercept, std, "training rows (out-of-bag)")
+        return fit.intercept, std
 
     # -- one penalty without a refit; one solve for a whole readout -----------------------
     def with_ridge_penalty(self, ridge_penalty):
@@ -539,5 +542,6 @@ class LocalLinearForestRegressor(_ForestBase):
         fit = self._solve(mom, self._penalty(ridge_penalty))
         if self.trees_per_bag_ < 2:
             return fit, None, None
-        std = self._std(leaves, None, W, X[:, self.correction_features_], fit).std
+        psi = self._tree_terms(leaves, None, X[:, self.correction_features_], fit)
+        std = bag_std(psi, self.trees_per_bag_)
         return fit, std, self._slope_std_of(leaves, X, fit)

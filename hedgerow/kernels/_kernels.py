@@ -39,6 +39,8 @@ import numba
 import numpy as np
 import scipy.sparse as sp
 
+from hedgerow.local import column_centre, standardise
+
 __all__ = [
     "GAUSSIAN_TRUNCATION",
     "KERNELS",
@@ -386,9 +388,10 @@ class KernelRows:
                 "instead."
             )
         # Centre before scaling so that squared distances are formed from small numbers.
-        self.centre = X_train.mean(axis=0) if X_train.shape[0] else np.zeros(d)
+        # (column_centre / standardise: no overflow near 1e+-300, same bits otherwise)
+        self.centre = column_centre(X_train)
         self.bandwidth = h
-        self.XT = np.ascontiguousarray(((X_train - self.centre) / h).T)
+        self.XT = np.ascontiguousarray(standardise(X_train, self.centre, h).T)
 
     @property
     def n_rows(self) -> int:
@@ -403,7 +406,7 @@ class KernelRows:
                 f"The 'Q' parameter must be a 2-d array with {d} columns. "
                 f"Got shape {Q.shape} instead."
             )
-        Qs = np.ascontiguousarray((Q - self.centre) / self.bandwidth)
+        Qs = np.ascontiguousarray(standardise(Q, self.centre, self.bandwidth))
         m = Qs.shape[0]
         skip = (np.full(m, -1, dtype=np.int64) if exclude is None
                 else np.asarray(exclude, np.int64))

@@ -2,6 +2,7 @@
 
 from hedgerow.local._solver import (
     COLLINEARITY_RCOND,
+    LocalConstantFallbackWarning,
     LocalFit,
     LocalMoments,
     binary_scale,
@@ -13,10 +14,12 @@ from hedgerow.local._solver import (
     moments_from_sums,
     solve_local,
     standardise,
+    warn_fallback,
 )
 
 __all__ = [
     "COLLINEARITY_RCOND",
+    "LocalConstantFallbackWarning",
     "LocalFit",
     "LocalMoments",
     "binary_scale",
@@ -28,4 +31,5 @@ __all__ = [
     "moments_from_sums",
     "solve_local",
     "standardise",
+    "warn_fallback",
 ]

@@ -48,6 +48,7 @@ from hedgerow._validation import check_ridge_penalty
 
 __all__ = [
     "COLLINEARITY_RCOND",
+    "LocalConstantFallbackWarning",
     "LocalFit",
     "LocalMoments",
     "binary_scale",
@@ -59,6 +60,7 @@ __all__ = [
     "moments_from_sums",
     "solve_local",
     "standardise",
+    "warn_fallback",
 ]
 
 #: Reciprocal condition number of the local correlation matrix of the correction columns
@@ -153,8 +155,32 @@ class LocalFit:
         return self.slopes_scaled
 
 
+class LocalConstantFallbackWarning(RuntimeWarning):
+    """Some queries of a local linear fit got the local constant fit instead."""
+
+
+def warn_fallback(fit: LocalFit, what: str, stacklevel: int = 3) -> int:
+    """Warn once, with the count and the reason, if any query of ``fit`` fell back.
+
+    Returns the number of queries flagged in ``fit.fallback``.
+    """
+    count = int(np.count_nonzero(fit.fallback))
+    if count:
+        k = fit.slopes.shape[1] if fit.slopes.ndim == 2 else 0
+        warnings.warn(
+            f"{count} of {fit.fallback.size} queries of the {what} got the local constant "
+            f"(Nadaraya-Watson) fit instead of a local line: their neighbourhood does not "
+            f"support a line in {k} column(s) (too few distinct neighbours, or the columns "
+            f"collinear there). The flags are in local_fit(X).fallback; use fewer columns "
+            f"or a wider neighbourhood (larger bandwidth / leaves).",
+            LocalConstantFallbackWarning,
+            stacklevel=stacklevel,
+        )
+    return count
+
+
 def _binary_magnitude(values) -> np.ndarray:
-    """Return the power of two at the order of each ``values`` (1.0 where 0 or not finite).
+    """Return the power of two at or just below each ``|values|`` (1.0 where 0 or not finite).
 
     Dividing by a power of two is exact, so computing on ``x / p`` and scaling back gives
     the same bits as computing on ``x`` wherever ``x`` itself does not over- or underflow,
@@ -162,7 +188,9 @@ def _binary_magnitude(values) -> np.ndarray:
     """
     values = np.asarray(values, dtype=np.float64)
     ok = np.isfinite(values) & (values != 0.0)
-    return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, values, 1.0))[1]), 1.0)
+    # 2**(e - 1) <= |v| < 2**e: the lower power, so that it stays finite near the
+    # largest float (2**1024 is inf)
+    return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, values, 1.0))[1] - 1), 1.0)
 
 
 def binary_scale(values) -> float:

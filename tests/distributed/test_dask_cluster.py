@@ -132,8 +132,8 @@ def test_failed_fit_keeps_the_earlier_forest(client, data, monkeypatch):
 
 def test_worker_error_propagates_unchanged(client, data):
     X, y = data
-    with pytest.raises(ValueError, match="Too few rows for the leaf constraint"):
-        tuning_surface(X, y, [0.05, 0.5], [0.1], n_estimators=8, min_samples_leaf=40,
+    with pytest.raises(ValueError, match="'max_features' parameter must be at most"):
+        tuning_surface(X, y, [0.05, 0.5], [0.1], n_estimators=8, max_features=40,
                        progress=False, client=client)
     assert _wait_until_no_hedgerow_tasks(client) == []
 

@@ -8,6 +8,7 @@ import pandas as pd
 import pytest
 
 from hedgerow import HonestForestRegressor
+from hedgerow.estimators._forest import TinyDataWarning
 
 
 @pytest.fixture(scope="module")
@@ -163,20 +164,33 @@ def test_y_none(Xy):
 
 
 def test_fewer_rows_than_honest_leaf_constraint_allows(Xy):
-    # 15 rows, rate 0.5: a tree gets 7 rows, 3 to place splits and 4 to fill leaves
+    # 15 rows, rate 0.5: a tree gets 7 rows, 3 to place splits and 4 to fill leaves; as
+    # scikit-learn's trees do on such data, every tree stays a single leaf (warned)
     X, y = Xy
-    with pytest.raises(ValueError, match=r"Too few rows for the leaf constraint: with n=15 "
-                                         r"rows.*3 rows to place splits and 4 to fill leaves, "
-                                         r"but 'min_samples_leaf' is 5"):
-        _est(trees_per_bag=1).fit(X[:15], y[:15])
+    with pytest.warns(TinyDataWarning, match=r"Too few rows to split: with n=15 rows.*3 rows "
+                                             r"to place splits and 4 to fill leaves, but a "
+                                             r"split needs 2 \* min_samples_leaf = 10"):
+        est = _est(trees_per_bag=1).fit(X[:15], y[:15])
+    assert np.all(est.forest_.feature == -1)  # single leaves
+    np.testing.assert_allclose(est.predict(X[:3]), est.predict(X[3:6]))
 
 
 def test_fewer_rows_than_classical_leaf_constraint_allows(Xy):
     X, y = Xy
-    with pytest.raises(ValueError, match=r"n=12 rows.*honest=False, a tree has 6 rows to "
-                                         r"place splits and 6 to fill leaves, but "
-                                         r"'min_samples_leaf' is 7"):
-        _est(honest=False, min_samples_leaf=7).fit(X[:12], y[:12])
+    with pytest.warns(TinyDataWarning, match=r"n=12 rows.*honest=False, a tree has 6 rows to "
+                                             r"place splits and 6 to fill leaves"):
+        est = _est(honest=False, min_samples_leaf=7).fit(X[:12], y[:12])
+    assert np.all(est.forest_.feature == -1)
+
+
+def test_no_tiny_data_warning_when_trees_can_split(Xy):
+    import warnings
+
+    X, y = Xy
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", TinyDataWarning)
+        est = _est(trees_per_bag=1).fit(X[:40], y[:40])  # 20 rows: 10 + 10, leaf 5
+    assert np.any(est.forest_.feature >= 0)
 
 
 def test_smallest_data_the_leaf_constraint_allows(Xy):
@@ -398,20 +412,20 @@ def _bad_fits(df, y):
         "three_d": (X[:, :, None], y),
         "length": (X, y[:10]),
         "strings": (df.assign(beta=["s"] * len(df)), y),
-        # passes scikit-learn's checks (which reset the column names) and then fails the
-        # leaf constraint, so the names written on the way must be rolled back
-        "too_few_rows_renamed": (renamed.iloc[:12], y[:12]),
-        "four_columns_too_few_rows": (df.assign(delta=1.0).iloc[:12], y[:12]),
+        # pass scikit-learn's checks (which reset the column names and count) and then
+        # fail the forest's own cross-check (max_features=3 > 2 columns), so the names
+        # written on the way must be rolled back (tiny data no longer fails: it warns)
+        "two_columns_renamed": (renamed[["a", "b"]], y),
+        "two_columns": (df[["alpha", "beta"]].iloc[:12], y[:12]),
     }
 
 
 @pytest.mark.parametrize(
-    "case", ["nan", "three_d", "length", "strings", "too_few_rows_renamed",
-             "four_columns_too_few_rows"],
+    "case", ["nan", "three_d", "length", "strings", "two_columns_renamed", "two_columns"],
 )
 def test_failed_fit_leaves_fitted_model_intact(frame, case):
     df, y = frame
-    est = _est(trees_per_bag=4).fit(df, y)
+    est = _est(trees_per_bag=4, max_features=3).fit(df, y)
     Xq = df.iloc[:20]
     pred = est.predict(Xq)
     mean, std = est.predict(Xq, return_std=True)
@@ -440,9 +454,9 @@ def test_failed_fit_with_bad_parameter_leaves_fitted_model_intact(frame):
 
 def test_failed_first_fit_leaves_estimator_unfitted(Xy):
     X, y = Xy
-    est = _est()
-    with pytest.raises(ValueError, match="Too few rows"):
-        est.fit(X[:12], y[:12])
+    est = _est(max_features=X.shape[1] + 1)  # fails after validate_data wrote attributes
+    with pytest.raises(ValueError, match="'max_features' parameter must be at most"):
+        est.fit(X, y)
     assert not hasattr(est, "n_features_in_")
     with pytest.raises(ValueError, match="not fitted"):
         est.predict(X)
