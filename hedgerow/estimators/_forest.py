@@ -191,7 +191,7 @@ def _line_queries(line, X):
 
 def _slice_fit(fit, a, b):
     return type(fit)(intercept=fit.intercept[a:b], slopes=fit.slopes[a:b],
-                     slopes_std=fit.slopes_std[a:b], gram_inv=fit.gram_inv[a:b],
+                     slopes_scaled=fit.slopes_scaled[a:b], gram_inv=fit.gram_inv[a:b],
                      fallback=fit.fallback[a:b], ridge_penalty=fit.ridge_penalty)
 
 
