@@ -211,7 +211,8 @@ def test_probe_point_is_checked_once_and_solved_once(seed, monkeypatch):
     expected = {"fit": llf.local_fit(Xf.iloc[[7]]),
                 "std": llf.predict(Xf.iloc[[7]], return_std=True)[1][0],
                 "slope_se": llf.slope_std(Xf.iloc[[7]])[0],
-                "nw": nw.predict(Xf.iloc[[7]], return_std=True)}
+                "nw": nw.predict(Xf.iloc[[7]], return_std=True),
+                "interval": llf.predict_interval(Xf.iloc[[7]])}
     general, solves = [], []
     real_validate, real_solve = V._validate, L.solve_local
     monkeypatch.setattr(V, "_validate", lambda *a, **k: general.append(1) or
@@ -227,8 +228,8 @@ def test_probe_point_is_checked_once_and_solved_once(seed, monkeypatch):
     assert m.prediction == expected["fit"].intercept[0]
     np.testing.assert_array_equal(m.slopes, expected["fit"].slopes[0])
     np.testing.assert_array_equal(m.slope_se, expected["slope_se"])
-    assert (m.upper - m.lower) / 2 == pytest.approx(1.959963984540054 * expected["std"],
-                                                    rel=1e-12)
+    # the readout's interval is the forest's default (bias-corrected) interval
+    assert m.lower == expected["interval"][0][0] and m.upper == expected["interval"][1][0]
     k = report.method("Nadaraya-Watson")
     assert k.prediction == expected["nw"][0][0]
 
