@@ -83,14 +83,12 @@ def bias_aware_half_width(std, bias_bound, level: float = 0.95) -> np.ndarray:
     return np.where((std == 0) & (b > 0), b, out)
 
 
-def worst_case_curvature_sum(W, X_c, Q_c, fit, scale) -> np.ndarray:
-    """Return sum_i |l_i(x)| * ||z_i(x)||^2 per query, one pass over W's non-zeros.
+def _kernel_terms(W, X_c, Q_c, fit, scale):
+    """Return (W as CSR, query of each non-zero, z_i(x) per non-zero, l_i(x) per non-zero).
 
-    ``l`` is the equivalent kernel of ``fit`` (as ``hedgerow.local.equivalent_kernel``)
-    and z_i(x) = (x_i - x) / scale in the correction columns. For a fit with no
-    correction columns (degree 0) l = W (rows normalised) and z is still needed: pass the
-    columns the curvature is measured in together with a ``fit`` whose ``gram_inv`` is
-    (m, 1, 1).
+    One pass over W's non-zeros: z_i(x) = (x_i - x) / scale and the equivalent-kernel
+    weight l_i(x) = w_i(x) * c(x)'[1, z_i(x)] of ``fit`` (c the first row of its inverse
+    Gram matrix; the leading columns of z are the fit's own columns).
     """
     W = sp.csr_matrix(W, dtype=np.float64)
     W.sum_duplicates()
@@ -105,7 +103,21 @@ def worst_case_curvature_sum(W, X_c, Q_c, fit, scale) -> np.ndarray:
     lev = g[rows, 0]
     if k:
         lev = lev + np.einsum("ik,ik->i", g[rows, 1:], Z[:, :k])
-    term = np.abs(W.data * lev) * np.einsum("ik,ik->i", Z, Z)
+    return W, rows, Z, W.data * lev
+
+
+def worst_case_curvature_sum(W, X_c, Q_c, fit, scale) -> np.ndarray:
+    """Return sum_i |l_i(x)| * ||z_i(x)||^2 per query, one pass over W's non-zeros.
+
+    ``l`` is the equivalent kernel of ``fit`` (as ``hedgerow.local.equivalent_kernel``)
+    and z_i(x) = (x_i - x) / scale in the correction columns. For a fit with no
+    correction columns (degree 0) l = W (rows normalised) and z is still needed: pass the
+    columns the curvature is measured in together with a ``fit`` whose ``gram_inv`` is
+    (m, 1, 1).
+    """
+    W, rows, Z, lw = _kernel_terms(W, X_c, Q_c, fit, scale)
+    m = W.shape[0]
+    term = np.abs(lw) * np.einsum("ik,ik->i", Z, Z)
     out = np.bincount(rows, weights=term, minlength=m)
     out[np.asarray(W.sum(axis=1)).ravel() == 0] = np.nan
     return out
@@ -119,21 +131,8 @@ def curvature_moment(W, X_c, Q_c, fit, scale) -> np.ndarray:
     is 1/2 tr(H S(x)) to leading order, so |bias| <= M/2 * ||S(x)||_* (nuclear norm) when
     ||H|| <= M (spectral norm).
     """
-    W = sp.csr_matrix(W, dtype=np.float64)
-    W.sum_duplicates()
-    m = W.shape[0]
-    rows = np.repeat(np.arange(m), np.diff(W.indptr))
-    X_c = np.asarray(X_c, dtype=np.float64)
-    Q_c = np.asarray(Q_c, dtype=np.float64)
-    scale = np.asarray(scale, dtype=np.float64)
-    k = X_c.shape[1]
-    Z = (X_c[W.indices] - Q_c[rows]) / scale
-    g = np.nan_to_num(fit.gram_inv[:, 0, :])
-    lev = g[rows, 0]
-    kk = g.shape[1] - 1
-    if kk:
-        lev = lev + np.einsum("ik,ik->i", g[rows, 1:], Z[:, :kk])
-    lw = W.data * lev
+    W, rows, Z, lw = _kernel_terms(W, X_c, Q_c, fit, scale)
+    m, k = W.shape[0], Z.shape[1]
     S = np.zeros((m, k, k))
     for a in range(k):
         for b in range(a, k):
