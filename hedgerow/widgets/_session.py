@@ -170,7 +170,8 @@ class ExploreSession(t.HasTraits):
     def _install_smoothers(self, job, smoothers):
         with self._lock:
             self._smoothers = list(smoothers)
-            # only what shows the smoothers is recomputed; forest-only entries stay
+            # entries showing the smoothers are keyed by their count: drop the old ones
+            # (forest-only entries stay)
             drop = {"probe", "scene", "edges", "weights"}
             for key in [k for k in self._cache if len(k) > 2 and k[2] in drop]:
                 del self._cache[key]
@@ -253,8 +254,9 @@ class ExploreSession(t.HasTraits):
     # -- diagnostics, cached -----------------------------------------------------------
     def probe_report(self, x=None):
         x = np.asarray(self.probe_x if x is None else x, dtype=np.float64)
-        return self._cached(("probe", x.tobytes()), lambda: D.probe(
-            self.penalised_model(), x, compare=self._smoothers))
+        smoothers = list(self._smoothers)  # keyed by what it is computed with
+        return self._cached(("probe", x.tobytes(), len(smoothers)), lambda: D.probe(
+            self.penalised_model(), x, compare=smoothers))
 
     def scene(self, x, feature, grid_size=80) -> ProbeScene:
         """Return the ``ProbeScene`` at ``x`` with ``feature`` on the x-axis."""
@@ -267,10 +269,12 @@ class ExploreSession(t.HasTraits):
             sl = D.slices(self.slice_models(), x, j, grid)
             return ProbeScene(report, sl, D.probe_readout(report), j, grid)
 
-        return self._cached(("scene", x.tobytes(), feature, grid_size), compute)
+        return self._cached(("scene", x.tobytes(), feature, grid_size,
+                             len(self._smoothers)), compute)
 
     def edge_profile(self):
-        return self._cached(("edges",), lambda: D.edges(self.held_out_models()))
+        models = self.held_out_models()
+        return self._cached(("edges", len(models)), lambda: D.edges(models))
 
     def verdict_report(self):
         def compute():
@@ -346,7 +350,8 @@ class ExploreSession(t.HasTraits):
                             per_penalty=False)
 
     def weight_profile(self, method):
-        return self._cached(("weights", np.asarray(self.probe_x).tobytes(), method),
+        return self._cached(("weights", np.asarray(self.probe_x).tobytes(), method,
+                             len(self._smoothers)),
                             lambda: D.weight_profile(self.probe_report(), self.X_train,
                                                      method))
 
