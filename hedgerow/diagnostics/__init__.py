@@ -25,7 +25,7 @@ from hedgerow.diagnostics._interactive import (
     slice_grid,
     weight_profile,
 )
-from hedgerow.diagnostics._probe import TOP_ROWS, MethodAtProbe, ProbeReport, probe
+from hedgerow.diagnostics._probe import TOP_ROWS, WIDE_COLUMNS, MethodAtProbe, ProbeReport, probe
 from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
@@ -63,6 +63,7 @@ __all__ = [
     "ProbeReport",
     "SliceReport",
     "TOP_ROWS",
+    "WIDE_COLUMNS",
     "Verdict",
     "DECISIONS",
     "carrying_rows",

@@ -112,12 +112,14 @@ def local_line(report, feature, span, *, method="local linear forest"):
 
 
 def probe_readout(report) -> pd.DataFrame:
-    """Return per method: prediction, interval half-width, lower, upper and effective n."""
+    """Return per method: prediction, interval half-width, lower, upper, effective n and
+    columns used (a smoother's effective column count; NaN for the forests)."""
     rows = []
     for m in report.methods:
         half = (m.upper - m.lower) / 2 if np.isfinite(m.upper - m.lower) else np.nan
         rows.append({"method": m.name, "prediction": m.prediction, "half_width": half,
-                     "lower": m.lower, "upper": m.upper, "ess": m.ess})
+                     "lower": m.lower, "upper": m.upper, "ess": m.ess,
+                     "columns_used": np.nan if m.columns_used is None else m.columns_used})
     return pd.DataFrame(rows).set_index("method")
 
 

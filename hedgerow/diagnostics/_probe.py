@@ -19,10 +19,13 @@ from hedgerow.diagnostics._report import (
 from hedgerow.diagnostics._slices import method_label
 from hedgerow.inference import normal_interval
 
-__all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS"]
+__all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS", "WIDE_COLUMNS"]
 
 #: Rows counted in ``ProbeReport.top_share``.
 TOP_ROWS = 10
+#: From this many columns on, the notes say how many each smoother effectively uses
+#: (also below it when a smoother drops a column).
+WIDE_COLUMNS = 5
 
 
 @dataclass(frozen=True)
@@ -37,6 +40,9 @@ class MethodAtProbe:
     slope_se: np.ndarray
     weights: sp.csr_matrix  # 1 × n
     ess: float
+    #: Columns the method effectively uses (a smoother's ``n_features_used_``: columns
+    #: whose bandwidth reached the upper bound drop out); None for the forests.
+    columns_used: int | None = None
 
 
 @dataclass(frozen=True)
@@ -108,12 +114,25 @@ class ProbeReport(ReportMixin):
             index=list(self.feature_names),
         )
 
+    def column_use_notes(self) -> list:
+        """Sentences saying how many columns each smoother effectively uses.
+
+        Given on wide data (``WIDE_COLUMNS`` or more) and whenever a smoother drops a
+        column; empty otherwise, and for the forests.
+        """
+        d = len(self.feature_names)
+        return [f"{m.name} uses {m.columns_used} of {d} columns"
+                for m in self.methods if m.columns_used is not None
+                and (d >= WIDE_COLUMNS or m.columns_used < d)]
+
     def _notes(self):
         return [f"effective sample size {self.ess:.1f}; top {TOP_ROWS} rows hold "
-                f"{100 * self.top_share:.0f}% of the weight; {100 * self.level:.0f}% intervals"]
+                f"{100 * self.top_share:.0f}% of the weight; {100 * self.level:.0f}% intervals",
+                *self.column_use_notes()]
 
 
-def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None):
+def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None,
+                  columns_used=None):
     # ``interval``: the estimator's own (lower, upper) where it has a default interval
     # method of its own (the forests' bias-corrected one); otherwise mean -/+ z * std
     if std is None or not np.isfinite(std):
@@ -126,7 +145,7 @@ def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None):
     return MethodAtProbe(
         name=name, prediction=float(pred), lower=float(lo), upper=float(hi),
         slopes=np.asarray(slopes, dtype=float), slope_se=np.asarray(slope_se, dtype=float),
-        weights=w, ess=kish_ess(w.data),
+        weights=w, ess=kish_ess(w.data), columns_used=columns_used,
     )
 
 
@@ -217,6 +236,7 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
         methods.append(_method_entry(
             label, smoother.neighbour_weights(qs), pred[0], float(sstd[0]), slopes,
             np.full(k, np.nan), level,
+            columns_used=int(getattr(smoother, "n_features_used_", smoother.n_features_in_)),
         ))
     return ProbeReport(
         x=xq[0], feature_names=names, weights=sp.csr_matrix(W), ess=kish_ess(W.data),

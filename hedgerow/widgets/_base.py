@@ -52,7 +52,8 @@ class View(W.VBox):
         self._error_area.add_class(CSS.error)
         self._settings_line = W.HTML()
         self._settings_line.add_class(CSS.settings)
-        session.observe(self._on_settings_changed, names=["settings", "refit_status"])
+        session.observe(self._on_settings_changed,
+                        names=["settings", "refit_status", "smoothers_message"])
 
     _error_depth = 0
 
@@ -96,5 +97,6 @@ class View(W.VBox):
         s = self._session
         busy = " (a refit is running; this view shows the forest above)" \
             if s.refit_status in ("waiting", "running") else ""
-        text = html.escape(s.describe_settings() + busy)
+        pending = f"; {s.smoothers_message}" if s.smoothers_message else ""
+        text = html.escape(s.describe_settings() + busy + pending)
         self._settings_line.value = f"<small style='color:#555'>{text}</small>"

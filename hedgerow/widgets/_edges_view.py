@@ -37,7 +37,10 @@ class EdgesView(View):
         xs, ys = bq.LinearScale(min=0.0, max=0.5), bq.LinearScale()
         sc = {"x": xs, "y": ys}
         self._sizes = bq.LinearScale(min=0.0, max=1.0)
-        names = list(session.held_out_models())
+        # smoothers still fitting in the background get their marks now, drawn when in
+        ready = list(session.held_out_models())
+        names = ready + [n for n in session.planned_methods()
+                         if n not in ready and n not in session.slice_models()]
         self.dot_marks, self.mean_marks, self.whisker_marks = {}, {}, {}
         for name in names:
             c = colour_of(name)
@@ -67,7 +70,7 @@ class EdgesView(View):
         self.children = [W.HTML(f"<b>edges</b> <small>{legend}; ringed: rows carrying the "
                                 f"probe's weight</small>"), self._error_area, self.figure,
                          self.bend_html, self._settings_line]
-        self._follow(["generation", "ridge_penalty", "probe_x"])
+        self._follow(["generation", "ridge_penalty", "probe_x", "compared"])
 
     def _redraw(self):
         with self._shown_errors("drawing the edges view"):
@@ -82,6 +85,8 @@ class EdgesView(View):
                  *self.whisker_marks.values(), self.probe_rows_mark]
         with held(*marks):
             for k, name in enumerate(self._order):
+                if name not in prof.residuals:  # not fitted yet
+                    continue
                 shift = (k - (len(self._order) - 1) / 2) * self._offset
                 r = prof.residuals[name].to_numpy()
                 self.dot_marks[name].x = prof.depth[self._rows]

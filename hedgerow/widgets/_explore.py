@@ -34,6 +34,11 @@ class Explorer(W.Tab):
         super().__init__(children=views, titles=TAB_TITLES)
         self.add_class("hedgerow-explorer")
 
+    def close(self):
+        """Close the widget and cancel the session's background jobs (smoothers, ...)."""
+        self.session.close()
+        super().close()
+
     @property
     def views(self):
         return list(self.children)

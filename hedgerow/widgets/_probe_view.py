@@ -53,7 +53,7 @@ class ProbeView(View):
         self._build_figure()
         self._build_controls()
         t.link((s, "probe_x"), (self, "probe_x"))
-        s.observe(self._on_model_changed, names=["generation", "ridge_penalty"])
+        s.observe(self._on_model_changed, names=["generation", "ridge_penalty", "compared"])
         self._redraw()
         note = "" if self._rows.size == s.X_train.shape[0] else (
             f"<small>showing a fixed subsample of {self._rows.size:,} of "
@@ -89,7 +89,7 @@ class ProbeView(View):
                                   fill_opacities=[0.18], opacities=[0.0, 0.0],
                                   labels=["95% band"])
         self.slice_marks = {}
-        for name in s.slice_models():
+        for name in s.planned_methods():  # smoothers not in yet are drawn when they are
             self.slice_marks[name] = bq.Lines(
                 x=np.zeros(2), y=np.zeros(2), scales=sc, colors=[colour_of(name)],
                 line_style=dash_of(name), stroke_width=2.2, labels=[name],
@@ -229,6 +229,8 @@ class ProbeView(View):
             self.band_mark.y = np.vstack([band["lower"].to_numpy(), band["upper"].to_numpy()])
             for name, mark in self.slice_marks.items():
                 part = scene.slices.method(name)
+                if part.empty:  # a smoother still fitting in the background
+                    continue
                 mark.x, mark.y = part["value"].to_numpy(), part["prediction"].to_numpy()
             self.line_mark.x, self.line_mark.y = lx, ly
             self.point_mark.x = np.array([rep.x[j]])
@@ -252,8 +254,10 @@ class ProbeView(View):
             f"&plusmn; {fmt(r['half_width'], 3)}</td><td>{fmt(r['ess'], 3)}</td></tr>"
             for name, r in frame.iterrows())
         where = ", ".join(f"{n}={fmt(v, 3)}" for n, v in zip(self._names, rep.x, strict=True))
+        notes = "".join(f"<br><small class='hedgerow-column-use'>{html.escape(n)}</small>"
+                        for n in rep.column_use_notes())
         self._readout_html.value = (
             f"<div><small>probe at {html.escape(where)}</small>"
             f"<table style='border-collapse:collapse'><tr><th align='left'>method</th>"
             f"<th align='left'>prediction &plusmn; {100 * rep.level:.0f}% half-width</th>"
-            f"<th align='left'>effective n</th></tr>{rows}</table></div>")
+            f"<th align='left'>effective n</th></tr>{rows}</table>{notes}</div>")

@@ -65,7 +65,9 @@ class ExploreSession(t.HasTraits):
     X, y : training data (array or DataFrame / Series).
     model : a fitted ``LocalLinearForestRegressor`` on (X, y), or None to fit one with
         ``forest_params`` (defaults ``DEFAULT_FOREST``).
-    compare : fit Nadaraya-Watson and kernel local linear regression for comparison.
+    compare : fit Nadaraya-Watson and kernel local linear regression for comparison, in
+        the background (job kind "smoothers"): the session is usable at once, the views
+        draw the forests first and add the smoothers when ``compared`` changes.
     refit_delay : seconds a refit request waits for further requests (debounce).
     """
 
@@ -77,6 +79,9 @@ class ExploreSession(t.HasTraits):
     refit_progress = t.Float(0.0, help="Share of the trees grown by the running refit.")
     refit_message = t.Unicode("", help="Plain-language state of the last refit.")
     job_states = t.Dict(help="Outcome of the newest background job of each kind.")
+    compared = t.List(t.Unicode(), help="Labels of the comparison smoothers in place.")
+    smoothers_message = t.Unicode("", help="Plain-language state of the smoother fits "
+                                  "('' when none are pending).")
 
     def __init__(self, X, y, *, model=None, compare=True, refit_delay=0.5, **forest_params):
         super().__init__()
@@ -98,20 +103,97 @@ class ExploreSession(t.HasTraits):
             with _quiet():
                 model = LocalLinearForestRegressor(**params).fit(X, y)
         self._model = model
-        self._smoothers = self._fit_smoothers() if compare else []
+        self._compare = bool(compare)
+        self._smoothers = []
         self.feature_names = list(column_names(model))
         self.ridge_penalty = float(model.ridge_penalty_)
         self.probe_x = [float(v) for v in D.probe_anchor(model.X_train_)]
         self._update_settings()
+        if self._compare:
+            self.request_smoothers()
 
     # -- models ------------------------------------------------------------------------
-    def _fit_smoothers(self):
-        from hedgerow.estimators._kernel import LocalLinearRegressor, NadarayaWatsonRegressor
+    #: The comparison smoothers, in the order the views list them.
+    SMOOTHER_CLASSES = ("NadarayaWatsonRegressor", "LocalLinearRegressor")
 
-        # cross-validating bandwidths can take a while on wide data: show a bar each
-        with _quiet():
-            return [NadarayaWatsonRegressor().fit(self._X, self._y, progress=True),
-                    LocalLinearRegressor().fit(self._X, self._y, progress=True)]
+    @property
+    def compare(self) -> bool:
+        """Whether this session compares the kernel smoothers (fitted or still pending)."""
+        return self._compare
+
+    def planned_methods(self) -> list:
+        """Labels of every method the views show once all background fits are in.
+
+        The forests, then the comparison smoothers (with ``compare``), fitted or not: the
+        views make room for each from the start and draw a smoother once it is in place.
+        """
+        from hedgerow import estimators as E
+
+        out = list(self.slice_models())
+        if self._compare:
+            out += [n for n in (D.method_label(getattr(E, c)()) for c in self.SMOOTHER_CLASSES)
+                    if n not in out]
+        return out
+
+    def request_smoothers(self) -> Job | None:
+        """Fit the comparison smoothers in the background; the job (None if in place).
+
+        Kind "smoothers": the two bandwidth searches report every objective evaluation
+        as progress (``smoothers_message``), a cancel stops them at the next one, and
+        the fitted smoothers are put in place on the event loop (``compared`` changes,
+        the views redraw). A refit cancels a running smoother job and asks again after.
+        """
+        if not self._compare or self._smoothers or self._closed:
+            return None
+        job = self._runner.latest("smoothers")
+        if job is not None and job.outcome in ("waiting", "running"):
+            return job
+        return self.submit("smoothers", self._fit_smoothers, on_done=self._install_smoothers)
+
+    def _fit_smoothers(self, job):
+        from hedgerow import estimators as E
+        from hedgerow._progress import RunControl
+
+        fitted = []
+        for k, name in enumerate(self.SMOOTHER_CLASSES):
+            def step(done, total, k=k):
+                # each search is one half of the job; its length is known only roughly
+                share = done / total if total else 1.0 - 1.0 / (1.0 + done / 40.0)
+                job.report(k + min(share, 1.0), len(self.SMOOTHER_CLASSES))
+
+            job.report(k, len(self.SMOOTHER_CLASSES))
+            with _quiet():
+                fitted.append(getattr(E, name)().fit(self._X, self._y,
+                                                     progress=RunControl(step)))
+        return fitted
+
+    def _install_smoothers(self, job, smoothers):
+        with self._lock:
+            self._smoothers = list(smoothers)
+            # entries showing the smoothers are keyed by their count: drop the old ones
+            # (forest-only entries stay)
+            drop = {"probe", "scene", "edges", "weights"}
+            for key in [k for k in self._cache if len(k) > 2 and k[2] in drop]:
+                del self._cache[key]
+        self.compared = [D.method_label(s) for s in smoothers]
+
+    def _smoothers_published(self, job):
+        if job.outcome == "waiting":
+            self.smoothers_message = "comparison smoothers: waiting for the background worker"
+        elif job.outcome == "running":
+            self.smoothers_message = (f"fitting the comparison smoothers "
+                                      f"({100 * job.progress:.0f}%)")
+        elif job.outcome == "failed":
+            self.smoothers_message = f"the comparison smoothers failed: {job.message}"
+        else:  # done, or cancelled (a refit asks again when it ends)
+            self.smoothers_message = ""
+
+    def close(self):
+        """Cancel every background job of this session (the explorer closes it)."""
+        self._closed = True
+        self._runner.cancel()
+
+    _closed = False
 
     @property
     def model(self):
@@ -172,8 +254,9 @@ class ExploreSession(t.HasTraits):
     # -- diagnostics, cached -----------------------------------------------------------
     def probe_report(self, x=None):
         x = np.asarray(self.probe_x if x is None else x, dtype=np.float64)
-        return self._cached(("probe", x.tobytes()), lambda: D.probe(
-            self.penalised_model(), x, compare=self._smoothers))
+        smoothers = list(self._smoothers)  # keyed by what it is computed with
+        return self._cached(("probe", x.tobytes(), len(smoothers)), lambda: D.probe(
+            self.penalised_model(), x, compare=smoothers))
 
     def scene(self, x, feature, grid_size=80) -> ProbeScene:
         """Return the ``ProbeScene`` at ``x`` with ``feature`` on the x-axis."""
@@ -186,10 +269,12 @@ class ExploreSession(t.HasTraits):
             sl = D.slices(self.slice_models(), x, j, grid)
             return ProbeScene(report, sl, D.probe_readout(report), j, grid)
 
-        return self._cached(("scene", x.tobytes(), feature, grid_size), compute)
+        return self._cached(("scene", x.tobytes(), feature, grid_size,
+                             len(self._smoothers)), compute)
 
     def edge_profile(self):
-        return self._cached(("edges",), lambda: D.edges(self.held_out_models()))
+        models = self.held_out_models()
+        return self._cached(("edges", len(models)), lambda: D.edges(models))
 
     def verdict_report(self):
         def compute():
@@ -265,7 +350,8 @@ class ExploreSession(t.HasTraits):
                             per_penalty=False)
 
     def weight_profile(self, method):
-        return self._cached(("weights", np.asarray(self.probe_x).tobytes(), method),
+        return self._cached(("weights", np.asarray(self.probe_x).tobytes(), method,
+                             len(self._smoothers)),
                             lambda: D.weight_profile(self.probe_report(), self.X_train,
                                                      method))
 
@@ -283,7 +369,7 @@ class ExploreSession(t.HasTraits):
             "model": self._model, "X": self._X, "y": self._y,
             "probe": [float(v) for v in self.probe_x],
             "ridge_penalty": float(self.ridge_penalty),
-            "compare": bool(self._smoothers),
+            "compare": self._compare,
             "headline": {
                 "oob_rmse": summary["oob_rmse"], "mean_interval_width": summary["mean_width"],
                 "interval_level": summary["level"],
@@ -377,6 +463,8 @@ class ExploreSession(t.HasTraits):
             self.job_states = {**self.job_states, job.kind: job.outcome}
         if job.kind == "refit":
             self._refit_published(job, latest)
+        elif job.kind == "smoothers" and latest:
+            self._smoothers_published(job)
         for callback in list(self._subscribers.get(job.kind, ())):
             callback(job)
 
@@ -394,6 +482,8 @@ class ExploreSession(t.HasTraits):
         base = previous.params if previous is not None and previous.outcome in (
             "waiting", "running") else self._model.get_params()
         params = {**base, **changes}
+        # the refit goes first: smoothers being fitted stop and are asked for again after
+        self._runner.cancel("smoothers")
         return self.submit("refit", self._refit, params=params, delay=self._refit_delay,
                            on_done=self._install)
 
@@ -425,6 +515,8 @@ class ExploreSession(t.HasTraits):
             self.refit_log.append((job.params, job.outcome))
         if not latest:
             return
+        if job.outcome in ENDED and not self._closed:
+            self.request_smoothers()
         if job.outcome == "waiting":
             self._set_status("waiting", "refit requested")
         elif job.outcome == "running":

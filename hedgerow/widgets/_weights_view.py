@@ -22,8 +22,8 @@ class WeightsView(View):
     def __init__(self, session, **kwargs):
         super().__init__(session, **kwargs)
         # the two forests share their weights: one entry stands for both
-        rep = session.probe_report()
-        self._methods = [m.name for m in rep.methods if not m.name.startswith("honest")]
+        # smoothers still fitting in the background get their marks now, drawn when in
+        self._methods = [n for n in session.planned_methods() if not n.startswith("honest")]
         dx, dy = bq.LinearScale(min=0.0), bq.LinearScale(min=0.0)
         rx, ry = bq.LogScale(), bq.LinearScale(min=0.0, max=1.0)
         self.weight_marks, self.cumulative_marks = {}, {}
@@ -49,11 +49,13 @@ class WeightsView(View):
         self.children = [W.HTML(f"<b>neighbour weights</b> <small>{legend}</small>"),
                          self._error_area, W.HBox([self.distance_figure, self.rank_figure]),
                          self._settings_line]
-        self._follow(["generation", "ridge_penalty", "probe_x"])
+        self._follow(["generation", "ridge_penalty", "probe_x", "compared"])
 
     def _redraw(self):
         with self._shown_errors("drawing the neighbour weights"):
-            self._draw({m: self._session.weight_profile(m) for m in self._methods})
+            ready = set(self._session.slice_models())
+            self._draw({m: self._session.weight_profile(m) for m in self._methods
+                        if m in ready})
 
     def _draw(self, profiles):
         with held(*self.weight_marks.values(), *self.cumulative_marks.values()):

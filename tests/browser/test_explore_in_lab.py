@@ -199,6 +199,9 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         readout = page.locator(".hedgerow-probe-readout")
         readout.wait_for(state="visible", timeout=90_000)
         _wait_until(lambda: "±" in readout.inner_text(), 30, "the probe readout")
+        # the comparison smoothers fit in the background: their rows join the readout
+        _wait_until(lambda: "local linear (kernel)" in readout.inner_text(), 120,
+                    "the smoother rows in the probe readout")
         before = readout.inner_text()
         rec0 = _wait_until(lambda: _read_record(lab["record"]), 10, "the kernel record")
         page.screenshot(path=str(ARTIFACTS / "explore-before.png"))
@@ -294,6 +297,8 @@ def test_the_explorer_renders_in_notebook_7(lab, page):
             except Exception:  # noqa: BLE001 - playwright's timeout; try again
                 continue
         _wait_until(lambda: "±" in readout.inner_text(), 30, "the probe readout")
+        _wait_until(lambda: "local linear (kernel)" in readout.inner_text(), 120,
+                    "the smoother rows in the probe readout")
         rec = _wait_until(lambda: _read_record(lab["record"]), 10, "the kernel record")
         text = readout.inner_text()
         for name, row in rec["readout"].items():

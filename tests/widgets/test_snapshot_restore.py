@@ -30,6 +30,7 @@ def original(data):
     """An explorer moved away from every default, and its snapshot saved to disk."""
     X, y = data
     app = explore(X, y, n_estimators=80, random_state=4, min_samples_leaf=8, refit_delay=0.05)
+    assert app.session.wait_for("smoothers", 120) == "done"  # fitted in the background
     app.probe_view.feature = "inlet_pressure_kpa"
     app.probe_view.anchor_row = 17  # the probe takes row 17's values ...
     app.probe_view.move_probe(float(X["inlet_pressure_kpa"].quantile(0.93)))  # ... then moves
@@ -50,7 +51,9 @@ def saved(original, tmp_path_factory):
 @pytest.fixture(scope="module")
 def restored(saved, data):
     X, y = data
-    return hedgerow.explore(X, y, snapshot=str(saved), refit_delay=0.05)
+    app = hedgerow.explore(X, y, snapshot=str(saved), refit_delay=0.05)
+    assert app.session.wait_for("smoothers", 120) == "done"
+    return app
 
 
 def test_capture_records_what_the_explorer_shows(original, saved, data):

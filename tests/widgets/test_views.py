@@ -24,7 +24,10 @@ def data():
 @pytest.fixture(scope="module")
 def app(data):
     X, y = data
-    return explore(X, y, n_estimators=100, refit_delay=0.05)
+    app = explore(X, y, n_estimators=100, refit_delay=0.05)
+    # the smoothers fit in the background; these tests read the views with them in
+    assert app.session.wait_for("smoothers", 120) == "done"
+    return app
 
 
 @pytest.fixture
