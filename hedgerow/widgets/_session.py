@@ -276,18 +276,56 @@ class ExploreSession(t.HasTraits):
         models = self.held_out_models()
         return self._cached(("edges", len(models)), lambda: D.edges(models))
 
-    def verdict_report(self):
-        def compute():
-            # The forests a user would fit instead, as in a snapshot's headline. Kernel
-            # smoothers are left out here: cross-fitting them re-runs the bandwidth search
-            # in every fold (minutes on wide data), too slow for a view; the report has them.
-            # Fold fits are kept per forest: a penalty change re-predicts, it does not refit.
-            folds = self._cached(("verdict folds",), dict, per_penalty=False)
-            return D.verdict(self._model.X_train_, self._model.y_train_,
-                             forest=self.penalised_model(), smoothers=None, baseline=True,
-                             progress=False, fold_cache=folds)
+    def _verdict_of(self, model, progress=False):
+        # The forests a user would fit instead, as in a snapshot's headline. Kernel
+        # smoothers are left out here: cross-fitting them re-runs the bandwidth search
+        # in every fold (minutes on wide data), too slow for a view; the report has them.
+        # Fold fits are kept per forest: a penalty change re-predicts, it does not refit.
+        folds = self._cached(("verdict folds",), dict, per_penalty=False)
+        return D.verdict(model.X_train_, model.y_train_, forest=model, smoothers=None,
+                         baseline=True, progress=progress, fold_cache=folds)
 
-        return self._cached(("verdict",), compute)
+    def verdict_report(self):
+        """The cross-fitted verdict at the current penalty (computed here if not cached).
+
+        Views do not call this: five cross-fitted folds take several fits' time, so they
+        ask :meth:`request_verdict` and draw :meth:`peek_verdict` when it arrives.
+        Snapshots and scripts call it and wait.
+        """
+        return self._cached(("verdict",), lambda: self._verdict_of(self.penalised_model()))
+
+    def peek_verdict(self):
+        """The verdict at the current state if it is computed, else None."""
+        return self.peek(("verdict",))
+
+    def request_verdict(self):
+        """Compute :meth:`verdict_report` in the background; the job, or None if cached.
+
+        A job of kind "verdict", keyed by (generation, ridge penalty), with progress per
+        fold; a newer state cancels it (an interrupted verdict is not kept). The result is
+        stored in the cache under its key, then the subscribers hear of it.
+        """
+        from hedgerow._progress import RunControl
+
+        if self.peek_verdict() is not None:
+            return None
+        key = self._state_key()
+        job = self._runner.latest("verdict")
+        if job is not None and job.key == key and job.outcome in ("waiting", "running"):
+            return job
+        model = self.penalised_model()
+
+        def run(job):
+            control = RunControl(lambda done, total: job.report(done, total, stop=False))
+            job.on_cancel(control.cancel)
+            with _quiet():
+                return self._verdict_of(model, progress=control)
+
+        def store(job, value):
+            if value is not None and value.decision != "incomplete":
+                self._store(key + ("verdict",), value)
+
+        return self.submit("verdict", run, key=key, on_done=store, stops_itself=True)
 
     def oob_summary(self):
         """The out-of-bag summary at the current penalty, interval width included."""

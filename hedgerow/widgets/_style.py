@@ -19,6 +19,10 @@ HIGHLIGHT_COLOUR = "#111111"
 #: Above this many rows the scatter shows a fixed subsample (weights still use every row).
 DISPLAY_LIMIT = 5000
 
+#: What a view shows while the session's runner cross-fits the verdict.
+VERDICT_PENDING = ("<p><i>verdict: cross-fitting the forests fold by fold in the "
+                   "background&hellip;</i></p>")
+
 
 class CSS:
     """CSS classes on the widgets tests and users select on."""

@@ -16,7 +16,7 @@ import numpy as np
 import traitlets as t
 
 from hedgerow.widgets._base import View, held, plain_figure
-from hedgerow.widgets._style import CSS, PROBE_COLOUR, colour_of, fmt
+from hedgerow.widgets._style import CSS, PROBE_COLOUR, VERDICT_PENDING, colour_of, fmt
 
 __all__ = ["TuningView"]
 
@@ -92,6 +92,7 @@ class TuningView(View):
         s.observe(self._on_model_changed, names=["generation", "ridge_penalty"])
         s.subscribe("interval width", self._on_width_job)
         s.subscribe("coverage", self._on_coverage_job)
+        s.subscribe("verdict", self._on_verdict_job)
         self.children = [
             W.HTML("<b>tuning</b> <small>the ridge penalty re-solves the local lines on the "
                    "same trees; the other settings grow a new forest</small>"),
@@ -167,8 +168,19 @@ class TuningView(View):
             summary = s.quick_oob_summary()
             pending = not np.isfinite(summary["mean_width"]) and \
                 s.request_oob_summary() is not None
-            self._draw(summary, s.ridge_curve(CURVE_PENALTIES), s.verdict_report(),
+            # the cross-fitted verdict (several fits' time) arrives from the runner too
+            verdict = s.peek_verdict()
+            if verdict is None:
+                s.request_verdict()
+            self._draw(summary, s.ridge_curve(CURVE_PENALTIES), verdict,
                        width_pending=pending)
+
+    def _on_verdict_job(self, job):
+        s = self._session
+        if job.outcome == "failed":
+            self.error = f"computing the verdict: {job.message}"
+        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
+            self._redraw()
 
     def _on_width_job(self, job):
         s = self._session
@@ -209,7 +221,8 @@ class TuningView(View):
             f"<td class='hedgerow-value'>{width}</td></tr>"
             f"<tr><td>rows with an out-of-bag prediction</td><td>{summary['n_rows']}</td></tr>"
             f"</table>")
-        self.verdict_html.value = f"<p>{html.escape(verdict.conclusion)}</p>"
+        self.verdict_html.value = (VERDICT_PENDING if verdict is None
+                                   else f"<p>{html.escape(verdict.conclusion)}</p>")
 
     # -- coverage readout (a button; runs in the background) ---------------------------
     def _on_coverage_clicked(self, button):

@@ -10,7 +10,7 @@ import numpy as np
 
 from hedgerow.diagnostics import EDGE_BAND
 from hedgerow.widgets._base import View, held, plain_figure
-from hedgerow.widgets._style import CSS, colour_of, fmt, swatch
+from hedgerow.widgets._style import CSS, VERDICT_PENDING, colour_of, fmt, swatch
 
 __all__ = ["VerdictView"]
 
@@ -41,10 +41,25 @@ class VerdictView(View):
                          self._error_area, self.conclusion_html, self.figure,
                          self.table_html, self._settings_line]
         self._follow(["generation", "ridge_penalty"])
+        session.subscribe("verdict", self._on_verdict_job)
 
     def _redraw(self):
         with self._shown_errors("drawing the verdict"):
-            self._draw(self._session.verdict_report())
+            s = self._session
+            v = s.peek_verdict()
+            if v is None:  # five cross-fitted folds: computed by the session's runner
+                s.request_verdict()
+                self.conclusion_html.value = VERDICT_PENDING
+                self.table_html.value = ""
+                return
+            self._draw(v)
+
+    def _on_verdict_job(self, job):
+        s = self._session
+        if job.outcome == "failed":
+            self.error = f"computing the verdict: {job.message}"
+        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
+            self._redraw()
 
     def _draw(self, v):
         comp = v.comparisons

@@ -250,7 +250,9 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
 def test_every_tab_draws_its_figures_without_errors(lab, page):
     """Runs after the drag test on the same page: each view's figures are on screen."""
     try:
-        rec = _wait_until(lambda: _read_record(lab["record"]), 10, "the kernel record")
+        # the verdict is cross-fitted in the session's background runner: wait for it
+        rec = _wait_until(lambda: (r := _read_record(lab["record"])) and r["verdict"] and r,
+                          300, "the cross-fitted verdict in the kernel record")
         for tab in ("neighbour weights", "edges", "verdict", "tuning", "probe"):
             page.locator(".lm-TabBar-tabLabel", has_text=tab).first.click()
             # a visible bqplot figure (or, for the verdict, its conclusion) with real size
@@ -269,7 +271,8 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
             page.screenshot(path=str(ARTIFACTS / f"explore-tab-{tab.replace(' ', '-')}.png"))
         page.locator(".lm-TabBar-tabLabel", has_text="verdict").first.click()
         conclusion = page.locator(".hedgerow-verdict-conclusion:visible").first
-        assert rec["verdict"][:60] in conclusion.inner_text()
+        _wait_until(lambda: rec["verdict"][:60] in conclusion.inner_text(), 60,
+                    "the verdict on the page")
         page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         page.locator(".hedgerow-explorer").first.screenshot(
             path=str(ARTIFACTS / "explorer.png"))

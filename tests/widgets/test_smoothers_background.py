@@ -141,3 +141,33 @@ def test_narrow_data_without_a_dropped_column_gets_no_note():
     forest = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(X, y)
     rep = D.probe(forest, X.iloc[0].to_numpy(), compare=[model])
     assert rep.method("Nadaraya-Watson").columns_used == 2 and rep.column_use_notes() == []
+
+
+def test_explorer_opens_before_the_verdict_is_cross_fitted(monkeypatch):
+    # the verdict's five cross-fitted folds run on the session's runner: the views open
+    # with a "cross-fitting" line, then show the sentence the function gives
+    from hedgerow.widgets._style import VERDICT_PENDING
+
+    X, y, _ = split_demo(load_pump_demo())
+    X, y = X.iloc[:300, :4], y.iloc[:300]
+    gate = threading.Event()
+    real = D.verdict
+
+    def held_verdict(*args, **kwargs):
+        gate.wait(60)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(D, "verdict", held_verdict)
+    app = explore(X, y, n_estimators=40, compare=False, refit_delay=0.05)
+    try:
+        assert app.verdict_view.conclusion_html.value == VERDICT_PENDING
+        assert VERDICT_PENDING in app.tuning_view.verdict_html.value
+        assert app.session.peek_verdict() is None
+        gate.set()
+        assert app.session.wait_for("verdict", 300) == "done"
+        v = app.session.peek_verdict()
+        assert v is not None
+        assert v.conclusion.replace("'", "&#x27;") in app.verdict_view.conclusion_html.value
+    finally:
+        gate.set()
+        app.close()

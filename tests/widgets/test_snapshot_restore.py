@@ -31,6 +31,7 @@ def original(data):
     X, y = data
     app = explore(X, y, n_estimators=80, random_state=4, min_samples_leaf=8, refit_delay=0.05)
     assert app.session.wait_for("smoothers", 120) == "done"  # fitted in the background
+    assert app.session.wait_for("verdict", 300) == "done"  # cross-fitted in the background
     app.probe_view.feature = "inlet_pressure_kpa"
     app.probe_view.anchor_row = 17  # the probe takes row 17's values ...
     app.probe_view.move_probe(float(X["inlet_pressure_kpa"].quantile(0.93)))  # ... then moves
@@ -53,6 +54,7 @@ def restored(saved, data):
     X, y = data
     app = hedgerow.explore(X, y, snapshot=str(saved), refit_delay=0.05)
     assert app.session.wait_for("smoothers", 120) == "done"
+    assert app.session.wait_for("verdict", 300) == "done"
     return app
 
 

@@ -207,6 +207,8 @@ def test_edges_and_verdict_follow_the_ridge_penalty(app, session):
     v = D.verdict(session.X_train, session.y_train,
                   forest=D.at_ridge_penalty(session.model, 50.0),
                   smoothers=None, baseline=True, progress=False)
+    # the view's verdict is cross-fitted by the session's runner, then drawn
+    assert session.wait_for("verdict", 300) == "done"
     assert v.conclusion in app.verdict_view.conclusion_html.value.replace("&#x27;", "'")
     np.testing.assert_allclose(np.asarray(app.verdict_view.bars_mark.y)[0],
                                v.comparisons.iloc[0][["gain_all", "gain_edge",
