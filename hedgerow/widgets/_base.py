@@ -90,6 +90,14 @@ class View(W.VBox):
     def _on_changed(self, change):
         self._redraw()
 
+    def _redraw_when_in(self, job, what):
+        """Redraw once a session job for the current state is in; show it if it failed."""
+        s = self._session
+        if job.outcome == "failed":
+            self.error = f"{what}: {job.message}"
+        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
+            self._redraw()
+
     def _redraw(self):  # pragma: no cover - views that follow the session override it
         raise NotImplementedError
 

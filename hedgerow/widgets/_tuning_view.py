@@ -176,18 +176,10 @@ class TuningView(View):
                        width_pending=pending)
 
     def _on_verdict_job(self, job):
-        s = self._session
-        if job.outcome == "failed":
-            self.error = f"computing the verdict: {job.message}"
-        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
-            self._redraw()
+        self._redraw_when_in(job, "computing the verdict")
 
     def _on_width_job(self, job):
-        s = self._session
-        if job.outcome == "failed":
-            self.error = f"computing the interval width: {job.message}"
-        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
-            self._redraw()
+        self._redraw_when_in(job, "computing the interval width")
 
     def wait_for_width(self, timeout=60.0) -> bool:
         """Block until the interval-width readout is filled (tests, scripts); True if so."""

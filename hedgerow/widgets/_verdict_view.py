@@ -55,11 +55,7 @@ class VerdictView(View):
             self._draw(v)
 
     def _on_verdict_job(self, job):
-        s = self._session
-        if job.outcome == "failed":
-            self.error = f"computing the verdict: {job.message}"
-        elif job.outcome == "done" and job.key == (s.generation, s.ridge_penalty):
-            self._redraw()
+        self._redraw_when_in(job, "computing the verdict")
 
     def _draw(self, v):
         comp = v.comparisons
