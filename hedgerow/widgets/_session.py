@@ -276,6 +276,9 @@ class ExploreSession(t.HasTraits):
         models = self.held_out_models()
         return self._cached(("edges", len(models)), lambda: D.edges(models))
 
+    #: set once a view asked for the verdict in the background (request_verdict)
+    _verdict_wanted = False
+
     def _verdict_of(self, model, progress=False):
         # The forests a user would fit instead, as in a snapshot's headline. Kernel
         # smoothers are left out here: cross-fitting them re-runs the bandwidth search
@@ -307,6 +310,7 @@ class ExploreSession(t.HasTraits):
         """
         from hedgerow._progress import RunControl
 
+        self._verdict_wanted = True  # asked for again after a refit cancelled it
         if self.peek_verdict() is not None:
             return None
         key = self._state_key()
@@ -520,8 +524,10 @@ class ExploreSession(t.HasTraits):
         base = previous.params if previous is not None and previous.outcome in (
             "waiting", "running") else self._model.get_params()
         params = {**base, **changes}
-        # the refit goes first: smoothers being fitted stop and are asked for again after
+        # the refit goes first: smoothers being fitted and a verdict being cross-fitted
+        # (one runner thread) stop and are asked for again after
         self._runner.cancel("smoothers")
+        self._runner.cancel("verdict")
         return self.submit("refit", self._refit, params=params, delay=self._refit_delay,
                            on_done=self._install)
 
@@ -555,6 +561,8 @@ class ExploreSession(t.HasTraits):
             return
         if job.outcome in ENDED and not self._closed:
             self.request_smoothers()
+            if self._verdict_wanted:
+                self.request_verdict()
         if job.outcome == "waiting":
             self._set_status("waiting", "refit requested")
         elif job.outcome == "running":
