@@ -314,8 +314,8 @@ class ExploreSession(t.HasTraits):
         if self.peek_verdict() is not None:
             return None
         key = self._state_key()
-        job = self._runner.latest("verdict")
-        if job is not None and job.key == key and job.outcome in ("waiting", "running"):
+        job = self._unfinished("verdict", key)
+        if job is not None:
             return job
         model = self.penalised_model()
 
@@ -343,6 +343,13 @@ class ExploreSession(t.HasTraits):
         return self._cached(("oob quick",), lambda: D.oob_summary(
             self.penalised_model(), interval_width=False))
 
+    def _unfinished(self, kind, key):
+        """The newest ``kind`` job for ``key`` if it is still waiting or running, else None."""
+        job = self._runner.latest(kind)
+        if job is not None and job.key == key and job.outcome in ("waiting", "running"):
+            return job
+        return None
+
     def request_oob_summary(self):
         """Compute :meth:`oob_summary` in the background; return the job, or None if cached.
 
@@ -353,8 +360,8 @@ class ExploreSession(t.HasTraits):
         if self.peek(("oob",)) is not None:
             return None
         key = self._state_key()
-        job = self._runner.latest("interval width")
-        if job is not None and job.key == key and job.outcome in ("waiting", "running"):
+        job = self._unfinished("interval width", key)
+        if job is not None:
             return job
         model = self.penalised_model()
 
