@@ -43,10 +43,12 @@ from scipy.special import log_ndtr
 
 __all__ = [
     "LittleBagsVariance",
+    "forest_monte_carlo_variance",
     "linearisation_coefficients",
     "linearised_from_leaf_means",
     "linearised_tree_predictions",
     "little_bags_variance",
+    "satterthwaite_df",
     "truncated_normal_mean",
 ]
 
@@ -322,3 +324,53 @@ def linearised_from_leaf_means(leaves, usable, forest, leaf_means, offset, gamma
     if not parts:
         return np.empty((0, leaves.shape[1]))
     return np.concatenate(parts, axis=0)
+
+
+def forest_monte_carlo_variance(psi: np.ndarray, trees_per_bag: int) -> np.ndarray:
+    """Return the Monte Carlo variance of a finite forest's mean of ``psi`` (per query).
+
+    ``little_bags_variance`` estimates the variance V of the infinite forest (the mean
+    over every possible tree): the tree draw's own noise is taken out. A forest of G bags
+    carries that noise as well: given the data its mean over bags varies by
+    Var(psibar_g | data) / G, and the between-bag spread b = sum_g (psibar_g - psibar)^2 /
+    (G - 1) estimates Var(psibar_g | data) (half-sample draw and tree noise together), so
+    the forest's Monte Carlo variance is b / G. The error of a forest prediction is its
+    statistical error plus this one; a new seed redraws it (so do the coverage readout's
+    replications). Bags with fewer than two usable trees are left out, as in
+    ``little_bags_variance``; NaN where fewer than two bags remain.
+    """
+    psi = np.asarray(psi, dtype=np.float64)
+    m, B = psi.shape
+    l = int(trees_per_bag)
+    G = B // l
+    bags = psi[:, : G * l].reshape(m, G, l)
+    counts = np.sum(np.isfinite(bags), axis=2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        means = np.nansum(np.where(np.isfinite(bags), bags, 0.0), axis=2) / counts
+    means = np.where(counts >= 2, means, np.nan)
+    g_ok = np.sum(np.isfinite(means), axis=1)
+    out = np.full(m, np.nan)
+    ok = g_ok >= 2
+    if np.any(ok):
+        mu = np.nanmean(means[ok], axis=1, keepdims=True)
+        b = np.nansum((means[ok] - mu) ** 2, axis=1) / (g_ok[ok] - 1)
+        out[ok] = b / g_ok[ok]
+    return out
+
+
+def satterthwaite_df(variance, tau, n_bags) -> np.ndarray:
+    """Return the degrees of freedom of a variance estimate with standard error ``tau``.
+
+    A variance estimate V with Var(V) = tau^2 is treated as V / (f) chi-square_f with
+    f = 2 V^2 / tau^2 (Satterthwaite 1946, Biometrics Bulletin 2(6): matching the first
+    two moments of a scaled chi-square). The little-bags estimate averages G bag terms, so
+    f is capped at G - 1, and floored at 1. A Student-t quantile with f degrees of freedom
+    then makes an interval account for the noise of its own standard error.
+    """
+    v = np.asarray(variance, dtype=np.float64)
+    tau = np.asarray(tau, dtype=np.float64)
+    cap = np.maximum(np.asarray(n_bags, dtype=np.float64) - 1.0, 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = np.where(tau > 0, 2.0 * v * v / (tau * tau), cap)
+    f = np.clip(np.where(np.isfinite(f), f, cap), 1.0, cap)
+    return np.where(np.isfinite(v), f, np.nan)

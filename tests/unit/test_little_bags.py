@@ -275,3 +275,37 @@ def test_auto_bags_switch_off_above_half_rate(friedman_small):
     with pytest.raises(ValueError, match="Got trees_per_bag='auto', n_estimators=20, "
                                          "subsample_rate=0.8"):
         est.predict(X[:3], return_std=True)
+
+
+def test_forest_monte_carlo_variance_is_the_between_bag_spread_over_bags():
+    from hedgerow.inference import forest_monte_carlo_variance
+
+    rng = np.random.default_rng(3)
+    psi = rng.normal(size=(7, 40))
+    l, G = 5, 8
+    bag_means = psi.reshape(7, G, l).mean(axis=2)
+    want = bag_means.var(axis=1, ddof=1) / G
+    np.testing.assert_allclose(forest_monte_carlo_variance(psi, l), want, rtol=1e-12)
+    # the Monte Carlo variance of a forest mean of independent trees, about Var / B
+    big = rng.normal(size=(400, 2000))
+    assert np.mean(forest_monte_carlo_variance(big, 25)) == pytest.approx(1 / 2000, rel=0.05)
+    # bags with fewer than two usable trees are left out
+    psi[0, :4] = np.nan  # bag 0 keeps one tree
+    got = forest_monte_carlo_variance(psi, l)[0]
+    bm = bag_means[0, 1:]
+    assert got == pytest.approx(bm.var(ddof=1) / (G - 1))
+
+
+def test_satterthwaite_df_matches_a_chi_square_variance_estimate():
+    # for s^2 from f + 1 normal draws, Var(s^2) = 2 sigma^4 / f, so 2 E[s^2]^2 / Var = f
+    # (Satterthwaite 1946, Biometrics Bulletin 2(6))
+    from hedgerow.inference import satterthwaite_df
+
+    sigma2, f = 2.0, 12.0
+    tau = np.sqrt(2 * sigma2**2 / f)
+    assert satterthwaite_df(np.array([sigma2]), np.array([tau]), np.array([100]))[0] == (
+        pytest.approx(f))
+    # capped at bags - 1, floored at 1, NaN stays NaN
+    out = satterthwaite_df(np.array([1.0, 1e-6, np.nan]), np.array([1e-3, 1.0, 1.0]),
+                           np.array([10, 10, 10]))
+    assert out[0] == 9 and out[1] == 1 and np.isnan(out[2])
