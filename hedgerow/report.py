@@ -875,7 +875,8 @@ def _oob_html(r: Report) -> str:
             "a row predict it).</p>" + _kv_table([
                 ("ridge penalty", _num(o["ridge_penalty"])),
                 ("out-of-bag RMSE", _num(o["oob_rmse"])),
-                (f"mean {100 * o['level']:.0f}% interval width", _num(o["mean_width"])),
+                (f"mean {100 * o['level']:.0f}% interval width "
+                 f"({o.get('interval', 'clt').replace('_', ' ')})", _num(o["mean_width"])),
                 ("rows with an out-of-bag prediction", _num(o["n_rows"])),
             ]))
 

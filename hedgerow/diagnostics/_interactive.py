@@ -13,7 +13,6 @@ import pandas as pd
 from hedgerow._validation import check_level
 from hedgerow.diagnostics._report import has_little_bags
 from hedgerow.diagnostics._slices import resolve_feature
-from hedgerow.inference import normal_interval
 
 __all__ = [
     "at_ridge_penalty",
@@ -124,18 +123,24 @@ def probe_readout(report) -> pd.DataFrame:
 
 
 def oob_summary(model, ridge_penalty=None, level: float = 0.95, *,
-                interval_width: bool = True) -> dict:
+                interval_width: bool = True, method: str | None = None) -> dict:
     """Return out-of-bag RMSE, mean interval width and usable rows at one ridge penalty.
 
     The one out-of-bag summary: the tuning surface's cells, the tuning view, the
     snapshot headline and the report all read it. ``model`` is a fitted forest;
     ``ridge_penalty`` (local linear forests only; None: the penalty in use) is applied
-    through ``with_ridge_penalty``. ``interval_width=False`` skips the little-bags
+    through ``with_ridge_penalty``. The width is that of the interval ``method``
+    (``model.oob_interval_parts``; None: the default interval, ``DEFAULT_INTERVAL``,
+    the one ``predict_interval`` gives; "clt" for today's), named under "interval".
+    The RMSE is always the prediction's. ``interval_width=False`` skips the little-bags
     standard errors of every training row (the expensive part: one linearised term per
     row and tree) and reports the width as NaN, as does a forest without little bags; the
     interactive views show the RMSE at once and the width when it is ready.
     """
+    from hedgerow.estimators._forest import DEFAULT_INTERVAL, check_interval_method
+
     level = check_level(level)
+    method = check_interval_method(DEFAULT_INTERVAL if method is None else method)
     if hasattr(model, "with_ridge_penalty"):
         model = model.with_ridge_penalty(ridge_penalty)
     elif ridge_penalty is not None:
@@ -145,17 +150,16 @@ def oob_summary(model, ridge_penalty=None, level: float = 0.95, *,
     with np.errstate(invalid="ignore"), warnings.catch_warnings():
         # rows without an out-of-bag tree are counted in n_rows instead
         warnings.simplefilter("ignore", RuntimeWarning)
+        mean = model.oob_predict()
         if interval_width and has_little_bags(model):
-            mean, std = model.oob_predict(return_std=True)
-            lo, hi = normal_interval(mean, std, level)
+            lo, hi = model.oob_interval_parts(method).interval(level)
             width = float(np.nanmean(hi - lo))
-        else:
-            mean = model.oob_predict()
     ok = np.isfinite(mean)
     rmse = float(np.sqrt(np.mean((mean[ok] - model.y_train_[ok]) ** 2)))
     lam = getattr(model, "ridge_penalty_", None)
     return {"ridge_penalty": None if lam is None else float(lam), "oob_rmse": rmse,
-            "mean_width": width, "n_rows": int(ok.sum()), "level": level}
+            "mean_width": width, "interval": method, "n_rows": int(ok.sum()),
+            "level": level}
 
 
 def ridge_curve(model, ridge_penalties) -> pd.DataFrame:

@@ -515,6 +515,57 @@ class _ForestBase(RegressorMixin, BaseEstimator):
                                                   line["scale"], M)
         return IntervalParts(method, fit.intercept, std, bound, float(M))
 
+    def oob_interval_parts(self, method=DEFAULT_INTERVAL) -> IntervalParts:
+        """Return the ``IntervalParts`` of the training rows from their out-of-bag trees.
+
+        ``method``: "bias_corrected" (the default interval) or "clt". Each row's interval
+        uses only the trees that did not draw it, as ``oob_predict``; rows with no such
+        tree are NaN (and warned about). For "bias_corrected" the local quadratic's
+        out-of-bag fit does not depend on the ridge penalty (its own penalty is fixed), so
+        it is computed once per fit; where no column bends it is the local linear
+        forest's own out-of-bag line at the penalty in use.
+        """
+        check_is_fitted(self)
+        method = check_interval_method(method)
+        if method == "bias_bound":
+            raise ValueError(
+                "The 'method' parameter must be one of ['bias_corrected', 'clt'] for "
+                "out-of-bag intervals (the curvature bound needs every row's weights). "
+                f"Got {method!r} instead."
+            )
+        self._require_bags()
+        if method == "clt":
+            centre, std = self.oob_predict(return_std=True)
+            return IntervalParts(method, centre, std, np.zeros_like(centre), 0.0)
+        line = self._corrected_line()
+        leaves, usable = self._oob_parts()
+        if line.get("own"):
+            _, _, _, n_used, mom = self._oob_state()
+            fit = self._solve(mom, self.ridge_penalty_)
+            Qc = line["Xc"]
+        else:
+            cache = self._fit_cache
+            if "oob corrected" not in cache:
+                R, n_used = self.forest_.weighted_sums(leaves, line["means"], usable,
+                                                       n_jobs=self._n_threads())
+                mom = moments_from_sums(R, line["Xc"], line["centre"], line["scale"])
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    cache["oob corrected"] = (solve_local(mom, line["penalty"]), n_used)
+            fit, n_used = cache["oob corrected"]
+            Qc = line["Xc"]
+        self._warn_unusable(n_used, "training rows (out-of-bag)")
+        offset, gamma = linearisation_coefficients(
+            Qc, line["centre"], line["scale"], np.nan_to_num(fit.intercept),
+            np.nan_to_num(fit.slopes_scaled), np.nan_to_num(fit.gram_inv[:, 0, :]),
+        )
+        psi = linearised_from_leaf_means(leaves, usable, self.forest_, line["means"], offset,
+                                         gamma, n_jobs=self._n_threads())
+        lb = little_bags_variance(psi, self.trees_per_bag_)
+        parts = self._corrected_parts(fit.intercept, psi, lb)
+        self._warn_missing_std(parts.centre, parts.std, "training rows (out-of-bag)")
+        return parts
+
     def _corrected_parts(self, centre, psi, lb) -> IntervalParts:
         """Return the bias-corrected ``IntervalParts`` from its per-tree terms ``psi``.
 

@@ -209,7 +209,8 @@ class TuningView(View):
             f"{fmt(summary['ridge_penalty'], 3)}</td></tr>"
             f"<tr><td>out-of-bag RMSE</td><td class='hedgerow-value'>"
             f"{fmt(summary['oob_rmse'])}</td></tr>"
-            f"<tr><td>mean width of {100 * summary['level']:.0f}% intervals</td>"
+            f"<tr><td>mean width of {100 * summary['level']:.0f}% intervals "
+            f"({summary.get('interval', 'clt').replace('_', ' ')})</td>"
             f"<td class='hedgerow-value'>{width}</td></tr>"
             f"<tr><td>rows with an out-of-bag prediction</td><td>{summary['n_rows']}</td></tr>"
             f"</table>")

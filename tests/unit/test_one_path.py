@@ -140,6 +140,31 @@ def test_oob_summary_of_an_honest_forest_and_its_refusals():
         D.oob_summary(hf, level=1.5)
 
 
+def test_oob_summary_width_is_the_default_interval_out_of_bag():
+    # the tuning surface and the headline read the interval predict_interval gives by
+    # default, not the CLT interval; "clt" stays available by name
+    from hedgerow.estimators._forest import DEFAULT_INTERVAL
+
+    X, y, _ = make_softplus_design(300, n_features=3, random_state=4)
+    for model in (LocalLinearForestRegressor(n_estimators=100, random_state=0).fit(X, y),
+                  HonestForestRegressor(n_estimators=100, random_state=0).fit(X, y)):
+        s = D.oob_summary(model)
+        assert s["interval"] == DEFAULT_INTERVAL == "bias_corrected"
+        lo, hi = model.oob_interval_parts().interval(0.95)
+        assert s["mean_width"] == float(np.nanmean(hi - lo))
+        clt = D.oob_summary(model, method="clt")
+        mean, std = model.oob_predict(return_std=True)
+        assert clt["mean_width"] == pytest.approx(2 * 1.959963985 * np.nanmean(std),
+                                                  rel=1e-8)
+        assert s["oob_rmse"] == clt["oob_rmse"]
+        # the default interval is the bias-corrected one at the rows out of bag: its
+        # centre is the local quadratic's, away from the prediction where a column bends
+        if model.bending_columns().size:
+            assert not np.allclose(model.oob_interval_parts().centre, mean)
+        with pytest.raises(ValueError, match="'method' parameter must be one of"):
+            model.oob_interval_parts("bias_bound")
+
+
 def _private_estimator_methods() -> set:
     names = set()
     for path in (PACKAGE / "estimators").glob("*.py"):

@@ -28,8 +28,12 @@ def test_tuning_cells_equal_direct_oob_computation(data):
         cell = ts.frame[(ts.frame.subsample_rate == 0.3) & (ts.frame.ridge_penalty == lam)]
         rmse = np.sqrt(np.mean((mean[ok] - y[ok]) ** 2))
         assert cell["oob_rmse"].iloc[0] == pytest.approx(rmse, rel=1e-12)
-        lo, hi = normal_interval(mean, std)
+        # the width is the default interval's (bias corrected), out of bag
+        with _nowarn():
+            lo, hi = m.with_ridge_penalty(lam).oob_interval_parts().interval()
         assert cell["mean_width"].iloc[0] == pytest.approx(np.nanmean(hi - lo), rel=1e-12)
+        lo, hi = normal_interval(mean, std)  # today's, for contrast: a different width
+        assert cell["mean_width"].iloc[0] != pytest.approx(np.nanmean(hi - lo), rel=1e-6)
     assert ts.grid().shape == (2, 3)
     assert ts.best()["oob_rmse"] == ts.frame["oob_rmse"].min()
     assert 0 < ts.refit_seconds <= ts.total_seconds
