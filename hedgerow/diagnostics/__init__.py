@@ -6,6 +6,8 @@
 - ``verdict``: cross-fitted paired errors against plain forests and a stated decision.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
+- ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
+  as much as their standard errors say?
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
   small, refit-free pieces the interactive views render.
 """
@@ -28,6 +30,7 @@ from hedgerow.diagnostics._interactive import (
 from hedgerow.diagnostics._probe import TOP_ROWS, WIDE_COLUMNS, MethodAtProbe, ProbeReport, probe
 from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
+from hedgerow.diagnostics._split_half import SELECTIONS, SplitHalfReport, split_half_agreement
 from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
 from hedgerow.diagnostics._verdict import (
     DECISIONS,
@@ -53,6 +56,9 @@ __all__ = [
     "slice_grid",
     "weight_profile",
     "CoverageReport",
+    "SELECTIONS",
+    "SplitHalfReport",
+    "split_half_agreement",
     "TuningSurface",
     "coverage_readout",
     "tuning_surface",

@@ -668,6 +668,33 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             cache["bending"] = bent[:_MAX_SQUARED]
         return self._line_columns()[self._fit_cache["bending"]]
 
+    def with_bending_columns(self, columns):
+        """Return this fitted forest with the bias correction's bending columns given.
+
+        A light copy (the same trees and fit-scoped caches, as ``with_ridge_penalty``)
+        whose bias-corrected interval squares ``columns`` (indices into X, all among the
+        local line's columns; order kept, at most ``_MAX_SQUARED``) instead of those its
+        curvature test chose: for comparing fits with the selection held fixed (the
+        split-half check). ``self`` is unchanged.
+        """
+        check_is_fitted(self)
+        line = [int(c) for c in self._line_columns()]
+        try:
+            cols = [int(c) for c in np.asarray(columns).ravel()]
+        except (TypeError, ValueError) as err:
+            raise TypeError(f"The 'columns' parameter must list column indices. Got "
+                            f"{columns!r} instead.") from err
+        missing = [c for c in cols if c not in line]
+        if missing or len(set(cols)) != len(cols):
+            raise ValueError(f"The 'columns' parameter must list distinct columns of the "
+                             f"local line {line}. Got {cols!r} instead.")
+        view = copy.copy(self)
+        view._fit_cache = {k: v for k, v in self._fit_cache.items()
+                           if k not in ("bending", "corrected line", "oob corrected")}
+        view._fit_cache["bending"] = np.array([line.index(c) for c in cols],
+                                              dtype=np.int64)[:_MAX_SQUARED]
+        return view
+
     def _corrected_line(self) -> dict:
         """Return the local quadratic of the robust bias correction (cached per fit).
 
