@@ -1,9 +1,10 @@
 """Coverage of every interval method on the family of smooth designs.
 
 Prints, per design, forest and interval method: coverage overall / edge band / interior,
-mean width and its ratio to today's interval ("clt") of the same forest, and the
-bias/variance split (rms bias over replications, mean little-bags sd, sd across
-replications, coverage with the bias removed). The reference is the "clt" interval
+mean width and its ratio to today's interval ("clt") of the same forest, the columns the
+default interval's curvature test finds bending, and the bias/variance split (rms bias
+over replications, mean little-bags sd, sd across replications, coverage with the bias
+removed). The reference is the "clt" interval
 measured in the same run. Modest by default; the full family with default forests is
 
     python benchmarks/bench_coverage.py --reps 20 --n-eval 200
@@ -28,6 +29,11 @@ def run(design, trees, reps, n_eval, seed):
     X, y, _ = design.sample(random_state=seed)
     model = LocalLinearForestRegressor(n_estimators=trees, random_state=seed, n_jobs=2)
     model.fit(X, y)
+    Q = X[:200]
+    print(f"  {design.name}: bending columns {model.bending_columns().tolist()} of the "
+          f"local line's {model.correction_features_.tolist()}; Satterthwaite degrees of "
+          f"freedom of the default interval, median {np.median(model.interval_parts(Q).df):.0f}",
+          flush=True)
     rep = coverage_readout(model, truth=design.truth, reps=reps, n_eval=n_eval,
                            progress=False, random_state=seed)
     f = rep.frame
