@@ -450,7 +450,12 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             same forest weights, which is the prediction minus an estimate of its
             curvature bias (and, for the plain honest forest, of its first-order edge
             bias), and studentised by the little-bags standard error of that corrected
-            estimator, so the bias estimate's own variance is in the width.
+            estimator, so the bias estimate's own variance is in the width. Squares and
+            products enter only for the columns a spline test finds bending
+            (``bending_columns``); where none bends it is the local line itself. The
+            variance adds the forest's Monte Carlo variance and the quantile is
+            Student-t with the Satterthwaite degrees of freedom of the little-bags
+            estimate.
             "bias_bound": centred on the local line, half-width ``cv(b / se) * se``
             with ``b`` a curvature bias bound from the equivalent kernel and a constant
             M (Armstrong & Kolesar 2018, 2020; ``hedgerow.inference._bias_aware``);
@@ -465,8 +470,9 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             linear forest 0 gives the "clt" interval exactly.
 
         For a dask array or DataFrame ``X``, two lazy dask arrays or Series. The interval
-        conditions on the fitted forest's settings: columns screened for the local line
-        and the ridge penalty are taken as fixed, not as chosen from the same data.
+        conditions on the fitted forest's settings: columns screened for the local line,
+        the ridge penalty and the bending columns are taken as fixed, not as chosen from
+        the same data (``hedgerow.diagnostics.split_half_agreement`` measures the cost).
         """
         _check_method_and_bound(method, curvature_bound)
         if is_dask_collection(X):
