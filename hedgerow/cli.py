@@ -202,11 +202,12 @@ def _report(args) -> int:
                                   title=args.title, compare=not args.no_compare,
                                   coverage_reps=args.coverage_reps,
                                   progress=not args.quiet, random_state=args.seed)
-            path = write_html(report, out)
         except (ValueError, TypeError) as exc:
             raise InputError(str(exc).splitlines()[0]) from None
-        except OSError as exc:
-            raise InputError(f"could not write '{out}': {exc.strerror or exc}") from None
+        try:
+            path = write_html(report, out)
+        except OSError as exc:  # the writer's message names --out and the earlier file
+            raise InputError(str(exc.strerror or exc)) from None
     seen = set()
     for w in caught:
         text = f"{w.category.__name__}: {str(w.message).splitlines()[0]}"

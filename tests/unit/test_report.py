@@ -6,6 +6,7 @@ nuisance columns whose names hold characters HTML must escape.
 
 from __future__ import annotations
 
+import os
 import re
 import subprocess
 import sys
@@ -252,7 +253,7 @@ def test_figures_draw_each_method_in_its_palette_colour(report):
     for name in ("local linear forest", "honest forest"):
         assert METHOD_COLOURS[name].lower() in slice_svg, name
     # every named dash pattern has a matplotlib style
-    assert {R._dash(m) for m in METHOD_DASHES} <= {"-", "--", "-.", ":"}
+    assert {R._figures.line_style(m) for m in METHOD_DASHES} <= {"-", "--", "-.", ":"}
 
 
 def test_report_needs_neither_widgets_nor_matplotlib_at_import():
@@ -348,7 +349,7 @@ def test_failed_rename_leaves_the_earlier_file(tmp_path, report, monkeypatch):
     def fail(src, dst):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(R.os, "replace", fail)
+    monkeypatch.setattr(os, "replace", fail)
     with pytest.raises(OSError, match="No space"):
         R.write_html(report, path)
     _only(tmp_path, path)
@@ -360,7 +361,7 @@ def test_interrupted_write_leaves_the_earlier_file(tmp_path, report, monkeypatch
     def interrupt(fd):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(R.os, "fsync", interrupt)
+    monkeypatch.setattr(os, "fsync", interrupt)
     with pytest.raises(KeyboardInterrupt):
         R.write_html(report, path)
     _only(tmp_path, path)
