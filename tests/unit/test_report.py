@@ -451,3 +451,22 @@ def test_bad_paths_are_named(tmp_path, report, data, model):
     with pytest.raises(TypeError, match="'path' parameter must be a file path"):
         R.write_html(report, 42)
     assert list(Path(tmp_path).iterdir()) == []
+
+
+def test_failed_write_names_the_given_path_not_the_temporary_file(tmp_path, report,
+                                                                  monkeypatch):
+    # reports and snapshots share one writer (hedgerow._atomic); the OS would name the
+    # temporary file
+    import tempfile
+
+    path = _old(tmp_path)
+
+    def refuse(prefix, suffix, dir):
+        raise PermissionError(13, "Permission denied", f"{dir}/{prefix}x1y2{suffix}")
+
+    monkeypatch.setattr(tempfile, "mkstemp", refuse)
+    with pytest.raises(PermissionError) as info:
+        R.write_html(report, path)
+    assert str(path) in str(info.value) and "Permission denied" in str(info.value)
+    assert ".tmp" not in str(info.value)
+    _only(tmp_path, path)
