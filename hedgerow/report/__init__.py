@@ -24,6 +24,7 @@ from hedgerow.report._build import build_report, save_html, write_html
 from hedgerow.report._content import (
     CAUTION_KERNEL,
     CAUTIONS_BASE,
+    COMPARISON_ROWS,
     MIN_ROWS,
     REPORT_COLOURS,
     SECTIONS,
@@ -34,5 +35,5 @@ from hedgerow.report._content import (
 from hedgerow.report._inputs import data_fingerprint
 
 __all__ = ["DataSummary", "Report", "Settings", "build_report", "save_html", "write_html",
-           "data_fingerprint", "MIN_ROWS", "SECTIONS", "REPORT_COLOURS", "CAUTION_KERNEL",
-           "CAUTIONS_BASE"]
+           "data_fingerprint", "MIN_ROWS", "COMPARISON_ROWS", "SECTIONS", "REPORT_COLOURS",
+           "CAUTION_KERNEL", "CAUTIONS_BASE"]

@@ -12,6 +12,8 @@ import warnings
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
+from sklearn.base import clone
 
 from hedgerow import diagnostics as D
 from hedgerow._atomic import write_text_atomic
@@ -22,6 +24,7 @@ from hedgerow.report._content import (
     CAUTIONS_BASE,
     HONEST,
     LLF,
+    MIN_ROWS,
     DataSummary,
     Report,
     Settings,
@@ -34,7 +37,7 @@ from hedgerow.report._inputs import (
     resolve_model,
 )
 
-__all__ = ["build_report", "save_html", "write_html"]
+__all__ = ["build_report", "save_html", "write_html", "comparison_sample", "subsample_note"]
 
 #: The steps of a report, in order (``smoothers`` and ``coverage`` only when asked for).
 STEPS = ("fit", "smoothers", "verdict", "probe", "slice", "edges", "out-of-bag",
@@ -94,7 +97,8 @@ class _Step:
 
 
 def build_report(X, y, *, model=None, feature=None, probe=None, title=None, compare=True,
-                 coverage_reps=0, progress=True, random_state=0) -> Report:
+                 coverage_reps=0, progress=True, random_state=0, baseline=True,
+                 comparison_rows=None) -> Report:
     """Return the :class:`Report` of a local linear forest on ``(X, y)``.
 
     Parameters
@@ -113,13 +117,26 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
     coverage_reps : replications of ``coverage_readout`` (0: no coverage readout; each
         replication refits the forest twice).
     progress : show a progress bar over the steps.
-    random_state : seed of the default model, the scikit-learn baseline and the coverage
-        readout.
+    random_state : seed of the default model, the scikit-learn baseline, the coverage
+        readout and the comparison subsample.
+    baseline : include scikit-learn's random forest in the verdict.
+    comparison_rows : None (every row), or at most this many rows (a seeded random
+        subsample) for the expensive comparisons: the cross-fitted verdict (every method on
+        the same rows) and the kernel smoothers' fits. The forests' probe, slice, edges and
+        out-of-bag numbers still use every row; the report says so in ``notes``, and the
+        kernel smoothers then leave the edges section. The command line sets it to
+        ``COMPARISON_ROWS`` unless ``--full``.
     """
     from hedgerow import __version__
 
     compare = check_flag("compare", compare)
     progress = check_flag("progress", progress)
+    baseline = check_flag("baseline", baseline)
+    if comparison_rows is not None and (
+            isinstance(comparison_rows, bool) or not isinstance(comparison_rows, int | np.integer)
+            or comparison_rows < MIN_ROWS):
+        raise ValueError(f"The 'comparison_rows' parameter must be None or an integer >= "
+                         f"{MIN_ROWS}. Got {comparison_rows!r} instead.")
     if (isinstance(coverage_reps, bool) or not isinstance(coverage_reps, int | np.integer)
             or coverage_reps < 0):
         raise ValueError(f"The 'coverage_reps' parameter must be an integer >= 0. "
@@ -135,6 +152,9 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
         check_probe_point(stand_in, probe_input(probe, columns, np.median(Xa, axis=0)))
     names = [s for s in STEPS if (s != "smoothers" or compare)
              and (s != "coverage" or coverage_reps > 0)]
+    sample = comparison_sample(Xa.shape[0], comparison_rows, random_state)
+    Xc, yc = (X, y) if sample is None else (_take(X, sample), _take(y, sample))
+    notes = () if sample is None else (subsample_note(Xa.shape[0], sample.size, compare),)
     steps = _Steps(names, progress)
     try:
         with warnings.catch_warnings():
@@ -154,24 +174,29 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
 
                 with steps.step("smoothers"):
                     smoothers = tuple(
-                        est.fit(X, y, progress=steps.follow(f"smoothers: {D.method_label(est)}",
-                                                            "bandwidth evaluations"))
+                        est.fit(Xc, yc, progress=steps.follow(
+                            f"smoothers: {D.method_label(est)}", "bandwidth evaluations"))
                         for est in (NadarayaWatsonRegressor(), LocalLinearRegressor()))
             models = {LLF: model, HONEST: D.local_average_model(model)}
             for s in smoothers:
                 models[D.method_label(s)] = s
             with steps.step("verdict"):
-                verdict = D.verdict(model.X_train_, model.y_train_, forest=model,
-                                    smoothers=list(smoothers), baseline=True,
-                                    random_state=random_state,
-                                    progress=steps.follow("verdict", "fits"))
+                # on a subsample every method, the forest too, is cross-fitted on its rows
+                verdict = D.verdict(
+                    *((model.X_train_, model.y_train_) if sample is None
+                      else (Xa[sample], ya[sample])),
+                    forest=model if sample is None else clone(model),
+                    smoothers=list(smoothers), baseline=baseline, random_state=random_state,
+                    progress=steps.follow("verdict", "fits"))
             with steps.step("probe"):
                 probe_report = D.probe(model, x, compare=smoothers)
                 probe_table = D.probe_readout(probe_report)
             with steps.step("slice"):
                 slice_report = D.slices(models, x, j, D.slice_grid(model, j))
             with steps.step("edges"):
-                edge_profile = D.edges(models)
+                # edges compares models on the same rows: subsampled smoothers stay out
+                edge_profile = D.edges(models if sample is None else
+                                       {LLF: models[LLF], HONEST: models[HONEST]})
             with steps.step("out-of-bag"):
                 oob = D.oob_summary(model)
             coverage = None
@@ -183,8 +208,10 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
             with steps.step("figures"):
                 from hedgerow.report._figures import figures
 
-                weights = {name: D.weight_profile(probe_report, model.X_train_, name)
-                           for name in (LLF, *(D.method_label(s) for s in smoothers))}
+                weights = {LLF: D.weight_profile(probe_report, model.X_train_, LLF)}
+                for s in smoothers:  # over the smoother's own (maybe subsampled) rows
+                    name = D.method_label(s)
+                    weights[name] = D.weight_profile(probe_report, s.X_train_, name)
                 svgs = figures(model, columns, target, j, slice_report, probe_report,
                                edge_profile, weights)
     finally:
@@ -216,12 +243,37 @@ def build_report(X, y, *, model=None, feature=None, probe=None, title=None, comp
         data=data, settings=settings, verdict=verdict, probe=probe_report,
         probe_table=probe_table, slices=slice_report, edges=edge_profile, oob=oob,
         coverage=coverage, figures=svgs, cautions=cautions, model=model,
-        smoothers=smoothers,
+        smoothers=smoothers, notes=notes,
     )
 
 
+def comparison_sample(n, limit, random_state):
+    """Return the sorted rows of the comparison subsample, or None when every row is used."""
+    if limit is None or n <= limit:
+        return None
+    return np.sort(np.random.default_rng(random_state).choice(n, size=int(limit),
+                                                              replace=False))
+
+
+def subsample_note(n, m, compare) -> str:
+    """Return the sentence a report shows when its comparisons ran on a subsample."""
+    what = "the verdict and the kernel smoothers use" if compare else "the verdict uses"
+    return (f"Large table ({n:,} rows): {what} a random {m:,} of them (the same rows for "
+            f"every method), to keep the run short; the forests' probe, slice, edges and "
+            f"out-of-bag numbers use every row."
+            + (" The kernel smoothers, fitted on the subsample, are left out of the edges "
+               "section." if compare else "")
+            + " The command line's --full uses every row.")
+
+
+def _take(data, rows):
+    return data.iloc[rows] if isinstance(data, pd.DataFrame | pd.Series) else \
+        np.asarray(data)[rows]
+
+
 def save_html(path, X, y, *, model=None, feature=None, probe=None, title=None, compare=True,
-              coverage_reps=0, progress=True, random_state=0) -> Path:
+              coverage_reps=0, progress=True, random_state=0, baseline=True,
+              comparison_rows=None) -> Path:
     """Build the report of ``(X, y)`` and write it to ``path``; return the path.
 
     Parameters are those of :func:`build_report`. The file is written atomically: to a
@@ -232,7 +284,8 @@ def save_html(path, X, y, *, model=None, feature=None, probe=None, title=None, c
     path = _check_path(path)
     report = build_report(X, y, model=model, feature=feature, probe=probe, title=title,
                           compare=compare, coverage_reps=coverage_reps, progress=progress,
-                          random_state=random_state)
+                          random_state=random_state, baseline=baseline,
+                          comparison_rows=comparison_rows)
     return write_html(report, path)
 
 

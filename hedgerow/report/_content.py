@@ -9,7 +9,8 @@ import pandas as pd
 
 from hedgerow._palette import METHOD_COLOURS
 
-__all__ = ["DataSummary", "Report", "Settings", "MIN_ROWS", "SECTIONS", "REPORT_COLOURS",
+__all__ = ["DataSummary", "Report", "Settings", "MIN_ROWS", "COMPARISON_ROWS", "SECTIONS",
+           "REPORT_COLOURS",
            "CAUTION_KERNEL", "CAUTIONS_BASE", "LLF", "HONEST"]
 
 #: Fewest rows a report is built on: below this, held-out comparisons and edge bands
@@ -22,6 +23,12 @@ SECTIONS = ("verdict", "data", "settings", "probe", "slice", "edges", "neighbour
 
 #: Method colours: the palette the interactive views use (``hedgerow._palette``).
 REPORT_COLOURS = METHOD_COLOURS
+
+#: Above this many rows the command line runs the expensive comparisons (the cross-fitted
+#: verdict with its baseline forest, the kernel smoothers' bandwidth searches, which grow
+#: with the square of the rows) on a seeded random subsample of this many rows, unless
+#: ``--full``; ``build_report(comparison_rows=...)`` is the same switch from Python.
+COMPARISON_ROWS = 5_000
 
 #: Method labels of the two forests in every report.
 HONEST = "honest forest (same trees)"
@@ -90,7 +97,8 @@ class Report:
     edges : ``EdgeProfile``. oob : ``oob_summary(model)``. coverage : ``CoverageReport``
     or None. figures : name -> SVG markup (``slice``, ``edges``, ``neighbour_weights``).
     cautions : plain sentences. model : the fitted local linear forest.
-    smoothers : the fitted comparison smoothers.
+    smoothers : the fitted comparison smoothers. notes : plain sentences on how the run
+    was cut short for a large table (empty when every row was used everywhere).
     """
 
     title: str
@@ -107,6 +115,7 @@ class Report:
     cautions: tuple
     model: object = field(repr=False)
     smoothers: tuple = field(default=(), repr=False)
+    notes: tuple = ()
 
     @property
     def sections(self) -> tuple:

@@ -25,6 +25,16 @@ __all__ = ["figures", "line_style"]
 #: matplotlib line styles for the palette's named dash patterns
 LINE_STYLES = {"solid": "-", "dashed": "--", "dash_dotted": "-.", "dotted": ":"}
 _INK = "#1b1f24"
+#: At most this many points per scatter (a fixed subsample) and vertices per cumulative
+#: curve: a large table would otherwise make a page of tens of megabytes.
+FIGURE_POINTS = 4000
+
+
+def _shown(n: int) -> np.ndarray:
+    """Return the indices a scatter of ``n`` points draws: all, or a fixed subsample."""
+    if n <= FIGURE_POINTS:
+        return np.arange(n)
+    return np.sort(np.random.default_rng(20240).choice(n, size=FIGURE_POINTS, replace=False))
 
 
 def line_style(name: str) -> str:
@@ -89,8 +99,9 @@ def figures(model, columns, target, j, slice_report, probe_report, edge_profile,
 def _slice_figure(Figure, model, columns, target, j, sl, pr):
     fig = Figure(figsize=(7.2, 4.0), layout="constrained")
     ax = fig.add_subplot()
-    ax.scatter(model.X_train_[:, j], model.y_train_, s=6, color=ROW_COLOUR, alpha=0.18,
-               linewidths=0, label="rows (other columns at their own values)")
+    rows = _shown(model.X_train_.shape[0])
+    ax.scatter(model.X_train_[rows, j], model.y_train_[rows], s=6, color=ROW_COLOUR,
+               alpha=0.18, linewidths=0, label="rows (other columns at their own values)")
     for name in sl.frame["method"].unique():
         part = sl.method(name)
         c = colour_of(name)
@@ -125,7 +136,8 @@ def _edges_figure(Figure, target, ep):
     for ax, name in zip(axes, names, strict=True):
         c = colour_of(name)
         r = ep.residuals[name].to_numpy()
-        ok = np.isfinite(r)
+        ok = np.flatnonzero(np.isfinite(r))
+        ok = ok[_shown(ok.size)]
         ax.scatter(ep.depth[ok], r[ok], s=5, color=c, alpha=0.35, linewidths=0)
         ax.axhline(0.0, color="#8a929c", lw=0.8)
         for b in edges[1:-1]:
@@ -157,9 +169,13 @@ def _weights_figure(Figure, pr, weights):
         c = colour_of(name)
         label = name if name != LLF else "forest weights"
         ess = pr.method(name).ess
-        a.scatter(prof["distance"], prof["weight"], s=8, color=c, alpha=0.6, linewidths=0,
+        dots = prof.iloc[_shown(len(prof))]
+        a.scatter(dots["distance"], dots["weight"], s=8, color=c, alpha=0.6, linewidths=0,
                   label=_mpl(f"{label} (effective n {number(ess, 3)})"))
-        b.plot(prof["rank"], prof["cumulative"], color=c, lw=1.6, ls=line_style(name),
+        # ranks spaced evenly on the log axis; the curve's last point is kept
+        steps = prof if len(prof) <= FIGURE_POINTS else prof.iloc[np.unique(np.geomspace(
+            1, len(prof), FIGURE_POINTS).astype(np.int64)) - 1]
+        b.plot(steps["rank"], steps["cumulative"], color=c, lw=1.6, ls=line_style(name),
                drawstyle="steps-post", label=_mpl(label))
     a.set_xlabel("distance from the probe (training s.d.)")
     a.set_ylabel("weight")

@@ -46,6 +46,7 @@ figure{margin:.6rem 0 1rem}
 svg.hr-figure{display:block;width:100%;height:auto;max-width:52rem}
 figcaption{color:var(--muted);font-size:.88rem;margin-top:.3rem}
 .hr-cautions li{margin:.35rem 0}
+.hr-note{padding:.4rem .7rem;border-left:4px solid var(--muted);background:var(--band)}
 code{font-size:.88em;background:var(--band);padding:0 .2em;border-radius:3px}
 @media print{nav{display:none}h2{break-after:avoid}figure,table{break-inside:avoid}}
 """
@@ -278,6 +279,8 @@ def render(r) -> str:
         f"{_e(r.data.n_columns)} columns, target <code>{_e(r.data.target)}</code>; data "
         f"fingerprint <code>{_e(r.data.fingerprint)}</code>; made {_e(r.settings.created)} "
         f"by hedgerow {_e(r.settings.version)}. A static page: it opens offline and "
-        f"computes nothing.</p><nav aria-label='sections'><ol>{nav}</ol></nav></header>"
+        f"computes nothing.</p>"
+        + "".join(f"<p class='hr-note'>{_e(n)}</p>" for n in r.notes)
+        + f"<nav aria-label='sections'><ol>{nav}</ol></nav></header>"
         f"{body}</main></body></html>\n"
     )
