@@ -10,8 +10,8 @@ renderer maps the name to its own syntax.
 
 from __future__ import annotations
 
-__all__ = ["METHOD_COLOURS", "METHOD_DASHES", "UNKNOWN_COLOUR", "base_method", "colour_of",
-           "dash_of"]
+__all__ = ["METHOD_COLOURS", "METHOD_DASHES", "ROW_COLOUR", "UNKNOWN_COLOUR", "base_method",
+           "colour_of", "dash_of"]
 
 METHOD_COLOURS = {
     "local linear forest": "#1d5fa8",  # cobalt
@@ -28,6 +28,8 @@ METHOD_DASHES = {
     "random forest (scikit-learn)": "dotted",
 }
 UNKNOWN_COLOUR = "#999999"
+#: The training rows behind a curve (slate), in the views and the report alike.
+ROW_COLOUR = "#5b6470"
 
 
 def base_method(name: str) -> str:

@@ -113,10 +113,9 @@ def _check_no_dates(X, y=None):
     for name, value in (("X", X), ("y", y)):
         if value is None:
             continue
-        dtypes = getattr(value, "dtypes", None)
-        if dtypes is not None and not isinstance(dtypes, np.dtype):
-            pairs = list(dtypes.items())
-        else:
+        if isinstance(value, pd.DataFrame):
+            pairs = list(value.dtypes.items())
+        else:  # a Series' dtypes is one dtype (pandas' own string dtype has no items)
             dtype = getattr(value, "dtype", None)
             pairs = [] if dtype is None else [(None, dtype)]
         for col, dtype in pairs:

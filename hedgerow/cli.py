@@ -1,8 +1,11 @@
 """The ``hedgerow`` command: batch reviews without a notebook.
 
 ``hedgerow report DATA.csv --target COLUMN [--out FILE] [--features A B ...]
-[--feature COLUMN] [--seed N] [--trees N]`` reads a CSV, fits a local linear forest and
-writes the self-contained HTML report of ``hedgerow.report``. Bad input gives one line on
+[--feature COLUMN] [--seed N] [--trees N] [--no-compare] [--no-baseline] [--full]`` reads
+a CSV, fits a local linear forest and writes the self-contained HTML report of
+``hedgerow.report``. Above ``hedgerow.report.COMPARISON_ROWS`` rows the verdict and the
+kernel smoothers run on a seeded random subsample of that many rows (said in the report
+and on stderr) unless ``--full``. Bad input gives one line on
 stderr and exit code 2; the report is written atomically, so an earlier file survives a
 failed run.
 """
@@ -52,6 +55,7 @@ _non_negative_int = _int_at_least(0)
 
 def _parser() -> argparse.ArgumentParser:
     from hedgerow import __version__
+    from hedgerow.report import COMPARISON_ROWS
 
     parser = _Parser(prog=PROG, description="Smoothing diagnostics for forest regression.")
     parser.add_argument("--version", action="version", version=f"hedgerow {__version__}")
@@ -83,6 +87,11 @@ def _parser() -> argparse.ArgumentParser:
                           "refits the forest twice)")
     rep.add_argument("--no-compare", action="store_true",
                      help="leave out the kernel smoothers")
+    rep.add_argument("--no-baseline", action="store_true",
+                     help="leave scikit-learn's random forest out of the verdict")
+    rep.add_argument("--full", action="store_true",
+                     help=f"run the verdict and the kernel smoothers on every row (default: "
+                          f"above {COMPARISON_ROWS:,} rows they use a random {COMPARISON_ROWS:,})")
     rep.add_argument("--quiet", action="store_true", help="no progress bar")
     return parser
 
@@ -178,7 +187,7 @@ def read_table(path: Path, target: str, features=None, feature=None):
 
 
 def _report(args) -> int:
-    from hedgerow.report import build_report, write_html
+    from hedgerow.report import COMPARISON_ROWS, build_report, write_html
 
     data = Path(args.data)
     out = args.out if args.out is not None else Path(f"{data.stem}-report.html")
@@ -201,18 +210,23 @@ def _report(args) -> int:
             report = build_report(X, y, model=model, feature=args.feature,
                                   title=args.title, compare=not args.no_compare,
                                   coverage_reps=args.coverage_reps,
-                                  progress=not args.quiet, random_state=args.seed)
-            path = write_html(report, out)
+                                  progress=not args.quiet, random_state=args.seed,
+                                  baseline=not args.no_baseline,
+                                  comparison_rows=None if args.full else COMPARISON_ROWS)
         except (ValueError, TypeError) as exc:
             raise InputError(str(exc).splitlines()[0]) from None
-        except OSError as exc:
-            raise InputError(f"could not write '{out}': {exc.strerror or exc}") from None
+        try:
+            path = write_html(report, out)
+        except OSError as exc:  # the writer's message names --out and the earlier file
+            raise InputError(str(exc.strerror or exc)) from None
     seen = set()
     for w in caught:
         text = f"{w.category.__name__}: {str(w.message).splitlines()[0]}"
         if text not in seen:
             seen.add(text)
             print(f"{PROG}: warning: {text}", file=sys.stderr)
+    for note in report.notes:
+        print(f"{PROG}: note: {note}", file=sys.stderr)
     print(f"wrote {path}")
     print(f"verdict: {report.verdict.conclusion}")
     return EXIT_OK

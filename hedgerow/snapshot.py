@@ -15,8 +15,9 @@ author saw, and what the author saw there:
   was computed, and the prediction at the probe;
 - the hedgerow version that wrote it and the file format version.
 
-``save`` writes atomically (a temporary file in the same directory, then ``os.replace``),
-so an existing snapshot is never left half-written and a failed save leaves it intact.
+``save`` writes atomically (``hedgerow._atomic``: a temporary file in the same directory,
+then ``os.replace``), so an existing snapshot is never left half-written and a failed save
+leaves it intact.
 ``load`` validates every field and names the first one that is missing or wrong.
 
 This module imports no widget library: ``hedgerow.widgets`` uses it to capture and
@@ -26,13 +27,11 @@ diagnostics (``from_model`` computes the headline numbers through them).
 
 from __future__ import annotations
 
-import contextlib
 import datetime as _dt
 import hashlib
 import json
 import math
 import os
-import tempfile
 import warnings
 from dataclasses import dataclass, field
 from numbers import Integral, Real
@@ -41,6 +40,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from hedgerow._atomic import write_text_atomic
 from hedgerow._validation import checked_rows, column_names
 
 __all__ = [
@@ -468,32 +468,12 @@ class Snapshot:
         if path.is_dir():
             raise IsADirectoryError(f"The 'path' parameter must name a file. Got the "
                                     f"directory {str(path)!r} instead.")
-        mode = (path.stat().st_mode & 0o777) if path.exists() else 0o644
-        try:
-            fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=directory)
-        except OSError as exc:  # name the path given, not the temporary file
-            raise type(exc)(exc.errno, f"Cannot write the snapshot to {str(path)!r} "
-                                       f"({exc.strerror or exc}); choose a writable place",
-                            str(path)) from exc
-        try:
-            with os.fdopen(fd, "w", encoding="utf-8") as fh:
-                json.dump(payload, fh, indent=2, allow_nan=False)
-                fh.write("\n")
-                fh.flush()
-                os.fsync(fh.fileno())
-            os.chmod(tmp, mode)
-            os.replace(tmp, path)
-        except OSError as exc:
-            with contextlib.suppress(OSError):
-                os.unlink(tmp)
-            raise type(exc)(exc.errno, f"Cannot write the snapshot to {str(path)!r} "
-                                       f"({exc.strerror or exc}); the earlier file is unchanged",
-                            str(path)) from exc
-        except BaseException:
-            with contextlib.suppress(OSError):
-                os.unlink(tmp)
-            raise
-        return path
+
+        def write(fh):
+            json.dump(payload, fh, indent=2, allow_nan=False)
+            fh.write("\n")
+
+        return write_text_atomic(path, write, what="the snapshot")
 
     @classmethod
     def load(cls, path, *, data=None, allow_data_mismatch=False) -> Snapshot:

@@ -7,12 +7,11 @@ import html
 import numpy as np
 
 # the palette lives in the ground layer so the static report shares it
-from hedgerow._palette import METHOD_COLOURS, METHOD_DASHES, colour_of, dash_of
+from hedgerow._palette import METHOD_COLOURS, METHOD_DASHES, ROW_COLOUR, colour_of, dash_of
 
-__all__ = ["METHOD_COLOURS", "METHOD_DASHES", "colour_of", "dash_of", "marker_scaling",
-           "display_rows", "DISPLAY_LIMIT", "CSS", "swatch", "fmt"]
+__all__ = ["METHOD_COLOURS", "METHOD_DASHES", "ROW_COLOUR", "colour_of", "dash_of",
+           "marker_scaling", "display_rows", "DISPLAY_LIMIT", "CSS", "swatch", "fmt"]
 
-ROW_COLOUR = "#5b6470"  # slate: training rows
 PROBE_COLOUR = "#111111"  # near black: the probe marker
 HIGHLIGHT_COLOUR = "#111111"
 

@@ -188,3 +188,57 @@ def test_python_dash_m(tmp_path):
                           str(tmp_path / "absent.csv"), "--target", "y"],
                          capture_output=True, text=True, timeout=300)
     assert bad.returncode == 2 and "not found" in bad.stderr
+
+
+# -- large tables: subsampled comparisons, --full, --no-baseline, progress ---------------------
+def _verdict_rows(page):
+    import re
+
+    sec = re.search(r'<section id="verdict">(.*?)</section>', page, flags=re.S).group(1)
+    return sec
+
+
+def test_no_baseline_leaves_the_scikit_learn_forest_out(tmp_path, csv, capsys):
+    runs = {}
+    for flag in ([], ["--no-baseline"]):
+        out = tmp_path / f"r{len(flag)}.html"
+        code, _, err = _run(["report", str(csv), "--target", "output", "--trees", "20",
+                             "--no-compare", "--quiet", "--out", str(out), *flag], capsys)
+        assert code == 0, err
+        runs[bool(flag)] = _verdict_rows(out.read_text(encoding="utf-8"))
+    assert "random forest (scikit-learn)" in runs[False]
+    assert "random forest (scikit-learn)" not in runs[True]
+    assert "honest forest" in runs[True]
+
+
+def test_above_the_threshold_comparisons_use_a_subsample_unless_full(tmp_path, csv, capsys,
+                                                                      monkeypatch):
+    import hedgerow.report as R
+
+    monkeypatch.setattr(R, "COMPARISON_ROWS", 60)  # the table has 160 rows
+    out = tmp_path / "sub.html"
+    code, _, err = _run(["report", str(csv), "--target", "output", "--trees", "20",
+                         "--quiet", "--out", str(out)], capsys)
+    assert code == 0, err
+    page = out.read_text(encoding="utf-8")
+    assert "note: Large table (160 rows)" in err and "a random 60 of them" in err
+    assert "<p class='hr-note'>Large table (160 rows)" in page
+    assert "--full uses every row" in page
+    out = tmp_path / "full.html"
+    code, _, err = _run(["report", str(csv), "--target", "output", "--trees", "20",
+                         "--quiet", "--full", "--out", str(out)], capsys)
+    assert code == 0, err
+    assert "Large table" not in err
+    assert "hr-note" not in out.read_text(encoding="utf-8").split("</header>")[0].split(
+        "</style>")[1]
+
+
+def test_progress_names_every_long_step(tmp_path, csv, capsys):
+    out = tmp_path / "p.html"
+    code, _, err = _run(["report", str(csv), "--target", "output", "--trees", "20",
+                         "--coverage-reps", "1", "--out", str(out)], capsys)
+    assert code == 0, err
+    # the tree growth, both bandwidth searches, the verdict's fits and the readout
+    for text in ("fit: 20/20 trees", "smoothers: Nadaraya-Watson", "smoothers: local linear",
+                 "bandwidth evaluations", "verdict: ", " fits", "coverage: 1/1 replications"):
+        assert text in err, text

@@ -260,7 +260,7 @@ def test_snapshot_save_to_unwritable_place_names_the_path(data, llf, tmp_path):
 def test_snapshot_save_failure_names_the_given_path_not_the_temp_file(data, llf, tmp_path,
                                                                       monkeypatch):
     # the same failure injected (works as root too): the OS names the temporary file
-    import hedgerow.snapshot as snapshot_module
+    import hedgerow._atomic as atomic_module
     from hedgerow.snapshot import Snapshot
 
     X, y = data
@@ -272,7 +272,8 @@ def test_snapshot_save_failure_names_the_given_path_not_the_temp_file(data, llf,
     def refuse(prefix, suffix, dir):
         raise PermissionError(13, "Permission denied", f"{dir}/{prefix}x1y2{suffix}")
 
-    monkeypatch.setattr(snapshot_module.tempfile, "mkstemp", refuse)
+    # the temporary file is made by the shared atomic writer
+    monkeypatch.setattr(atomic_module.tempfile, "mkstemp", refuse)
     with pytest.raises(PermissionError) as info:
         snap.save(target)
     assert str(target) in str(info.value) and "Permission denied" in str(info.value)
@@ -404,3 +405,13 @@ def test_other_regressors_in_slices_and_edges(data, llf):
     assert part["lower"].isna().all()
     with pytest.raises(TypeError, match="must offer held-out predictions"):
         D.edges([llf, lin])
+
+
+def test_text_target_series_is_named_not_an_internal_error():
+    # pandas' string dtype: a Series' .dtypes is one dtype without .items()
+    from hedgerow import HonestForestRegressor
+
+    X = np.random.default_rng(0).uniform(size=(30, 2))
+    y = pd.Series([f"r{i}" for i in range(30)], dtype="string", name="t")
+    with pytest.raises(ValueError, match="y must hold numbers only"):
+        HonestForestRegressor(n_estimators=4).fit(X, y)

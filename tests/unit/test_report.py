@@ -6,6 +6,7 @@ nuisance columns whose names hold characters HTML must escape.
 
 from __future__ import annotations
 
+import os
 import re
 import subprocess
 import sys
@@ -252,7 +253,7 @@ def test_figures_draw_each_method_in_its_palette_colour(report):
     for name in ("local linear forest", "honest forest"):
         assert METHOD_COLOURS[name].lower() in slice_svg, name
     # every named dash pattern has a matplotlib style
-    assert {R._dash(m) for m in METHOD_DASHES} <= {"-", "--", "-.", ":"}
+    assert {R._figures.line_style(m) for m in METHOD_DASHES} <= {"-", "--", "-.", ":"}
 
 
 def test_report_needs_neither_widgets_nor_matplotlib_at_import():
@@ -348,7 +349,7 @@ def test_failed_rename_leaves_the_earlier_file(tmp_path, report, monkeypatch):
     def fail(src, dst):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(R.os, "replace", fail)
+    monkeypatch.setattr(os, "replace", fail)
     with pytest.raises(OSError, match="No space"):
         R.write_html(report, path)
     _only(tmp_path, path)
@@ -360,7 +361,7 @@ def test_interrupted_write_leaves_the_earlier_file(tmp_path, report, monkeypatch
     def interrupt(fd):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(R.os, "fsync", interrupt)
+    monkeypatch.setattr(os, "fsync", interrupt)
     with pytest.raises(KeyboardInterrupt):
         R.write_html(report, path)
     _only(tmp_path, path)
@@ -450,3 +451,96 @@ def test_bad_paths_are_named(tmp_path, report, data, model):
     with pytest.raises(TypeError, match="'path' parameter must be a file path"):
         R.write_html(report, 42)
     assert list(Path(tmp_path).iterdir()) == []
+
+
+def test_failed_write_names_the_given_path_not_the_temporary_file(tmp_path, report,
+                                                                  monkeypatch):
+    # reports and snapshots share one writer (hedgerow._atomic); the OS would name the
+    # temporary file
+    import tempfile
+
+    path = _old(tmp_path)
+
+    def refuse(prefix, suffix, dir):
+        raise PermissionError(13, "Permission denied", f"{dir}/{prefix}x1y2{suffix}")
+
+    monkeypatch.setattr(tempfile, "mkstemp", refuse)
+    with pytest.raises(PermissionError) as info:
+        R.write_html(report, path)
+    assert str(path) in str(info.value) and "Permission denied" in str(info.value)
+    assert ".tmp" not in str(info.value)
+    _only(tmp_path, path)
+
+
+# -- large tables ---------------------------------------------------------------------------
+def test_comparisons_on_a_subsample_are_the_direct_calls_on_those_rows(data, model):
+    from sklearn.base import clone
+
+    X, y = data
+    rep = R.build_report(X, y, model=model, comparison_rows=60, progress=False,
+                         random_state=4)
+    assert rep.verdict.errors.shape[0] == 60
+    rows_of = {tuple(r): i for i, r in enumerate(X.to_numpy())}
+    for s in rep.smoothers:
+        assert s.X_train_.shape[0] == 60
+        picked = [rows_of[tuple(r)] for r in s.X_train_]
+        assert picked == sorted(set(picked))  # distinct rows of X, in their order
+    Xs = X.iloc[picked]
+    ys = y.iloc[picked]
+    direct = D.verdict(Xs.to_numpy(), ys.to_numpy(), forest=clone(model),
+                       smoothers=list(rep.smoothers), baseline=True, random_state=4,
+                       progress=False)
+    pd.testing.assert_frame_equal(rep.verdict.comparisons, direct.comparisons)
+    # the forests' own numbers still use every row; subsampled smoothers leave the edges
+    assert list(rep.edges.residuals.columns) == ["local linear forest",
+                                                 "honest forest (same trees)"]
+    assert rep.edges.residuals.shape[0] == len(X)
+    assert rep.oob == D.oob_summary(model)
+    assert len(rep.notes) == 1 and "Large table (240 rows)" in rep.notes[0]
+    assert rep.notes[0] in html_unescape(rep.to_html())
+
+
+def html_unescape(text):
+    import html
+
+    return html.unescape(text)
+
+
+def test_no_subsample_when_the_table_is_small_enough(data, model, report):
+    X, y = data
+    rep = R.build_report(X, y, model=model, compare=False, comparison_rows=len(X),
+                         baseline=False, progress=False)
+    assert rep.notes == () and rep.verdict.errors.shape[0] == len(X)
+    assert "random forest (scikit-learn)" not in rep.verdict.comparisons.index
+    assert "random forest (scikit-learn)" in report.verdict.comparisons.index
+
+
+@pytest.mark.parametrize("change, error, match", [
+    ({"comparison_rows": 5}, ValueError, r"'comparison_rows' parameter must be None or an "
+                                         r"integer >= 20\. Got 5"),
+    ({"comparison_rows": 100.0}, ValueError, r"'comparison_rows' parameter"),
+    ({"baseline": "no"}, TypeError, r"'baseline' parameter must be True or False"),
+])
+def test_bad_large_table_parameters_are_named(data, change, error, match):
+    X, y = data
+    est = LocalLinearForestRegressor(n_estimators=10, random_state=0)
+    with pytest.raises(error, match=match):
+        R.build_report(X, y, model=est, progress=False, **change)
+    assert not hasattr(est, "X_train_")
+
+
+def test_figures_draw_a_bounded_number_of_points(data, model, monkeypatch):
+    import hedgerow.report._figures as F
+
+    X, y = data
+    # matplotlib writes one <use> per scatter point (and a dozen for ticks and legend)
+    uncapped = R.build_report(X, y, model=model, compare=False, progress=False)
+    monkeypatch.setattr(F, "FIGURE_POINTS", 50)
+    capped = R.build_report(X, y, model=model, compare=False, progress=False)
+    for name in ("slice", "edges", "neighbour_weights"):
+        others = uncapped.figures[name].count("<use ") - len(X) * (2 if name == "edges" else 1)
+        if name != "neighbour_weights":  # every row is drawn (the weights: rows with weight)
+            assert others < 30, name
+        assert capped.figures[name].count("<use ") < uncapped.figures[name].count("<use "), name
+    assert capped.figures["slice"].count("<use ") < 50 + 30
+    assert capped.figures["edges"].count("<use ") < 2 * 50 + 30
