@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from hedgerow._atomic import write_text_atomic
+from hedgerow._format import format_number
 from hedgerow._validation import checked_rows, column_names
 
 __all__ = [
@@ -604,7 +605,7 @@ class Snapshot:
 
 
 def _fmt(v):
-    return "n/a" if v is None else f"{v:.4g}"
+    return "n/a" if v is None else format_number(v)
 
 
 def _same(a, b):

@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import t as student_t
 
+from hedgerow._format import format_number
 from hedgerow._validation import check_level, checked_rows
 from hedgerow.diagnostics._checks import check_models, check_rows, check_values
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
@@ -58,8 +59,9 @@ class EdgeProfile(ReportMixin):
     def _notes(self):
         out = []
         for _, r in self.bend.iterrows():
-            out.append(f"{r['method']}: inward-bend score {r['bend']:.3g} "
-                       f"(95% CI {r['lower']:.3g} to {r['upper']:.3g}) in the outer "
+            out.append(f"{r['method']}: inward-bend score {format_number(r['bend'], 3)} "
+                       f"(95% CI {format_number(r['lower'], 3)} to "
+                       f"{format_number(r['upper'], 3)}) in the outer "
                        f"{100 * EDGE_BAND:.0f}%")
         return out
 

@@ -7,6 +7,7 @@ import html
 import numpy as np
 import pandas as pd
 
+from hedgerow._format import format_number
 from hedgerow._validation import CheckedRows, checked_rows, fitted_columns
 
 __all__ = ["ReportMixin", "check_probe_point", "has_little_bags", "kish_ess"]
@@ -26,7 +27,7 @@ class ReportMixin:
     def _repr_html_(self) -> str:
         frame = self.to_frame()
         notes = "".join(f"<p style='margin:2px 0'>{html.escape(n)}</p>" for n in self._notes())
-        table = frame.to_html(float_format=lambda v: f"{v:.4g}", border=0, max_rows=30)
+        table = frame.to_html(float_format=format_number, border=0, max_rows=30)
         return (
             f"<div class='hedgerow-report'><strong>{html.escape(self._title)}</strong>"
             f"{notes}{table}</div>"

@@ -8,6 +8,7 @@ column at once, the target's name, the columns holding missing values, and a row
 from __future__ import annotations
 
 from collections.abc import Mapping
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -61,11 +62,9 @@ def _missing_values_error(X, y):
     if Xa.ndim == 2:
         bad = ~np.isfinite(Xa).all(axis=0)
         if bad.any():
-            stand_in = TableColumns()
-            stand_in.n_features_in_ = Xa.shape[1]
-            if isinstance(X, pd.DataFrame):
-                stand_in.feature_names_in_ = np.asarray(X.columns, dtype=object)
-            cols = [column_names(stand_in)[j] for j in np.flatnonzero(bad)]
+            named = np.asarray(X.columns, dtype=object) if isinstance(X, pd.DataFrame) else None
+            table = SimpleNamespace(n_features_in_=Xa.shape[1], feature_names_in_=named)
+            cols = [column_names(table)[j] for j in np.flatnonzero(bad)]
             return ValueError(f"X must be finite: missing or infinite values (columns "
                               f"{cols}). Drop or fill those rows first.")
     if ya.size and not np.isfinite(ya).all():

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from hedgerow._format import format_number
+
 __all__ = ["number"]
 
 
@@ -17,7 +19,8 @@ def number(value, digits: int = 4, *, percent: bool = False) -> str:
     Parameters
     ----------
     value : number, bool, or anything else (shown as '-')
-        Whole numbers are shown in full, other numbers with ``digits`` significant digits.
+        Whole numbers are shown in full, other numbers by the shared plain-number rule
+        (:func:`hedgerow._format.format_number`) with ``digits`` significant digits.
     digits : int
         Significant digits of a non-integer number.
     percent : bool
@@ -26,14 +29,12 @@ def number(value, digits: int = 4, *, percent: bool = False) -> str:
 
     The text holds no character HTML must escape.
     """
-    if isinstance(value, bool | np.bool_):
-        return str(bool(value))
-    if isinstance(value, int | np.integer) and not percent:
-        return str(int(value))
+    if not percent:
+        return format_number(value, digits)
     try:
         f = float(value)
     except (TypeError, ValueError):
         return "-"
     if not np.isfinite(f):
         return "-"
-    return f"{100 * f:+.1f}%" if percent else f"{f:.{digits}g}"
+    return f"{100 * f:+.1f}%"

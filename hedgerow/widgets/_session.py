@@ -19,6 +19,7 @@ import pandas as pd
 import traitlets as t
 
 from hedgerow import diagnostics as D
+from hedgerow._format import format_number
 from hedgerow._validation import check_ridge_penalty, column_names
 from hedgerow.widgets._runner import ENDED, BackgroundRunner, Job, JobCancelled
 
@@ -459,7 +460,8 @@ class ExploreSession(t.HasTraits):
         s = self.settings
         return (f"showing forest #{s.get('generation', 0) + 1}: {s.get('n_estimators')} trees, "
                 f"subsample rate {s.get('subsample_rate', 0):.2f}, min leaf "
-                f"{s.get('min_samples_leaf')}, ridge penalty {s.get('ridge_penalty', 0):.3g}")
+                f"{s.get('min_samples_leaf')}, ridge penalty "
+                f"{format_number(s.get('ridge_penalty', 0), 3)}")
 
     # -- background work: one runner for refits, interval widths, coverage, ... -------
     def submit(self, kind, fn, *, key=None, params=None, delay=0.0, on_done=None,

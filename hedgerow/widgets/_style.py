@@ -7,6 +7,7 @@ import html
 import numpy as np
 
 # the palette lives in the ground layer so the static report shares it
+from hedgerow._format import format_number
 from hedgerow._palette import METHOD_COLOURS, METHOD_DASHES, ROW_COLOUR, colour_of, dash_of
 
 __all__ = ["METHOD_COLOURS", "METHOD_DASHES", "ROW_COLOUR", "colour_of", "dash_of",
@@ -67,9 +68,5 @@ def swatch(name: str, label: bool = True) -> str:
 
 
 def fmt(v, digits=4) -> str:
-    """Return a number for display ('-' when missing)."""
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        return "-"
-    return f"{v:.{digits}g}" if np.isfinite(v) else "-"
+    """Return a number for display ('-' when missing): the shared plain-number rule."""
+    return format_number(v, digits)
