@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
+from hedgerow._format import format_number
 from hedgerow._validation import check_level, column_names, fitted_columns
 from hedgerow.diagnostics._checks import FORESTS, SMOOTHERS, check_model
 from hedgerow.diagnostics._report import (
@@ -74,6 +75,9 @@ class ProbeReport(ReportMixin):
         comparison smoother, in that order.
     level : float
         Interval level.
+    outside : tuple of (str, float, float, float)
+        ``(column, probe value, data minimum, data maximum)`` for each column where the
+        probe lies outside the training data's range: every method extrapolates there.
     """
 
     x: np.ndarray
@@ -86,7 +90,21 @@ class ProbeReport(ReportMixin):
     slope_columns: np.ndarray
     methods: tuple = field(default_factory=tuple)
     level: float = 0.95
+    outside: tuple = ()
     _title = "probe"
+
+    @property
+    def extrapolating(self) -> bool:
+        """True when the probe lies outside the training data in some column."""
+        return bool(self.outside)
+
+    def outside_note(self) -> str:
+        """One line naming the columns where the probe is outside the data; '' if none."""
+        if not self.outside:
+            return ""
+        parts = [f"{name}={format_number(v)} (data span {format_number(lo)} to "
+                 f"{format_number(hi)})" for name, v, lo, hi in self.outside]
+        return "outside the data: extrapolating in " + ", ".join(parts)
 
     def method(self, name: str) -> MethodAtProbe:
         """Return the entry of the method called ``name``."""
@@ -128,7 +146,7 @@ class ProbeReport(ReportMixin):
     def _notes(self):
         return [f"effective sample size {self.ess:.1f}; top {TOP_ROWS} rows hold "
                 f"{100 * self.top_share:.0f}% of the weight; {100 * self.level:.0f}% intervals",
-                *self.column_use_notes()]
+                *self.column_use_notes(), *([self.outside_note()] if self.outside else [])]
 
 
 def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None,
@@ -198,6 +216,10 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     diff = (X - xq) / sd
     offset = w @ diff
     spread = w @ np.abs(diff)
+    lo, hi = X.min(axis=0), X.max(axis=0)
+    x0 = xq.reshape(-1)
+    outside = tuple((names[j], float(x0[j]), float(lo[j]), float(hi[j]))
+                    for j in np.flatnonzero((x0 < lo) | (x0 > hi)))
     top = float(np.sort(W.data)[::-1][:TOP_ROWS].sum())
     is_llf = isinstance(model, LocalLinearForestRegressor)
     cols = model.correction_features_ if is_llf else np.arange(0)
@@ -242,4 +264,5 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
         x=xq[0], feature_names=names, weights=sp.csr_matrix(W), ess=kish_ess(W.data),
         top_share=top, neighbour_offset=offset, neighbour_spread=spread,
         slope_columns=np.asarray(cols), methods=tuple(methods), level=level,
+        outside=outside,
     )

@@ -256,6 +256,9 @@ class ProbeView(View):
         where = ", ".join(f"{n}={fmt(v, 3)}" for n, v in zip(self._names, rep.x, strict=True))
         notes = "".join(f"<br><small class='hedgerow-column-use'>{html.escape(n)}</small>"
                         for n in rep.column_use_notes())
+        if rep.extrapolating:
+            notes += (f"<br><strong class='hedgerow-outside'>{html.escape(rep.outside_note())}"
+                      f"</strong>")
         self._readout_html.value = (
             f"<div><small>probe at {html.escape(where)}</small>"
             f"<table style='border-collapse:collapse'><tr><th align='left'>method</th>"

@@ -262,3 +262,25 @@ def test_slices_accept_default_names_of_unnamed_columns(data, llf):
     pd.testing.assert_frame_equal(by_name.frame, by_index.frame)
     with pytest.raises(ValueError, match="x0..x3"):
         slices(llf, X[0], "x9", [0.5])
+
+
+def test_probe_outside_the_data_names_the_column_and_span():
+    # a probe beyond the training range in one column is extrapolation for every method
+    from hedgerow import HonestForestRegressor
+    from hedgerow import diagnostics as Dg
+
+    rng = np.random.default_rng(11)
+    X = rng.uniform(80, 120, size=(300, 2))
+    y = X[:, 0] * 0.1 + rng.normal(size=300)
+    model = HonestForestRegressor(n_estimators=40, random_state=0).fit(X, y)
+    inside = Dg.probe(model, np.array([100.0, 100.0]))
+    assert not inside.extrapolating and inside.outside_note() == ""
+    rep = Dg.probe(model, np.array([151.0, 100.0]))
+    assert rep.extrapolating
+    name, v, lo, hi = rep.outside[0]
+    assert (name, v) == ("x0", 151.0) and lo == X[:, 0].min() and hi == X[:, 0].max()
+    assert len(rep.outside) == 1
+    assert rep.outside_note().startswith("outside the data: extrapolating in x0=151")
+    assert rep.outside_note() in rep._notes()
+    below = Dg.probe(model, np.array([100.0, 79.0]))
+    assert [o[0] for o in below.outside] == ["x1"]

@@ -56,9 +56,14 @@ def test_headline_numbers_are_the_models(snap, model, data):
     ok = np.isfinite(oob)
     rmse = np.sqrt(np.mean((oob[ok] - y.to_numpy()[ok]) ** 2))
     assert snap.headline["oob_rmse"] == pytest.approx(rmse, rel=1e-12)
-    mean, std = model.oob_predict(return_std=True, ridge_penalty=0.2)
-    width = 2 * 1.959963984540054 * np.nanmean(std)
+    # the headline width is the default interval's (bias-corrected, Student-t with the
+    # little bags' Satterthwaite degrees of freedom), not the normal-quantile CLT band
+    lo, hi = model.with_ridge_penalty(0.2).oob_interval_parts().interval(0.95)
+    width = np.nanmean(hi - lo)
     assert snap.headline["mean_interval_width"] == pytest.approx(width, rel=1e-9)
+    _, std = model.oob_predict(return_std=True, ridge_penalty=0.2)
+    assert snap.headline["mean_interval_width"] != pytest.approx(
+        2 * 1.959963984540054 * np.nanmean(std), rel=1e-3)
     assert snap.headline["probe_prediction"] == pytest.approx(
         model.predict(X.iloc[[7]], ridge_penalty=0.2)[0], rel=1e-12)
     assert snap.headline["verdict"].startswith("The local linear forest")

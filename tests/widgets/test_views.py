@@ -374,3 +374,20 @@ def test_interval_width_readout_without_little_bags(data):
     assert app.tuning_view.wait_for_width(60)
     assert "none (no little bags)" in app.tuning_view.readout_html.value
     assert app.tuning_view.error == ""
+
+
+def test_coordinate_typed_outside_the_data_is_flagged(app, session):
+    view = app.probe_view
+    k = next(i for i, n in enumerate(session.feature_names) if n != view.feature)
+    col = session.X_train[:, k]
+    inside = float(np.median(col))
+    view._coord_boxes[k].value = inside
+    assert "outside the data" not in view._readout_html.value
+    beyond = float(col.max() + (col.max() - col.min()))
+    view._coord_boxes[k].value = beyond
+    assert view.probe_x[k] == pytest.approx(beyond)  # typed values are taken, not clamped
+    page = view._readout_html.value
+    assert "outside the data: extrapolating" in page
+    assert session.feature_names[k] in page
+    rep = direct_probe(session, view.probe_x)
+    assert rep.extrapolating and rep.outside[0][0] == session.feature_names[k]
