@@ -26,6 +26,7 @@ from hedgerow.kernels._kernels import (
     _check_kernel,
     _exp_nonpositive,
 )
+from hedgerow.local._solver import _binary_magnitude
 from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
 
 __all__ = [
@@ -89,13 +90,17 @@ def silverman_bandwidth(X) -> np.ndarray:
     """
     X = np.asarray(X, dtype=np.float64)
     n = X.shape[0]
-    sd = X.std(axis=0, ddof=1) if n > 1 else np.zeros(X.shape[1])
-    q75, q25 = np.percentile(X, [75, 25], axis=0)
+    # each column divided by a power of two near its largest magnitude (exact): the
+    # spread of a column near 1e300 does not overflow and one near 1e-300 does not
+    # underflow to "constant"; ordinary columns give the same bits as without it
+    p = _binary_magnitude(np.abs(X).max(axis=0)) if n else np.ones(X.shape[1])
+    Xs = X / p
+    sd = Xs.std(axis=0, ddof=1) if n > 1 else np.zeros(X.shape[1])
+    q75, q25 = np.percentile(Xs, [75, 25], axis=0)
     iqr = (q75 - q25) / 1.34
     spread = np.minimum(sd, iqr)
     spread = np.where(spread > 0, spread, np.maximum(sd, iqr))
-    spread = np.where(spread > 0, spread, 1.0)
-    return 0.9 * spread * n ** (-0.2)
+    return np.where(spread > 0, 0.9 * spread * n ** (-0.2) * p, 0.9 * n ** (-0.2))
 
 
 #: Rows whose hat-matrix diagonal exceeds this are left out of their own weights and

@@ -163,7 +163,7 @@ def test_local_linear_forest_screening_and_penalty_ignore_target_units(c):
 def test_kernel_smoothers_with_a_given_bandwidth_survive_extreme_magnitudes(scale):
     # a float bandwidth is in standard deviations of each column, so a change of units
     # must not change the fit; near 1e307 the column means used to overflow (NaN fits).
-    # (The automatic bandwidth's Silverman start is not covered here: see DEVELOPERS.)
+    # (the automatic bandwidth: test_kernel_smoothers_with_the_automatic_bandwidth_...)
     from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
 
     X, y = DESIGNS["friedman1"]
@@ -173,6 +173,43 @@ def test_kernel_smoothers_with_a_given_bandwidth_survive_extreme_magnitudes(scal
         p1, s1 = est.fit(X * scale, y).predict(Q * scale, return_std=True)
         np.testing.assert_allclose(p1, p0, rtol=1e-8)
         np.testing.assert_allclose(s1, s0, rtol=1e-6)
+
+
+@pytest.mark.parametrize("scale", [1e-300, 1e-150, 1e150, 1e300, 1e307])
+def test_silverman_start_scales_with_the_column(scale):
+    # X.std overflowed near 1e300 (and its squares underflowed near 1e-300), so the rule
+    # of thumb silently fell back to the IQR spread; it must scale with the column
+    from hedgerow.kernels._bandwidth import silverman_bandwidth
+
+    X, _ = DESIGNS["friedman1"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        h = silverman_bandwidth(X * scale)
+    np.testing.assert_allclose(h / scale, silverman_bandwidth(X), rtol=1e-12)
+    # heavy ties: the larger spread is used, at every magnitude alike
+    T = np.repeat(X[:4], 30, axis=0)
+    T[:100] = T[0]
+    np.testing.assert_allclose(silverman_bandwidth(T * scale) / scale,
+                               silverman_bandwidth(T), rtol=1e-12)
+
+
+@pytest.mark.parametrize("scale", [1e-300, 1e300])
+def test_kernel_smoothers_with_the_automatic_bandwidth_survive_extreme_magnitudes(scale):
+    # the cross-validated bandwidth searches from the rule of thumb: in units of each
+    # column, so a change of units gives the same fit
+    from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
+
+    X, y = DESIGNS["friedman1"]
+    X, y = X[:150, :3], y[:150]
+    Q = _queries(X, 20)
+    for cls in (NadarayaWatsonRegressor, LocalLinearRegressor):
+        base = cls().fit(X, y)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            big = cls().fit(X * scale, y)
+            p1 = big.predict(Q * scale)
+        np.testing.assert_allclose(big.bandwidth_ / scale, base.bandwidth_, rtol=1e-6)
+        np.testing.assert_allclose(p1, base.predict(Q), rtol=1e-6, atol=1e-9)
 
 
 @pytest.mark.parametrize("c", [1e-300, 1e-200, 1e150, 1e200, 1e300])
