@@ -26,8 +26,8 @@ from hedgerow.kernels._kernels import (
     _check_kernel,
     _exp_nonpositive,
 )
-from hedgerow.local._solver import _binary_magnitude
 from hedgerow.local import default_scale, moment_features, moments_from_sums, solve_local
+from hedgerow.local._solver import _binary_magnitude
 
 __all__ = [
     "CV_BANDWIDTH_RANGE",
