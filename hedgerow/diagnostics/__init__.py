@@ -4,6 +4,8 @@
 - ``slices``: predictions along one column (or partial dependence).
 - ``edges``: held-out residuals by edge depth and the edge-bias sign pattern.
 - ``verdict``: cross-fitted paired errors against plain forests and a stated decision.
+- ``decision_panel``: is the correction warranted here? verdict gain, inward bends,
+  coverage and the difference at the probe, each with a one-line reading.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
 - ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
@@ -13,6 +15,7 @@
 """
 
 from hedgerow.diagnostics._coverage import CoverageReport, coverage_readout
+from hedgerow.diagnostics._decision import CAUTIONS, CAUTIONS_LINK, DecisionPanel, decision_panel
 from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
@@ -31,7 +34,7 @@ from hedgerow.diagnostics._probe import TOP_ROWS, WIDE_COLUMNS, MethodAtProbe, P
 from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._split_half import SELECTIONS, SplitHalfReport, split_half_agreement
-from hedgerow.diagnostics._tuning import TuningSurface, tuning_surface
+from hedgerow.diagnostics._tuning import TuningSurface, surface_column, tuning_surface
 from hedgerow.diagnostics._verdict import (
     DECISIONS,
     EDGE_BAND,
@@ -42,6 +45,11 @@ from hedgerow.diagnostics._verdict import (
 )
 
 __all__ = [
+    "CAUTIONS",
+    "CAUTIONS_LINK",
+    "DecisionPanel",
+    "decision_panel",
+    "surface_column",
     "at_ridge_penalty",
     "check_probe_point",
     "has_little_bags",

@@ -12,7 +12,7 @@ from hedgerow._progress import progress_bar
 from hedgerow.diagnostics._interactive import oob_summary
 from hedgerow.diagnostics._report import ReportMixin
 
-__all__ = ["TuningSurface", "tuning_surface"]
+__all__ = ["TuningSurface", "surface_column", "tuning_surface"]
 
 
 @dataclass(frozen=True)
@@ -81,15 +81,34 @@ def _check_grid(name, values, low, high, closed_low):
     return arr
 
 
-def _fit_rate(X, y, rate, random_state, n_jobs, forest_params):
+def _fit_rate(X, y, rate, random_state, n_jobs, forest_params, progress=None):
     """Return (the forest of one subsample rate, seconds spent fitting it)."""
     from hedgerow.estimators import LocalLinearForestRegressor
 
     t = time.perf_counter()
     model = LocalLinearForestRegressor(
         subsample_rate=float(rate), random_state=random_state, n_jobs=n_jobs, **forest_params,
-    ).fit(X, y)
+    ).fit(X, y, progress=progress)
     return model, time.perf_counter() - t
+
+
+def surface_column(X, y, subsample_rate, ridge_penalties, *, level=0.95, random_state=0,
+                   n_jobs=None, progress=None, **forest_params) -> tuple:
+    """Return ``(cells, model)``: one subsample rate's column of the tuning surface.
+
+    ``cells`` is a DataFrame with the columns of ``TuningSurface.frame`` (without
+    coverage) for every penalty in ``ridge_penalties``, the same numbers
+    ``tuning_surface`` gives for that rate with the same arguments; ``model`` is the
+    forest grown for it (one fit; the penalties re-solve its out-of-bag moments).
+    ``progress``: callable(trees grown), passed to ``fit`` (it may raise to stop).
+    """
+    rates = _check_grid("subsample_rate", [subsample_rate], 0.0, 1.0, closed_low=False)
+    lams = _check_grid("ridge_penalties", ridge_penalties, 0.0, np.inf, closed_low=True)
+    forest_params = {k: v for k, v in forest_params.items() if k != "subsample_rate"}
+    model, _ = _fit_rate(X, y, rates[0], random_state, n_jobs, forest_params, progress)
+    rows = [_cell(model, rates[0], lam, level) for lam in lams]
+    return pd.DataFrame(rows, columns=["subsample_rate", "ridge_penalty", "oob_rmse",
+                                       "mean_width", "n_rows"]), model
 
 
 def _cell(model, rate, lam, level) -> dict:

@@ -7,6 +7,7 @@ import warnings
 import ipywidgets as W
 
 from hedgerow.snapshot import Snapshot
+from hedgerow.widgets._decision_view import DecisionView
 from hedgerow.widgets._edges_view import EdgesView
 from hedgerow.widgets._probe_view import ProbeView
 from hedgerow.widgets._session import ExploreSession
@@ -16,7 +17,7 @@ from hedgerow.widgets._weights_view import WeightsView
 
 __all__ = ["Explorer", "explore"]
 
-TAB_TITLES = ("probe", "neighbour weights", "edges", "tuning", "verdict")
+TAB_TITLES = ("decision", "probe", "neighbour weights", "edges", "tuning", "verdict")
 
 
 class Explorer(W.Tab):
@@ -25,12 +26,13 @@ class Explorer(W.Tab):
     def __init__(self, session, *, feature=None):
         self.session = session
         self.probe_view = ProbeView(session, feature=feature)
+        self.decision_view = DecisionView(session)
         self.weights_view = WeightsView(session)
         self.edges_view = EdgesView(session)
         self.tuning_view = TuningView(session)
         self.verdict_view = VerdictView(session)
-        views = [self.probe_view, self.weights_view, self.edges_view, self.tuning_view,
-                 self.verdict_view]
+        views = [self.decision_view, self.probe_view, self.weights_view, self.edges_view,
+                 self.tuning_view, self.verdict_view]
         super().__init__(children=views, titles=TAB_TITLES)
         self.add_class("hedgerow-explorer")
 

@@ -36,6 +36,8 @@ class CSS:
     verdict_conclusion = "hedgerow-verdict-conclusion"
     coverage_result = "hedgerow-coverage-result"
     ridge_slider = "hedgerow-ridge-slider"
+    decision = "hedgerow-decision"
+    decision_table = "hedgerow-decision-table"
 
 
 def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):

@@ -196,6 +196,12 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         _wait_for_kernel(page)
         page.locator(".lm-MenuBar-itemLabel", has_text="Run").first.click()
         page.locator(".lm-Menu-itemLabel", has_text="Run All Cells").first.click()
+        # the explorer opens on the decision panel; the probe is the next tab
+        decision = page.locator(".hedgerow-decision")
+        decision.wait_for(state="visible", timeout=90_000)
+        _wait_until(lambda: "decision:" in decision.inner_text(), 30, "the decision panel")
+        page.screenshot(path=str(ARTIFACTS / "explore-decision-on-open.png"))
+        page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         readout = page.locator(".hedgerow-probe-readout")
         readout.wait_for(state="visible", timeout=90_000)
         _wait_until(lambda: "±" in readout.inner_text(), 30, "the probe readout")
@@ -253,15 +259,16 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
         # the verdict is cross-fitted in the session's background runner: wait for it
         rec = _wait_until(lambda: (r := _read_record(lab["record"])) and r["verdict"] and r,
                           300, "the cross-fitted verdict in the kernel record")
-        for tab in ("neighbour weights", "edges", "verdict", "tuning", "probe"):
+        for tab in ("decision", "neighbour weights", "edges", "verdict", "tuning", "probe"):
             page.locator(".lm-TabBar-tabLabel", has_text=tab).first.click()
             # a visible bqplot figure (or, for the verdict, its conclusion) with real size
             shown = page.locator(".hedgerow-explorer .bqplot:visible, "
-                                 ".hedgerow-explorer .hedgerow-verdict-conclusion:visible")
+                                 ".hedgerow-explorer .hedgerow-verdict-conclusion:visible, "
+                                 ".hedgerow-explorer .hedgerow-decision-table:visible")
             _wait_until(lambda shown=shown: shown.count() > 0, 20, f"the {tab} view")
             box = shown.first.bounding_box()
             assert box and box["width"] > 100 and box["height"] > 20, (tab, box)
-            if tab != "verdict":
+            if tab not in ("verdict", "decision"):
                 # each figure drew marks: lines or points
                 marks = page.locator(".hedgerow-explorer .bqplot:visible "
                                      "path.line, .hedgerow-explorer .bqplot:visible path.dot")
@@ -273,6 +280,11 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
         conclusion = page.locator(".hedgerow-verdict-conclusion:visible").first
         _wait_until(lambda: rec["verdict"][:60] in conclusion.inner_text(), 60,
                     "the verdict on the page")
+        # the decision panel leads with the same sentence once the verdict is in
+        page.locator(".lm-TabBar-tabLabel", has_text="decision").first.click()
+        panel = page.locator(".hedgerow-decision:visible").first
+        _wait_until(lambda: rec["verdict"][:60] in panel.inner_text(), 60,
+                    "the verdict sentence on the decision panel")
         page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         page.locator(".hedgerow-explorer").first.screenshot(
             path=str(ARTIFACTS / "explorer.png"))

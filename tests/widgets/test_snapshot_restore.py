@@ -94,7 +94,7 @@ def test_restore_gives_identical_view_state(original, restored):
     assert restored.session.probe_x == original.session.probe_x
     assert restored.session.ridge_penalty == original.session.ridge_penalty
     assert restored.tuning_view.ridge_slider.value == original.tuning_view.ridge_slider.value
-    assert restored.selected_index == original.selected_index == 4
+    assert restored.selected_index == original.selected_index == 5
     pv = restored.probe_view
     assert pv.line_mark.visible is False and pv.slice_marks["Nadaraya-Watson"].visible is False
     assert pv.slice_marks["local linear forest"].visible is True

@@ -50,8 +50,8 @@ def drag(view, x):
 
 
 def test_explore_builds_every_view(app):
-    assert [app.get_title(i) for i in range(5)] == [
-        "probe", "neighbour weights", "edges", "tuning", "verdict"]
+    assert [app.get_title(i) for i in range(6)] == [
+        "decision", "probe", "neighbour weights", "edges", "tuning", "verdict"]
     assert all(v.error == "" for v in app.views)
 
 
@@ -391,3 +391,59 @@ def test_coordinate_typed_outside_the_data_is_flagged(app, session):
     assert session.feature_names[k] in page
     rep = direct_probe(session, view.probe_x)
     assert rep.extrapolating and rep.outside[0][0] == session.feature_names[k]
+
+
+def test_decision_panel_is_the_first_tab_and_the_functions_numbers(app, session):
+    view = app.decision_view
+    assert app.children[0] is view and app.selected_index in (None, 0)
+    session.ridge_penalty = 0.05
+    assert session.wait_for("verdict", 300) == "done"
+    panel = view.panel
+    rep, settings = _latest_coverage(session)
+    direct = D.decision_panel(direct_probe(session, session.probe_x), session.edge_profile(),
+                              session.peek_verdict(), rep, coverage_settings=settings)
+    assert panel.decision == direct.decision != "pending"
+    cols = ["value", "lower", "upper"]
+    np.testing.assert_allclose(panel.frame[cols].to_numpy(float),
+                               direct.frame[cols].to_numpy(float), rtol=1e-9)
+    assert list(panel.frame["reading"]) == list(direct.frame["reading"])
+    shown = view.decision_html.value.replace("&#x27;", "'")
+    assert direct.sentence in shown
+    assert "unconfoundedness" in view.cautions_html.value
+    assert "#cautions" in view.cautions_html.value
+    # it follows the ridge slider: the difference at the probe is re-solved
+    before = panel.item("difference at the probe")["value"]
+    session.ridge_penalty = 2.0
+    after = view.panel.item("difference at the probe")["value"]
+    assert after != before
+    assert after == pytest.approx(D.decision_panel(direct_probe(
+        session, session.probe_x)).item("difference at the probe")["value"], rel=1e-9)
+
+
+def _latest_coverage(session):
+    job = session.latest_job("coverage")
+    if job is None or job.result is None:
+        return None, ""
+    return job.result
+
+
+def test_decision_panel_shows_coverage_once_a_readout_ran(app):
+    view, tuning = app.decision_view, app.tuning_view
+    tuning.coverage_reps = 2
+    tuning.start_coverage().join(180)
+    rep, settings = app.session.latest_job("coverage").result
+    items = view.panel.frame[view.panel.frame["item"] == "coverage"]
+    assert len(items) == 2
+    assert view.panel.coverage_settings == settings
+    assert settings in view.table_html.value.replace("&#x27;", "'")
+
+
+def test_decision_panel_keeps_the_outside_note_in_view(app, session):
+    view = app.decision_view
+    j = 0
+    x = list(session.probe_x)
+    col = session.X_train[:, j]
+    x[j] = float(col.max() + 5 * col.std())
+    session.probe_x = x
+    assert view.panel.outside_note.startswith("outside the data")
+    assert "hedgerow-outside" in view.decision_html.value

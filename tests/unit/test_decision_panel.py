@@ -1,0 +1,116 @@
+"""The decision panel's plain function and one column of the tuning surface."""
+
+import numpy as np
+import pytest
+
+from hedgerow import LocalLinearForestRegressor
+from hedgerow import diagnostics as D
+from hedgerow.datasets import load_pump_demo, split_demo
+
+pytestmark = pytest.mark.filterwarnings("ignore::RuntimeWarning")
+
+
+@pytest.fixture(scope="module")
+def fitted():
+    X, y, _ = split_demo(load_pump_demo(300, random_state=4))
+    model = LocalLinearForestRegressor(n_estimators=100, random_state=2).fit(X, y)
+    return X.to_numpy(), y.to_numpy(), model
+
+
+@pytest.fixture(scope="module")
+def reports(fitted):
+    X, y, model = fitted
+    probe = D.probe(model, np.median(X, axis=0))
+    profile = D.edges({"local linear forest": model,
+                       "honest forest (same trees)": D.local_average_model(model)})
+    v = D.verdict(X, y, forest=model, smoothers=None, folds=3, progress=False)
+    cov = D.coverage_readout(model, reps=2, n_eval=60, progress=False)
+    return probe, profile, v, cov
+
+
+def test_panel_pending_until_the_verdict_is_in(reports):
+    probe = reports[0]
+    panel = D.decision_panel(probe)
+    assert panel.decision == "pending"
+    assert "cross-fitting" in panel.sentence
+    assert list(panel.frame["item"]) == ["difference at the probe"]
+    assert "unconfoundedness" in panel.cautions and "overlap" in panel.cautions
+    assert panel.cautions_link.endswith("#cautions")
+
+
+def test_panel_items_are_the_reports_numbers(reports):
+    probe, profile, v, cov = reports
+    panel = D.decision_panel(probe, profile, v, cov, coverage_settings="forest #1")
+    assert panel.decision == v.decision and panel.sentence == v.conclusion
+    best = v.best_alternative
+    row = panel.item("verdict gain", best)
+    c = v.comparisons.loc[best]
+    assert (row["value"], row["lower"], row["upper"]) == (
+        c["gain_all"], c["lower_all"], c["upper_all"])
+    for _, b in profile.bend.iterrows():
+        r = panel.item("inward-bend score", b["method"])
+        assert r["value"] == b["bend"] and r["lower"] == b["lower"]
+    f = cov.frame[(cov.frame["part"] == "all") & (cov.frame["interval"] == "bias_corrected")]
+    assert len(f) == 2  # both forests
+    for _, c in f.iterrows():
+        r = panel.item("coverage", c["method"])
+        assert r["value"] == c["coverage"]
+        assert ("rms bias" in r["reading"]) == np.isfinite(c["rms_bias"])
+        if c["flag"]:
+            assert r["reading"].startswith(c["flag"])
+    d = panel.item("difference at the probe")
+    llf, hon = probe.method("local linear forest"), probe.method("honest forest (same trees)")
+    assert d["value"] == pytest.approx(llf.prediction - hon.prediction, rel=1e-12)
+    half = np.hypot((llf.upper - llf.lower) / 2, (hon.upper - hon.lower) / 2)
+    assert d["upper"] - d["value"] == pytest.approx(half, rel=1e-9)
+    assert panel.coverage_settings == "forest #1"
+    html = panel._repr_html_()
+    assert v.conclusion.split(":")[0] in html
+
+
+def test_panel_keeps_the_outside_the_data_note(fitted):
+    X, _, model = fitted
+    x = np.median(X, axis=0)
+    x[0] = X[:, 0].max() + 10 * X[:, 0].std()
+    panel = D.decision_panel(D.probe(model, x))
+    assert panel.outside_note.startswith("outside the data")
+    assert panel.outside_note in " ".join(panel._notes())
+    inside = D.decision_panel(D.probe(model, np.median(X, axis=0)))
+    assert inside.outside_note == ""
+
+
+def test_panel_readings_follow_the_interval(reports):
+    probe, profile, v, _ = reports
+    panel = D.decision_panel(probe, profile, v)
+    for _, r in panel.frame.iterrows():
+        if r["lower"] > 0 and r["item"] == "verdict gain":
+            assert "above 0" in r["reading"]
+        if r["lower"] <= 0 <= r["upper"] and r["item"] == "verdict gain":
+            assert "includes 0" in r["reading"]
+        if r["item"] == "inward-bend score" and r["lower"] <= 0 <= r["upper"]:
+            assert r["reading"] == "no clear bend at the edges"
+
+
+def test_panel_refuses_what_is_not_a_probe_report(reports):
+    with pytest.raises(TypeError, match="'probe_report'"):
+        D.decision_panel({"x": 1})
+
+
+def test_surface_column_is_the_surfaces_numbers(fitted):
+    X, y, _ = fitted
+    lams = [0.0, 0.01, 0.3]
+    params = dict(n_estimators=50, min_samples_leaf=5)
+    surface = D.tuning_surface(X, y, [0.3], lams, progress=False, random_state=3, **params)
+    cells, model = D.surface_column(X, y, 0.3, lams, random_state=3, **params)
+    assert model.subsample_rate == 0.3
+    want = surface.frame[["subsample_rate", "ridge_penalty", "oob_rmse", "mean_width",
+                          "n_rows"]].reset_index(drop=True)
+    np.testing.assert_array_equal(cells.to_numpy(dtype=float), want.to_numpy(dtype=float))
+
+
+def test_surface_column_checks_its_grid(fitted):
+    X, y, _ = fitted
+    with pytest.raises(ValueError, match="'subsample_rate'"):
+        D.surface_column(X, y, 1.5, [0.1])
+    with pytest.raises(ValueError, match="'ridge_penalties'"):
+        D.surface_column(X, y, 0.3, [-1.0])
