@@ -32,6 +32,11 @@ DEFAULT_FOREST = {"n_estimators": 200, "random_state": 0}
 #: Settings the tuning view can change by refitting.
 REFIT_KEYS = ("subsample_rate", "min_samples_leaf", "n_estimators")
 _CACHE = 64
+#: The tuning surface the tuning view draws: subsample rates (one refit each) and ridge
+#: penalties (no refit).
+SURFACE_RATES = (0.1, 0.2, 0.3, 0.4, 0.5)
+SURFACE_PENALTIES = (0.0, 0.001, 0.01, 0.1, 1.0, 10.0)
+SURFACE_COLUMNS = ["subsample_rate", "ridge_penalty", "oob_rmse", "mean_width", "n_rows"]
 
 
 #: Raised inside a refit's (any job's) progress report once it was cancelled.
@@ -93,6 +98,8 @@ class ExploreSession(t.HasTraits):
         self._cache = OrderedDict()
         self._refit_delay = float(refit_delay)
         self._subscribers = {}
+        self._surface = {}  # (forest settings, penalties, rate) -> that column's cells
+        self._surface_jobs = {}  # the same keys -> the job computing it
         self._runner = BackgroundRunner(self._publish, self._on_ui)
         self.refit_log = []  # (params, outcome) of every refit, oldest first
         try:
@@ -393,6 +400,77 @@ class ExploreSession(t.HasTraits):
 
         return self.submit("coverage", run, params={"reps": int(reps)}, stops_itself=True)
 
+    # -- the tuning surface, one background refit per subsample rate ----------------------
+    def _surface_settings(self):
+        """The forest settings a surface column shares with the forest in place."""
+        p = {k: v for k, v in self._model.get_params().items() if k != "subsample_rate"}
+        return p, tuple(sorted((k, repr(v)) for k, v in p.items()))
+
+    def surface_frame(self, penalties=SURFACE_PENALTIES) -> pd.DataFrame:
+        """The surface cells computed so far for the forest settings in place.
+
+        Columns of ``TuningSurface.frame`` (without coverage); the subsample rates whose
+        background refit has not finished are missing.
+        """
+        _, key = self._surface_settings()
+        lams = tuple(float(v) for v in penalties)
+        cols = [f for (k, lam_key, _), f in sorted(self._surface.items(), key=lambda kv:
+                                                    kv[0][2]) if k == key and lam_key == lams]
+        if not cols:
+            return pd.DataFrame(columns=SURFACE_COLUMNS)
+        return pd.concat(cols, ignore_index=True)
+
+    def request_surface(self, rates=SURFACE_RATES, penalties=SURFACE_PENALTIES) -> list:
+        """Grow the surface's columns in the background, one refit per subsample rate.
+
+        Each missing rate is one job of kind "surface column" (``surface_column``: the
+        same numbers ``tuning_surface`` prints), with progress per tree and cancel; the
+        jobs queue (none replaces another) and the runner takes the newest first. A refit
+        cancels them (the settings they share change). Returns the jobs submitted.
+        """
+        params, key = self._surface_settings()
+        lams = tuple(float(v) for v in penalties)
+        forest = {k: v for k, v in params.items() if k not in ("random_state", "n_jobs")}
+        X, y = self._X, self._y
+        jobs = []
+        for rate in rates:
+            rate = float(rate)
+            full = (key, lams, rate)
+            pending = self._surface_jobs.get(full)
+            if full in self._surface or (pending is not None and pending.is_alive()):
+                continue
+
+            def run(job, rate=rate):
+                total = max(int(params["n_estimators"]), 1)
+                with _quiet():
+                    cells, _ = D.surface_column(
+                        X, y, rate, lams, random_state=params["random_state"],
+                        n_jobs=params["n_jobs"], progress=lambda d: job.report(d, total),
+                        **forest)
+                return cells
+
+            def store(job, cells, full=full):
+                if cells is not None:
+                    self._surface[full] = cells
+
+            job = self.submit("surface column", run, key=full, params={"rate": rate},
+                              on_done=store, replace=False)
+            self._surface_jobs[full] = job
+            jobs.append(job)
+        return jobs
+
+    def surface_pending(self) -> int:
+        """How many surface columns are waiting or being refitted."""
+        return sum(1 for j in self._surface_jobs.values() if j.is_alive())
+
+    def load_setting(self, subsample_rate, ridge_penalty):
+        """Show ``ridge_penalty`` now and refit at ``subsample_rate`` if it differs."""
+        self.ridge_penalty = check_ridge_penalty(ridge_penalty)
+        rate = float(subsample_rate)
+        if rate != float(self._model.get_params()["subsample_rate"]):
+            return self.request_refit(subsample_rate=rate)
+        return None
+
     def ridge_curve(self, penalties):
         key = ("ridge", np.asarray(penalties, dtype=float).tobytes())
         # the curve does not depend on the current penalty: key it on generation only
@@ -537,6 +615,7 @@ class ExploreSession(t.HasTraits):
         # (one runner thread) stop and are asked for again after
         self._runner.cancel("smoothers")
         self._runner.cancel("verdict")
+        self._runner.cancel("surface column")
         return self.submit("refit", self._refit, params=params, delay=self._refit_delay,
                            on_done=self._install)
 

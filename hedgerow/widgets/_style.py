@@ -38,6 +38,8 @@ class CSS:
     ridge_slider = "hedgerow-ridge-slider"
     decision = "hedgerow-decision"
     decision_table = "hedgerow-decision-table"
+    surface = "hedgerow-surface"
+    surface_cell = "hedgerow-surface-cell"
 
 
 def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):
@@ -72,3 +74,13 @@ def swatch(name: str, label: bool = True) -> str:
 def fmt(v, digits=4) -> str:
     """Return a number for display ('-' when missing): the shared plain-number rule."""
     return format_number(v, digits)
+
+
+def sequential_colour(share) -> str:
+    """Return a light-to-dark blue for ``share`` in [0, 1] (grey when not finite)."""
+    if share is None or not np.isfinite(share):
+        return "#e6e6e6"
+    share = float(np.clip(share, 0.0, 1.0))
+    light, dark = np.array([0xf2, 0xf6, 0xfb]), np.array([0x1f, 0x3d, 0x73])
+    r, g, b = (light + share * (dark - light)).round().astype(int)
+    return f"#{r:02x}{g:02x}{b:02x}"

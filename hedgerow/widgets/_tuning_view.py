@@ -16,7 +16,15 @@ import numpy as np
 import traitlets as t
 
 from hedgerow.widgets._base import View, held, plain_figure
-from hedgerow.widgets._style import CSS, PROBE_COLOUR, VERDICT_PENDING, colour_of, fmt
+from hedgerow.widgets._session import SURFACE_PENALTIES, SURFACE_RATES
+from hedgerow.widgets._style import (
+    CSS,
+    PROBE_COLOUR,
+    VERDICT_PENDING,
+    colour_of,
+    fmt,
+    sequential_colour,
+)
 
 __all__ = ["TuningView"]
 
@@ -24,6 +32,8 @@ log = logging.getLogger("hedgerow.widgets")
 
 #: Penalties the out-of-bag curve is drawn at (log-spaced; presentation grid).
 CURVE_PENALTIES = np.logspace(-4, 2, 25)
+#: What the surface's colour can show: label -> column of the surface frame.
+SURFACE_MEASURES = {"out-of-bag RMSE": "oob_rmse", "mean interval width": "mean_width"}
 #: Smallest penalty the log slider shows; 0 is shown at this end.
 SLIDER_MIN_EXP, SLIDER_MAX_EXP = -4, 2
 
@@ -93,6 +103,8 @@ class TuningView(View):
         s.subscribe("interval width", self._on_width_job)
         s.subscribe("coverage", self._on_coverage_job)
         s.subscribe("verdict", self._on_verdict_job)
+        self._build_surface()
+        s.subscribe("surface column", self._on_surface_job)
         self.children = [
             W.HTML("<b>tuning</b> <small>the ridge penalty re-solves the local lines on the "
                    "same trees; the other settings grow a new forest</small>"),
@@ -102,6 +114,12 @@ class TuningView(View):
             self.rate_slider, self.leaf_slider, self.trees_slider,
             W.HBox([self.progress, self.cancel_button]), self.status_html,
             W.HTML("<b>verdict</b>"), self.verdict_html,
+            W.HTML("<b>tuning surface</b> <small>subsample rate (rows; one background "
+                   "refit each) &times; ridge penalty (columns; no refit). Click a cell to "
+                   "load that setting; the current one is framed</small>"),
+            W.HBox([self.surface_button, self.surface_cancel_button, self.surface_measure,
+                    self.surface_progress]),
+            self.surface_grid, self.surface_note,
             W.HTML("<b>coverage readout</b>"),
             W.HBox([self.coverage_button, self.coverage_progress,
                     self.coverage_cancel_button]), self.coverage_html,
@@ -159,6 +177,7 @@ class TuningView(View):
 
     def _on_model_changed(self, change):
         self._redraw()
+        self._draw_surface()
 
     def _redraw(self):
         with self._draw_lock, self._shown_errors("drawing the tuning view"):
@@ -216,6 +235,100 @@ class TuningView(View):
             f"</table>")
         self.verdict_html.value = (VERDICT_PENDING if verdict is None
                                    else f"<p>{html.escape(verdict.conclusion)}</p>")
+
+    # -- the tuning surface (one background refit per subsample rate) -------------------
+    def _build_surface(self):
+        self.surface_button = W.Button(description="fill the surface",
+                                       layout=W.Layout(width="160px"))
+        self.surface_button.on_click(self._on_surface_clicked)
+        self.surface_cancel_button = W.Button(description="stop filling", disabled=True,
+                                              layout=W.Layout(width="120px"))
+        self.surface_cancel_button.on_click(self._on_surface_cancel_clicked)
+        self.surface_measure = W.ToggleButtons(options=list(SURFACE_MEASURES),
+                                               style={"button_width": "150px"})
+        self.surface_measure.observe(lambda ch: self._draw_surface(), "value")
+        self.surface_progress = W.FloatProgress(value=0.0, min=0.0, max=1.0,
+                                                layout=W.Layout(width="160px"))
+        self.surface_note = W.HTML()
+        n = len(SURFACE_PENALTIES)
+        head = [W.HTML("<small>rate \\ penalty</small>")] + [
+            W.HTML(f"<b>{fmt(lam, 3)}</b>") for lam in SURFACE_PENALTIES]
+        self.surface_cells = {}
+        body = []
+        for rate in SURFACE_RATES:
+            body.append(W.HTML(f"<b>{fmt(rate, 3)}</b>"))
+            for lam in SURFACE_PENALTIES:
+                b = W.Button(description="", layout=W.Layout(width="98%", height="30px"))
+                b.add_class(CSS.surface_cell)
+                b.on_click(lambda _b, rate=rate, lam=lam: self._on_surface_cell(rate, lam))
+                self.surface_cells[(rate, lam)] = b
+                body.append(b)
+        self.surface_grid = W.GridBox(head + body, layout=W.Layout(
+            grid_template_columns=f"90px repeat({n}, 110px)", grid_gap="2px"))
+        self.surface_grid.add_class(CSS.surface)
+        self._draw_surface()
+
+    def _on_surface_clicked(self, button):
+        with self._shown_errors("filling the tuning surface"):
+            self.fill_surface()
+
+    def _on_surface_cancel_clicked(self, button):
+        with self._shown_errors("stopping the tuning surface"):
+            self._session.cancel_jobs("surface column")
+            self._draw_surface()
+
+    def fill_surface(self):
+        """Ask the session for the surface's missing columns; return the jobs."""
+        jobs = self._session.request_surface(SURFACE_RATES, SURFACE_PENALTIES)
+        self._draw_surface()
+        return jobs
+
+    def _on_surface_cell(self, rate, lam):
+        with self._shown_errors("loading a surface setting"):
+            self._session.load_setting(rate, lam)
+
+    def _on_surface_job(self, job):
+        if job.outcome == "failed":
+            self.error = f"tuning surface: {job.message}"
+        self._draw_surface(job)
+
+    def _draw_surface(self, job=None):
+        s = self._session
+        frame = s.surface_frame(SURFACE_PENALTIES)
+        column = SURFACE_MEASURES[self.surface_measure.value]
+        values = {(float(r), float(lam)): v for r, lam, v in zip(
+            frame["subsample_rate"], frame["ridge_penalty"], frame[column], strict=True)}
+        finite = [v for v in values.values() if np.isfinite(v)]
+        lo, hi = (min(finite), max(finite)) if finite else (0.0, 1.0)
+        p = s.model.get_params()
+        current_rate = float(p["subsample_rate"])
+        # the current penalty is framed in the nearest column (in log terms; 0 is its own)
+        lams = np.asarray(SURFACE_PENALTIES, dtype=float)
+        lam = float(s.ridge_penalty)
+        near = lams[np.argmin(np.abs(np.log10(np.maximum(lams, 1e-6)) -
+                                     np.log10(max(lam, 1e-6))))]
+        for (rate, cell_lam), b in self.surface_cells.items():
+            v = values.get((float(rate), float(cell_lam)))
+            share = (v - lo) / (hi - lo) if v is not None and hi > lo else (
+                0.0 if v is not None else None)
+            b.style.button_color = sequential_colour(share)
+            b.style.text_color = "#ffffff" if share is not None and share > 0.55 else "#111111"
+            b.description = "…" if v is None else fmt(v, 4)
+            b.tooltip = (f"subsample rate {fmt(rate, 3)}, ridge penalty {fmt(cell_lam, 3)}"
+                         + ("" if v is None else f": {self.surface_measure.value} {fmt(v, 4)}"))
+            current = rate == current_rate and cell_lam == near
+            b.layout.border = "3px solid #111111" if current else ""
+        alive = s.surface_pending()
+        done = len({float(r) for r in frame["subsample_rate"]})
+        running = job.progress if job is not None and job.outcome == "running" else 0.0
+        self.surface_progress.value = min((done + running) / len(SURFACE_RATES), 1.0)
+        self.surface_cancel_button.disabled = not alive
+        self.surface_note.value = (
+            f"<small>{done} of {len(SURFACE_RATES)} subsample rates filled"
+            + (" (refitting in the background)" if alive else "")
+            + f"; colour: {html.escape(self.surface_measure.value)} (darker = larger); "
+              f"the numbers of <code>tuning_surface</code> with this forest's other "
+              f"settings</small>")
 
     # -- coverage readout (a button; runs in the background) ---------------------------
     def _on_coverage_clicked(self, button):

@@ -167,6 +167,16 @@ def _wait_until(fn, timeout, what):
     raise TimeoutError(f"timed out after {timeout} s waiting for {what}")
 
 
+def _settled(page, locator, pause=0.5):
+    """True once ``locator`` is on screen and its box is the same ``pause`` s apart."""
+    if locator.count() == 0:
+        return False
+    locator.scroll_into_view_if_needed()
+    first = locator.bounding_box()
+    time.sleep(pause)
+    return bool(first) and first["width"] > 0 and locator.bounding_box() == first
+
+
 def _drag(page, handle, dx):
     handle.scroll_into_view_if_needed()
     box = handle.bounding_box()
@@ -212,8 +222,10 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         rec0 = _wait_until(lambda: _read_record(lab["record"]), 10, "the kernel record")
         page.screenshot(path=str(ARTIFACTS / "explore-before.png"))
 
-        # the probe marker is the last bqplot point of the probe figure
+        # the probe marker is the last bqplot point of the probe figure; the figure is
+        # laid out once its tab is shown: wait until the marker stops moving
         marker = page.locator(".hedgerow-probe-figure path.dot").last
+        _wait_until(lambda: _settled(page, marker), 30, "the probe figure's layout")
         released = _drag(page, marker, 160)
         _wait_until(lambda: readout.inner_text() != before, 20, "the readout to change")
         round_trip = time.perf_counter() - released

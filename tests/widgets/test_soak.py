@@ -38,7 +38,7 @@ MEMORY_GROWTH_BOUND = 50 * 2**20
 
 EVENTS = (("drag", 30), ("pin", 6), ("coordinate", 6), ("ridge", 24), ("column", 8),
           ("refit", 7), ("cancel refit", 5), ("coverage", 4), ("stop coverage", 4),
-          ("pause", 6))
+          ("surface", 2), ("surface cell", 2), ("stop surface", 1), ("pause", 6))
 
 
 def _worker_threads():
@@ -96,8 +96,11 @@ async def _settle(session, timeout=300.0):
     loop = asyncio.get_running_loop()
     end = loop.time() + timeout
     while loop.time() < end:
-        busy = [k for k in ("refit", "smoothers", "interval width", "verdict", "coverage")
+        busy = [k for k in ("refit", "smoothers", "interval width", "verdict", "coverage",
+                            "surface column")
                 if (j := session.latest_job(k)) is not None and j.is_alive()]
+        if session.surface_pending():
+            busy.append("surface columns")
         if not busy:
             await asyncio.sleep(0.05)  # deliveries queued by the last job
             return
@@ -153,8 +156,15 @@ async def _soak(seed):
                 tv._on_coverage_clicked(None)
             elif kind == "stop coverage":
                 tv._on_coverage_cancel_clicked(None)
+            elif kind == "surface":
+                tv._on_surface_clicked(None)
+            elif kind == "surface cell":
+                tv.surface_cells[rng.choice(list(tv.surface_cells))].click()
+            elif kind == "stop surface":
+                tv._on_surface_cancel_clicked(None)
             await asyncio.sleep(rng.uniform(0.005, 0.05) if kind == "pause" else 0)
         tv.cancel_coverage()
+        s.cancel_jobs("surface column")
         await _settle(s)
         gc.collect()
         grown = tracemalloc.get_traced_memory()[0] - base

@@ -447,3 +447,70 @@ def test_decision_panel_keeps_the_outside_note_in_view(app, session):
     session.probe_x = x
     assert view.panel.outside_note.startswith("outside the data")
     assert "hedgerow-outside" in view.decision_html.value
+
+
+def test_tuning_surface_fills_with_the_functions_numbers_and_loads_a_cell(data):
+    from hedgerow.widgets._session import SURFACE_PENALTIES, SURFACE_RATES
+
+    X, y = data
+    app = explore(X, y, n_estimators=40, refit_delay=0.01, compare=False)
+    try:
+        s, view = app.session, app.tuning_view
+        assert all(b.description == "…" for b in view.surface_cells.values())
+        jobs = view.fill_surface()
+        assert len(jobs) == len(SURFACE_RATES)
+        assert view.fill_surface() == []  # nothing asked twice while pending
+        for job in jobs:
+            assert job.join(300) and job.outcome == "done", job.message
+        frame = s.surface_frame()
+        p = s.model.get_params()
+        forest = {k: v for k, v in p.items()
+                  if k not in ("subsample_rate", "random_state", "n_jobs")}
+        direct = D.tuning_surface(X, y, list(SURFACE_RATES), list(SURFACE_PENALTIES),
+                                  progress=False, random_state=p["random_state"],
+                                  n_jobs=p["n_jobs"], **forest)
+        cols = ["subsample_rate", "ridge_penalty", "oob_rmse", "mean_width", "n_rows"]
+        got = frame.sort_values(cols[:2]).reset_index(drop=True)[cols].to_numpy(float)
+        want = direct.frame.sort_values(cols[:2]).reset_index(drop=True)[cols].to_numpy(float)
+        np.testing.assert_array_equal(got, want)
+        # the cells show those numbers, coloured by value; the switch shows the width
+        cell = view.surface_cells[(SURFACE_RATES[0], SURFACE_PENALTIES[2])]
+        row = direct.frame[(direct.frame["subsample_rate"] == SURFACE_RATES[0])
+                           & (direct.frame["ridge_penalty"] == SURFACE_PENALTIES[2])].iloc[0]
+        from hedgerow.widgets._style import fmt
+        assert cell.description == fmt(row["oob_rmse"], 4)
+        assert len({b.style.button_color for b in view.surface_cells.values()}) > 3
+        view.surface_measure.value = "mean interval width"
+        assert cell.description == fmt(row["mean_width"], 4)
+        assert "5 of 5" in view.surface_note.value
+        # the current setting is framed; clicking a cell loads its setting
+        framed = [k for k, b in view.surface_cells.items() if b.layout.border]
+        assert len(framed) == 1 and framed[0][0] == p["subsample_rate"]
+        target = (SURFACE_RATES[1], SURFACE_PENALTIES[4])
+        view.surface_cells[target].click()
+        assert s.ridge_penalty == target[1]
+        assert s.wait_for_refit(300) == "done"
+        assert s.model.get_params()["subsample_rate"] == target[0]
+        framed = [k for k, b in view.surface_cells.items() if b.layout.border]
+        assert framed == [target]
+        # the refit kept the other settings: the filled surface still applies
+        assert len(s.surface_frame()) == len(frame)
+    finally:
+        app.close()
+
+
+def test_tuning_surface_stops_when_asked(data):
+    X, y = data
+    app = explore(X, y, n_estimators=200, refit_delay=0.01, compare=False)
+    try:
+        s, view = app.session, app.tuning_view
+        jobs = view.fill_surface()
+        assert not view.surface_cancel_button.disabled
+        view.surface_cancel_button.click()
+        for job in jobs:
+            assert job.join(120)
+        assert any(j.outcome == "cancelled" for j in jobs)
+        assert s.surface_pending() == 0 and view.surface_cancel_button.disabled
+        assert len(s.surface_frame()) < len(jobs) * 6
+    finally:
+        app.close()
