@@ -8,6 +8,7 @@ import logging
 
 import bqplot as bq
 import ipywidgets as W
+import numpy as np
 import traitlets as t
 
 from hedgerow.widgets._style import CSS
@@ -29,12 +30,33 @@ def held(*marks):
         yield
 
 
+def powers_of_ten(low, high) -> np.ndarray:
+    """Whole powers of ten from the one at or below ``low`` to the one at or above ``high``.
+
+    The ticks of a log axis: labelled plainly ("0.001", "1", "100"), they never run
+    together as every 2 and 5 between them would.
+    """
+    lo, hi = np.floor(np.log10(low)), np.ceil(np.log10(max(high, low)))
+    return 10.0 ** np.arange(lo, hi + 1)
+
+
+#: d3 format of log-axis tick labels: plain digits, no trailing zeros ("0.01", "100").
+LOG_TICK_FORMAT = "~g"
+
+
 def plain_figure(marks, x_scale, y_scale, x_label, y_label, *, y_format=".3g",
-                 width="520px", height="240px", margin=None):
-    """Return a bqplot figure of ``marks`` with a labelled x axis and vertical y axis."""
+                 width="520px", height="240px", margin=None, x_ticks=None):
+    """Return a bqplot figure of ``marks`` with a labelled x axis and vertical y axis.
+
+    ``x_ticks``: tick values of the x axis (for a log axis, ``powers_of_ten``), labelled
+    with ``LOG_TICK_FORMAT``.
+    """
+    x_axis = (bq.Axis(scale=x_scale, label=x_label) if x_ticks is None else
+              bq.Axis(scale=x_scale, label=x_label, tick_values=np.asarray(x_ticks, float),
+                      tick_format=LOG_TICK_FORMAT))
     return bq.Figure(
         marks=list(marks), animation_duration=0,
-        axes=[bq.Axis(scale=x_scale, label=x_label),
+        axes=[x_axis,
               bq.Axis(scale=y_scale, orientation="vertical", label=y_label,
                       tick_format=y_format)],
         fig_margin=dict(margin or FIGURE_MARGIN), layout=W.Layout(width=width, height=height))

@@ -461,7 +461,8 @@ class ExploreSession(t.HasTraits):
 
     def surface_pending(self) -> int:
         """How many surface columns are waiting or being refitted."""
-        return sum(1 for j in self._surface_jobs.values() if j.is_alive())
+        return sum(1 for j in self._surface_jobs.values()
+                   if j.is_alive() and j.outcome not in ENDED)
 
     def load_setting(self, subsample_rate, ridge_penalty):
         """Show ``ridge_penalty`` now and refit at ``subsample_rate`` if it differs."""

@@ -36,6 +36,7 @@ class CSS:
     verdict_conclusion = "hedgerow-verdict-conclusion"
     coverage_result = "hedgerow-coverage-result"
     ridge_slider = "hedgerow-ridge-slider"
+    ridge_value = "hedgerow-ridge-value"
     decision = "hedgerow-decision"
     decision_table = "hedgerow-decision-table"
     surface = "hedgerow-surface"

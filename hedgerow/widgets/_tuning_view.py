@@ -15,7 +15,7 @@ import ipywidgets as W
 import numpy as np
 import traitlets as t
 
-from hedgerow.widgets._base import View, held, plain_figure
+from hedgerow.widgets._base import View, held, plain_figure, powers_of_ten
 from hedgerow.widgets._session import SURFACE_PENALTIES, SURFACE_RATES
 from hedgerow.widgets._style import (
     CSS,
@@ -32,6 +32,10 @@ log = logging.getLogger("hedgerow.widgets")
 
 #: Penalties the out-of-bag curve is drawn at (log-spaced; presentation grid).
 CURVE_PENALTIES = np.logspace(-4, 2, 25)
+#: Width of the forest sliders: room for a fine drag (their readout takes typed values).
+FOREST_SLIDER_WIDTH = "560px"
+#: What the refit status line says when the session gives no message.
+REFIT_STATES = {"idle": "no refit running; the views show the forest in place"}
 #: What the surface's colour can show: label -> column of the surface frame.
 SURFACE_MEASURES = {"out-of-bag RMSE": "oob_rmse", "mean interval width": "mean_width"}
 #: Smallest penalty the log slider shows; 0 is shown at this end.
@@ -52,8 +56,15 @@ class TuningView(View):
         self.ridge_slider = W.FloatLogSlider(
             value=self._slider_value(s.ridge_penalty), base=10, min=SLIDER_MIN_EXP,
             max=SLIDER_MAX_EXP, step=0.1, description="ridge penalty",
-            continuous_update=False, readout_format=".2g", style={"description_width": "120px"},
+            continuous_update=False, readout=False, style={"description_width": "120px"},
             layout=W.Layout(width="480px"))
+        # the log slider cannot show 0: the value shown is the session's, and a button
+        # sets the penalty to 0 (the slider then rests at its left end)
+        self.ridge_value = W.HTML(layout=W.Layout(width="70px"))
+        self.ridge_value.add_class(CSS.ridge_value)
+        self._zero_button = W.Button(description="no penalty (0)",
+                                     layout=W.Layout(width="130px"))
+        self._zero_button.on_click(self._on_zero_clicked)
         self.ridge_slider.add_class(CSS.ridge_slider)
         self.ridge_slider.observe(self._on_ridge_slid, "value")
         self._oob_choice = W.Button(description="back to the out-of-bag choice",
@@ -66,13 +77,14 @@ class TuningView(View):
         style = {"description_width": "120px"}
         self.rate_slider = W.FloatSlider(value=float(p["subsample_rate"]), min=0.05, max=0.5,
                                          step=0.05, description="subsample rate",
-                                         continuous_update=False, style=style)
+                                         continuous_update=False, style=style,
+                                         layout=W.Layout(width=FOREST_SLIDER_WIDTH))
         self.leaf_slider = W.IntSlider(value=int(p["min_samples_leaf"]), min=1, max=50,
                                        description="min leaf", continuous_update=False,
-                                       style=style)
+                                       style=style, layout=W.Layout(width=FOREST_SLIDER_WIDTH))
         self.trees_slider = W.IntSlider(value=int(p["n_estimators"]), min=50, max=4000,
                                         step=50, description="trees", continuous_update=False,
-                                        style=style)
+                                        style=style, layout=W.Layout(width=FOREST_SLIDER_WIDTH))
         for key, w in (("subsample_rate", self.rate_slider),
                        ("min_samples_leaf", self.leaf_slider),
                        ("n_estimators", self.trees_slider)):
@@ -108,7 +120,8 @@ class TuningView(View):
         self.children = [
             W.HTML("<b>tuning</b> <small>the ridge penalty re-solves the local lines on the "
                    "same trees; the other settings grow a new forest</small>"),
-            self._error_area, W.HBox([self.ridge_slider, self._oob_choice]), self.readout_html,
+            self._error_area, W.HBox([self.ridge_slider, self.ridge_value, self._zero_button,
+                                      self._oob_choice]), self.readout_html,
             self.curve, W.HTML("<b>forest settings</b> <small>(refit in the background)"
                                "</small>"),
             self.rate_slider, self.leaf_slider, self.trees_slider,
@@ -143,7 +156,9 @@ class TuningView(View):
         self.current_mark = bq.Scatter(x=np.ones(1), y=np.zeros(1), scales=sc,
                                        colors=[PROBE_COLOUR], default_size=80)
         self.curve = plain_figure([self.curve_mark, self.current_mark], xs, ys,
-                                  "ridge penalty", "out-of-bag RMSE")
+                                  "ridge penalty", "out-of-bag RMSE",
+                                  x_ticks=powers_of_ten(CURVE_PENALTIES[0],
+                                                        CURVE_PENALTIES[-1]))
 
     # -- handlers ----------------------------------------------------------------------
     def _on_ridge_slid(self, change):
@@ -151,11 +166,19 @@ class TuningView(View):
             if not np.isclose(change["new"], self._slider_value(self._session.ridge_penalty)):
                 self._session.ridge_penalty = float(change["new"])
 
+    def _on_zero_clicked(self, button):
+        with self._shown_errors("setting the ridge penalty to 0"):
+            self._session.ridge_penalty = 0.0
+
     def _on_oob_choice_clicked(self, button):
         with self._shown_errors("restoring the out-of-bag penalty"):
             self._session.ridge_penalty = float(self._session.model.ridge_penalty_)
 
+    _syncing_settings = False
+
     def _on_setting_changed(self, key, value):
+        if self._syncing_settings:
+            return
         with self._shown_errors(f"requesting a refit ({key})"):
             self._session.request_refit(**{key: value})
 
@@ -166,18 +189,38 @@ class TuningView(View):
     def _on_refit_state(self, change=None):
         s = self._session
         running = s.refit_status in ("waiting", "running")
-        self.progress.value = float(s.refit_progress)
+        if s.refit_status in ("cancelled", "failed"):
+            # the forest in place did not change: the sliders and the bar say so again
+            self._show_forest_settings()
+            self.progress.value = 0.0
+        else:
+            self.progress.value = float(s.refit_progress)
         self.progress.bar_style = {"failed": "danger", "cancelled": "warning"}.get(
             s.refit_status, "info" if running else "success")
         self.cancel_button.disabled = not running
-        self.status_html.value = (f"<small>{html.escape(s.refit_status)}: "
-                                  f"{html.escape(s.refit_message)}</small>")
+        message = s.refit_message or REFIT_STATES.get(s.refit_status, "")
+        self.status_html.value = (f"<small>{html.escape(s.refit_status)}"
+                                  + (f": {html.escape(message)}" if message else "")
+                                  + "</small>")
         if s.refit_status == "failed":
             self.error = s.refit_message
 
     def _on_model_changed(self, change):
         self._redraw()
         self._draw_surface()
+        if self._session.refit_status not in ("waiting", "running"):
+            self._show_forest_settings()
+
+    def _show_forest_settings(self):
+        """Put the forest sliders at the settings of the forest in place (no refit)."""
+        p = self._session.model.get_params()
+        self._syncing_settings = True
+        try:
+            self.rate_slider.value = float(p["subsample_rate"])
+            self.leaf_slider.value = int(p["min_samples_leaf"])
+            self.trees_slider.value = int(p["n_estimators"])
+        finally:
+            self._syncing_settings = False
 
     def _redraw(self):
         with self._draw_lock, self._shown_errors("drawing the tuning view"):
@@ -220,6 +263,7 @@ class TuningView(View):
             width = fmt(summary["mean_width"])
         else:
             width = "none (no little bags)"
+        self.ridge_value.value = f"<b>{fmt(s.ridge_penalty, 3)}</b>"
         value = self._slider_value(s.ridge_penalty)
         if not np.isclose(self.ridge_slider.value, value):
             self.ridge_slider.value = value
@@ -245,7 +289,7 @@ class TuningView(View):
                                               layout=W.Layout(width="120px"))
         self.surface_cancel_button.on_click(self._on_surface_cancel_clicked)
         self.surface_measure = W.ToggleButtons(options=list(SURFACE_MEASURES),
-                                               style={"button_width": "150px"})
+                                               style={"button_width": "170px"})
         self.surface_measure.observe(lambda ch: self._draw_surface(), "value")
         self.surface_progress = W.FloatProgress(value=0.0, min=0.0, max=1.0,
                                                 layout=W.Layout(width="160px"))

@@ -6,7 +6,7 @@ import bqplot as bq
 import ipywidgets as W
 import numpy as np
 
-from hedgerow.widgets._base import View, held, plain_figure
+from hedgerow.widgets._base import View, held, plain_figure, powers_of_ten
 from hedgerow.widgets._style import colour_of, dash_of, swatch
 
 __all__ = ["WeightsView"]
@@ -42,7 +42,8 @@ class WeightsView(View):
             "weight", y_format=".2g", **side)
         self.rank_figure = plain_figure(
             self.cumulative_marks.values(), rx, ry, "rank (1 = heaviest row)",
-            "cumulative weight", y_format=".0%", **side)
+            "cumulative weight", y_format=".0%",
+            x_ticks=powers_of_ten(1, max(len(session.X_train), 10)), **side)
         legend = " &nbsp; ".join(
             swatch(n) + (" <small>(both forests)</small>" if n == "local linear forest" else "")
             for n in self._methods)

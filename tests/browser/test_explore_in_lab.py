@@ -257,6 +257,21 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         llf = rec2["readout"]["local linear forest"]["prediction"]
         _wait_until(lambda: f"{llf:.4g}" in readout.inner_text(), 10,
                     "the probe readout at the new penalty")
+        page.locator(".lm-TabBar-tabLabel", has_text="tuning").first.click()
+        # the tuning surface: fill it (one background refit per subsample rate), then
+        # click a cell of another rate: the forest is refitted at that rate
+        page.locator(".hedgerow-explorer button", has_text="fill the surface").first.click()
+        note = page.locator(".hedgerow-explorer .hedgerow-surface").first
+        _wait_until(lambda: "…" not in note.inner_text(), 240, "the filled surface")
+        page.locator(".hedgerow-surface").first.scroll_into_view_if_needed()
+        page.screenshot(path=str(ARTIFACTS / "explore-tuning-surface.png"))
+        cells = page.locator(".hedgerow-surface .hedgerow-surface-cell")
+        assert cells.count() == 30
+        cells.nth(6 + 3).click()  # second row (rate 0.2), fourth column (penalty 0.1)
+        settings = page.locator(".hedgerow-explorer .hedgerow-settings:visible").first
+        _wait_until(lambda: "subsample rate 0.20" in settings.inner_text()
+                    and "ridge penalty 0.1" in settings.inner_text(), 120,
+                    "the clicked setting in the settings line")
         (ARTIFACTS / "timings.json").write_text(json.dumps(
             {"probe_drag_round_trip_s": round_trip}))
         print(f"probe drag: mouse-up to readout change {1000 * round_trip:.0f} ms")

@@ -514,3 +514,39 @@ def test_tuning_surface_stops_when_asked(data):
         assert len(s.surface_frame()) < len(jobs) * 6
     finally:
         app.close()
+
+
+def test_tuning_controls_are_legible(data):
+    from hedgerow.widgets._base import LOG_TICK_FORMAT
+
+    X, y = data
+    app = explore(X, y, n_estimators=40, refit_delay=0.01, compare=False)
+    try:
+        s, view = app.session, app.tuning_view
+        # log axes tick at whole powers of ten with plain labels
+        for axis in (view.curve.axes[0], app.weights_view.rank_figure.axes[0]):
+            ticks = np.asarray(axis.tick_values)
+            assert ticks.size >= 2 and np.allclose(np.log10(ticks), np.round(np.log10(ticks)))
+            assert axis.tick_format == LOG_TICK_FORMAT
+        # the status line never ends in a bare colon
+        assert not view.status_html.value.replace("</small>", "").rstrip().endswith(":")
+        # the penalty can be set to 0 and is shown as 0
+        view._zero_button.click()
+        assert s.ridge_penalty == 0.0
+        assert "<b>0</b>" in view.ridge_value.value
+        assert ">0<" in view.readout_html.value.replace(" ", "")
+        # the forest sliders have room and take typed values
+        for w in (view.rate_slider, view.leaf_slider, view.trees_slider):
+            assert int(w.layout.width.rstrip("px")) >= 400 and w.readout
+        # a cancelled refit puts the sliders back at the forest in place, bar empty
+        p = s.model.get_params()
+        s._refit_delay = 5.0
+        view.leaf_slider.value = 28
+        assert s.refit_status == "waiting"
+        view.cancel_button.click()
+        assert s.wait_for_refit(30) == "cancelled"
+        assert view.leaf_slider.value == p["min_samples_leaf"]
+        assert view.progress.value == 0.0
+        assert s.model.get_params()["min_samples_leaf"] == p["min_samples_leaf"]
+    finally:
+        app.close()
