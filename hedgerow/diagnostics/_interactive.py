@@ -89,12 +89,37 @@ def slice_grid(model, feature, size: int = 80) -> np.ndarray:
     return np.linspace(float(col.min()), float(col.max()), int(size))
 
 
-def local_line(report, feature, span, *, method="local linear forest"):
+def neighbourhood_span(report, X_train, feature, share=0.8):
+    """Return ``(low, high)``: where the probe's neighbours lie along ``feature``.
+
+    The weighted ``(1 - share) / 2`` and ``(1 + share) / 2`` quantiles of the column over
+    the training rows, weighted by the probe's forest weights (``report.weights``): the
+    stretch the local line is fitted on. The probe's own value is always inside.
+    """
+    names = list(report.feature_names)
+    j = names.index(feature) if isinstance(feature, str) else int(feature)
+    w = np.asarray(report.weights.toarray()).ravel()
+    col = np.asarray(X_train, dtype=np.float64)[:, j]
+    x0 = float(report.x[j])
+    keep = w > 0
+    if not keep.any():
+        return x0, x0
+    order = np.argsort(col[keep], kind="stable")
+    c, cw = col[keep][order], np.cumsum(w[keep][order])
+    cw = cw / cw[-1]
+    lo = float(c[min(np.searchsorted(cw, (1 - share) / 2), c.size - 1)])
+    hi = float(c[min(np.searchsorted(cw, (1 + share) / 2), c.size - 1)])
+    return min(lo, x0), max(hi, x0)
+
+
+def local_line(report, feature, span, *, method="local linear forest", within=None):
     """Return ``(xs, ys)``: the two ends of the local line of ``method`` along ``feature``.
 
     The segment passes through the method's prediction at the probe with its local slope
-    in that column, ``span`` (column units) to either side. A column outside the local
-    line's columns, or a method without slopes, has slope 0 there.
+    in that column, ``span`` (column units) to either side, or over ``within`` =
+    ``(low, high)`` when given (for example ``neighbourhood_span``: the line is drawn where
+    it was fitted, not past the data). A column outside the local line's columns, or a
+    method without slopes, has slope 0 there.
     """
     names = list(report.feature_names)
     j = names.index(feature) if isinstance(feature, str) else int(feature)
@@ -104,8 +129,12 @@ def local_line(report, feature, span, *, method="local linear forest"):
     if not np.isfinite(slope):
         slope = 0.0
     x0 = float(report.x[j])
-    span = max(float(span), 1e-12)
-    xs = np.array([x0 - span, x0 + span])
+    if within is not None:
+        lo, hi = (float(v) for v in within)
+        xs = np.array([min(lo, x0), max(hi, x0)])
+    else:
+        span = max(float(span), 1e-12)
+        xs = np.array([x0 - span, x0 + span])
     ys = m.prediction + slope * (xs - x0)
     return xs, ys
 

@@ -24,8 +24,11 @@ from hedgerow.widgets._style import (
 
 __all__ = ["ProbeView"]
 
-#: Half-length of the drawn local line, as a share of the column's range (presentation).
-LINE_SHARE = 0.08
+#: Table cells of the readout: room between columns so headers never run together.
+CELL = "padding:2px 18px 2px 0"
+
+#: Significant digits the coordinate boxes show (the probe keeps full precision).
+COORD_DIGITS = 4
 
 
 class ProbeView(View):
@@ -138,13 +141,17 @@ class ProbeView(View):
         self._toggles.children = boxes
         self._readout_html = W.HTML(layout=W.Layout(margin="0 0 0 24px"))
         self._readout_html.add_class(CSS.probe_readout)
-        self._coord_boxes = [W.FloatText(description=n, layout=W.Layout(width="210px"),
-                                         style={"description_width": "110px"})
+        # text boxes: the probe keeps full precision, the boxes show COORD_DIGITS
+        # significant digits; a typed number is taken as typed
+        self._coord_boxes = [W.Text(description=n, description_allow_html=False,
+                                    continuous_update=False, tooltip=n,
+                                    layout=W.Layout(width="300px"),
+                                    style={"description_width": "170px"})
                              for n in self._names]
         for j, box in enumerate(self._coord_boxes):
             box.observe(lambda ch, j=j: self._on_coordinate_edited(j, ch["new"]), "value")
         self._panel = W.GridBox(self._coord_boxes, layout=W.Layout(
-            grid_template_columns="repeat(3, 220px)"))
+            grid_template_columns="repeat(3, 310px)"))
 
     # -- front-end and trait handlers --------------------------------------------------
     def _on_probe_moved(self, mark, event):
@@ -163,9 +170,25 @@ class ProbeView(View):
             self._pin(-1)
 
     def _on_coordinate_edited(self, j, value):
-        if self._syncing or not np.isfinite(value) or value == self.probe_x[j]:
+        if self._syncing:
             return
         with self._shown_errors(f"editing {self._names[j]}"):
+            try:
+                value = float(str(value).replace(",", "").strip())
+            except ValueError:
+                raise ValueError(f"The coordinate '{self._names[j]}' needs a number. Got "
+                                 f"{value!r}.") from None
+            if not np.isfinite(value):
+                raise ValueError(f"The coordinate '{self._names[j]}' needs a finite number. "
+                                 f"Got {value!r}.")
+            if value == self.probe_x[j] or value == float(fmt(self.probe_x[j],
+                                                               COORD_DIGITS).replace(",", "")):
+                self._syncing = True
+                try:  # the shown rounding of the current value: nothing moved
+                    self._coord_boxes[j].value = fmt(self.probe_x[j], COORD_DIGITS)
+                finally:
+                    self._syncing = False
+                return
             x = list(self.probe_x)
             x[j] = float(value)
             self.probe_x = x
@@ -213,12 +236,16 @@ class ProbeView(View):
             self._draw(self._session.scene(self.probe_x, self.feature))
 
     def _draw(self, scene):
-        from hedgerow.diagnostics import local_line
+        from hedgerow.diagnostics import local_line, neighbourhood_span
 
         s, j, rep = self._session, scene.feature_index, scene.report
         size, opacity = marker_scaling(rep.weights.toarray().ravel()[self._rows])
-        span = LINE_SHARE * float(scene.grid[-1] - scene.grid[0])
-        lx, ly = local_line(rep, j, span)
+        # the local line where its neighbours are; the x range stays on the data
+        lx, ly = local_line(rep, j, None, within=neighbourhood_span(rep, s.X_train, j))
+        col = s.X_train[:, j]
+        pad = 0.02 * (float(col.max() - col.min()) or 1.0)
+        lo, hi = min(float(col.min()), float(rep.x[j])), max(float(col.max()), float(rep.x[j]))
+        self._xs.min, self._xs.max = lo - pad, hi + pad
         band = scene.slices.method("local linear forest")
         with held(self.rows_mark, self.band_mark, self.line_mark, self.point_mark,
                   self.probe_mark, *self.slice_marks.values()):
@@ -240,7 +267,7 @@ class ProbeView(View):
         self._syncing = True
         try:
             for box, v in zip(self._coord_boxes, rep.x, strict=True):
-                box.value = float(v)
+                box.value = fmt(float(v), COORD_DIGITS)
         finally:
             self._syncing = False
         self._write_readout(scene.readout, rep)
@@ -250,8 +277,9 @@ class ProbeView(View):
                                "half_width": float(r["half_width"]), "ess": float(r["ess"])}
                         for name, r in frame.iterrows()}
         rows = "".join(
-            f"<tr><td>{swatch(name)}</td><td class='hedgerow-value'>{fmt(r['prediction'])} "
-            f"&plusmn; {fmt(r['half_width'], 3)}</td><td>{fmt(r['ess'], 3)}</td></tr>"
+            f"<tr><td style='{CELL}'>{swatch(name)}</td><td class='hedgerow-value' "
+            f"style='{CELL}'>{fmt(r['prediction'])} &plusmn; {fmt(r['half_width'], 3)}</td>"
+            f"<td style='{CELL}'>{fmt(r['ess'], 3)}</td></tr>"
             for name, r in frame.iterrows())
         where = ", ".join(f"{n}={fmt(v, 3)}" for n, v in zip(self._names, rep.x, strict=True))
         notes = "".join(f"<br><small class='hedgerow-column-use'>{html.escape(n)}</small>"
@@ -261,6 +289,7 @@ class ProbeView(View):
                       f"</strong>")
         self._readout_html.value = (
             f"<div><small>probe at {html.escape(where)}</small>"
-            f"<table style='border-collapse:collapse'><tr><th align='left'>method</th>"
-            f"<th align='left'>prediction &plusmn; {100 * rep.level:.0f}% half-width</th>"
-            f"<th align='left'>effective n</th></tr>{rows}</table>{notes}</div>")
+            f"<table style='border-collapse:collapse'><tr><th align='left' style='{CELL}'>"
+            f"method</th><th align='left' style='{CELL}'>prediction &plusmn; "
+            f"{100 * rep.level:.0f}% half-width</th><th align='left' style='{CELL}'>"
+            f"effective n</th></tr>{rows}</table>{notes}</div>")

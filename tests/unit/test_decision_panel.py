@@ -114,3 +114,20 @@ def test_surface_column_checks_its_grid(fitted):
         D.surface_column(X, y, 1.5, [0.1])
     with pytest.raises(ValueError, match="'ridge_penalties'"):
         D.surface_column(X, y, 0.3, [-1.0])
+
+
+def test_neighbourhood_span_is_the_weighted_middle_of_the_neighbours(fitted):
+    X, _, model = fitted
+    x = np.median(X, axis=0)
+    rep = D.probe(model, x)
+    w = rep.weights.toarray().ravel()
+    for j in range(3):
+        lo, hi = D.neighbourhood_span(rep, X, j)
+        col = X[:, j]
+        inside = (col >= lo) & (col <= hi)
+        # at least the middle 80% of the weight lies in the span, and the probe too
+        assert w[inside].sum() / w.sum() >= 0.8 - 1e-12
+        assert lo <= x[j] <= hi
+        assert col[w > 0].min() <= lo and hi <= col[w > 0].max()
+        xs, _ = D.local_line(rep, j, None, within=(lo, hi))
+        assert (xs[0], xs[-1]) == (lo, hi)

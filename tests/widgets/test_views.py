@@ -119,7 +119,7 @@ def test_coordinate_panel_edits_the_probe(app, session):
     view = app.probe_view
     k = next(i for i, n in enumerate(session.feature_names) if n != view.feature)
     new = float(session.X_train[:, k].min())
-    view._coord_boxes[k].value = new
+    view._coord_boxes[k].value = repr(new)  # typed text, taken at full precision
     assert view.probe_x[k] == pytest.approx(new)
     assert view.readout["local linear forest"]["prediction"] == pytest.approx(
         direct_probe(session, view.probe_x).method("local linear forest").prediction)
@@ -381,10 +381,10 @@ def test_coordinate_typed_outside_the_data_is_flagged(app, session):
     k = next(i for i, n in enumerate(session.feature_names) if n != view.feature)
     col = session.X_train[:, k]
     inside = float(np.median(col))
-    view._coord_boxes[k].value = inside
+    view._coord_boxes[k].value = repr(inside)
     assert "outside the data" not in view._readout_html.value
     beyond = float(col.max() + (col.max() - col.min()))
-    view._coord_boxes[k].value = beyond
+    view._coord_boxes[k].value = repr(beyond)
     assert view.probe_x[k] == pytest.approx(beyond)  # typed values are taken, not clamped
     page = view._readout_html.value
     assert "outside the data: extrapolating" in page
@@ -550,3 +550,42 @@ def test_tuning_controls_are_legible(data):
         assert s.model.get_params()["min_samples_leaf"] == p["min_samples_leaf"]
     finally:
         app.close()
+
+
+def test_coordinate_boxes_show_four_digits_and_keep_full_precision(app, session):
+    from hedgerow.widgets._style import fmt
+
+    view = app.probe_view
+    k = next(i for i, n in enumerate(session.feature_names) if n != view.feature)
+    col = session.X_train[:, k]
+    typed = float(np.median(col)) + 0.123456789
+    view._coord_boxes[k].value = repr(typed)
+    assert view.probe_x[k] == typed  # full precision inside
+    assert view._coord_boxes[k].value == fmt(typed, 4)  # about 4 significant digits shown
+    assert len(view._coord_boxes[k].value.replace(".", "").replace("-", "")) <= 6
+    # re-submitting the shown rounding does not move the probe
+    view._coord_boxes[k].value = fmt(typed, 4) + " "
+    assert view.probe_x[k] == typed
+    # text that is not a number is refused, naming the coordinate; the probe stays
+    view._coord_boxes[k].value = "about ten"
+    assert session.feature_names[k] in view.error and "needs a number" in view.error
+    assert view.probe_x[k] == typed
+    view.error = ""
+    assert all(int(b.layout.width.rstrip("px")) >= 300 for b in view._coord_boxes)
+
+
+def test_probe_x_range_stays_on_the_data_and_the_line_on_the_neighbourhood(app, session):
+    view = app.probe_view
+    j = session.feature_names.index(view.feature)
+    col = session.X_train[:, j]
+    ranges = []
+    for q in (0.0, 0.5, 1.0):
+        drag(view, float(np.quantile(col, q)))
+        ranges.append((view._xs.min, view._xs.max))
+        lx = np.asarray(view.line_mark.x)
+        lo, hi = D.neighbourhood_span(session.probe_report(), session.X_train, j)
+        assert lx[0] == pytest.approx(lo) and lx[-1] == pytest.approx(hi)
+        assert col.min() <= lx[0] <= view.probe_x[j] <= lx[-1] <= col.max()
+    assert ranges[0] == ranges[1] == ranges[2]  # no jump when dragged to either end
+    assert ranges[0][0] < col.min() < col.max() < ranges[0][1]
+    assert ranges[0][1] - ranges[0][0] < 1.1 * (col.max() - col.min())
