@@ -198,24 +198,47 @@ def ridge_curve(model, ridge_penalties) -> pd.DataFrame:
                          "oob_rmse": np.sqrt(model.ridge_path(lams))})
 
 
-def weight_profile(report, X, method) -> pd.DataFrame:
+def weight_profile(report, X, method, columns="line") -> pd.DataFrame:
     """Return the rows ``method`` weights at the probe, heaviest first.
 
     Columns: row, weight, distance (Euclidean, in training standard deviations, from the
     probe), rank (1 = heaviest) and cumulative (share of the weight held by the rows up
     to this rank). Shows how far the neighbourhood reaches and how concentrated it is.
+
+    ``columns``: the columns the distance is measured in. "line" (default): the local
+    line's columns (``report.slope_columns``; every column when it has none), since on
+    wide data every row sits several standard deviations away in all columns and the
+    distance shows little; "all"; or a list of column indices. The frame's
+    ``attrs["distance_columns"]`` names them.
     """
     X = np.asarray(X, dtype=np.float64)
+    names = list(report.feature_names)
+    if isinstance(columns, str) and columns == "line":
+        cols = [int(c) for c in np.asarray(report.slope_columns)] or list(range(X.shape[1]))
+    elif isinstance(columns, str) and columns == "all":
+        cols = list(range(X.shape[1]))
+    else:
+        try:
+            cols = [int(c) for c in columns]
+        except (TypeError, ValueError):
+            raise ValueError(f"The 'columns' parameter must be 'line', 'all' or a list of "
+                             f"column indices. Got {columns!r} instead.") from None
+        bad = [c for c in cols if not 0 <= c < X.shape[1]]
+        if not cols or bad:
+            raise ValueError(f"The 'columns' parameter must list column indices in "
+                             f"[0, {X.shape[1] - 1}]. Got {columns!r} instead.")
     w = report.method(method).weights.tocsr()
     idx, vals = w.indices, w.data
     keep = vals > 0
     idx, vals = idx[keep], vals[keep]
     order = np.argsort(-vals, kind="stable")
     idx, vals = idx[order], vals[order]
-    sd = X.std(axis=0)
+    sd = X[:, cols].std(axis=0)
     sd = np.where(sd > 0, sd, 1.0)
-    dist = np.sqrt((((X[idx] - report.x) / sd) ** 2).sum(axis=1))
+    dist = np.sqrt((((X[idx][:, cols] - np.asarray(report.x)[cols]) / sd) ** 2).sum(axis=1))
     total = vals.sum()
     cum = np.cumsum(vals) / total if total > 0 else np.zeros_like(vals)
-    return pd.DataFrame({"row": idx, "weight": vals, "distance": dist,
-                         "rank": np.arange(1, idx.size + 1), "cumulative": cum})
+    out = pd.DataFrame({"row": idx, "weight": vals, "distance": dist,
+                        "rank": np.arange(1, idx.size + 1), "cumulative": cum})
+    out.attrs["distance_columns"] = [names[c] for c in cols]
+    return out

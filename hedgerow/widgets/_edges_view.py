@@ -19,6 +19,9 @@ from hedgerow.widgets._style import (
 
 __all__ = ["EdgesView"]
 
+#: Opacity of the per-row residual dots (context behind the band means).
+ROW_FADE = 0.12
+
 
 class EdgesView(View):
     """Residuals (y minus held-out prediction) by edge depth, per method.
@@ -44,13 +47,17 @@ class EdgesView(View):
         self.dot_marks, self.mean_marks, self.whisker_marks = {}, {}, {}
         for name in names:
             c = colour_of(name)
+            # the rows are context (faint, small); the band means and their whiskers are
+            # the figure's subject
             self.dot_marks[name] = bq.Scatter(x=np.zeros(1), y=np.zeros(1), scales=sc,
-                                              colors=[c], default_size=10, opacities=[0.35])
+                                              colors=[c], default_size=7,
+                                              opacities=[ROW_FADE])
             self.mean_marks[name] = bq.Scatter(x=np.zeros(1), y=np.zeros(1), scales=sc,
-                                               colors=[c], marker="diamond", default_size=90,
-                                               stroke="white", labels=[name])
+                                               colors=[c], marker="diamond",
+                                               default_size=160, stroke="#111111",
+                                               stroke_width=1.0, labels=[name])
             self.whisker_marks[name] = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)),
-                                                scales=sc, colors=[c], stroke_width=2.5)
+                                                scales=sc, colors=[c], stroke_width=3.5)
         self._order = names
         self._offset = 0.006  # spreads the methods' band means apart (presentation)
         self.probe_rows_mark = bq.Scatter(

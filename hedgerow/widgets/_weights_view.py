@@ -59,6 +59,14 @@ class WeightsView(View):
                         if m in ready})
 
     def _draw(self, profiles):
+        cols = next((p.attrs.get("distance_columns") for p in profiles.values()), None)
+        if cols:
+            shown = ", ".join(cols[:4]) + (f" and {len(cols) - 4} more" if len(cols) > 4
+                                          else "")
+            which = ("the local line's column" + ("s" if len(cols) > 1 else "")
+                     if len(cols) < len(self._session.feature_names) else "all columns")
+            self.distance_figure.axes[0].label = (
+                f"distance to the probe in {which} ({shown}; standard deviations)")
         with held(*self.weight_marks.values(), *self.cumulative_marks.values()):
             for name, prof in profiles.items():
                 self.weight_marks[name].x = prof["distance"].to_numpy()

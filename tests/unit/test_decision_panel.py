@@ -131,3 +131,24 @@ def test_neighbourhood_span_is_the_weighted_middle_of_the_neighbours(fitted):
         assert col[w > 0].min() <= lo and hi <= col[w > 0].max()
         xs, _ = D.local_line(rep, j, None, within=(lo, hi))
         assert (xs[0], xs[-1]) == (lo, hi)
+
+
+def test_weight_profile_measures_distance_in_the_columns_asked(fitted):
+    X, _, model = fitted
+    rep = D.probe(model, np.median(X, axis=0))
+    line = [int(c) for c in rep.slope_columns]
+    assert 0 < len(line) < X.shape[1]  # the pump demo's line uses some of its columns
+    prof = D.weight_profile(rep, X, "local linear forest")
+    sd = X[:, line].std(axis=0)
+    want = np.sqrt((((X[prof["row"]][:, line] - rep.x[line]) / sd) ** 2).sum(axis=1))
+    np.testing.assert_allclose(prof["distance"], want, rtol=1e-12)
+    assert prof.attrs["distance_columns"] == [rep.feature_names[c] for c in line]
+    every = D.weight_profile(rep, X, "local linear forest", columns="all")
+    assert len(every.attrs["distance_columns"]) == X.shape[1]
+    assert np.all(every["distance"].to_numpy() >= prof["distance"].to_numpy() - 1e-12)
+    one = D.weight_profile(rep, X, "local linear forest", columns=[0])
+    assert one.attrs["distance_columns"] == [rep.feature_names[0]]
+    with pytest.raises(ValueError, match="'columns'"):
+        D.weight_profile(rep, X, "local linear forest", columns=[X.shape[1]])
+    with pytest.raises(ValueError, match="'columns'"):
+        D.weight_profile(rep, X, "local linear forest", columns="some")

@@ -81,10 +81,10 @@ def test_probe_drag_updates_weights_line_and_readout(app, session):
     # the local line passes through the prediction with the local slope
     llf = rep.method("local linear forest")
     xs, ys = np.asarray(view.line_mark.x), np.asarray(view.line_mark.y)
-    assert xs.mean() == pytest.approx(target)
-    assert ys.mean() == pytest.approx(llf.prediction)
+    assert xs[0] <= target <= xs[1]  # drawn over the neighbourhood, through the probe
     slope = llf.slopes[list(rep.slope_columns).index(j)]
     assert (ys[1] - ys[0]) / (xs[1] - xs[0]) == pytest.approx(slope, rel=1e-9)
+    assert ys[0] + slope * (target - xs[0]) == pytest.approx(llf.prediction, rel=1e-9)
     assert np.asarray(view.probe_mark.x)[0] == pytest.approx(target)
 
 
@@ -589,3 +589,18 @@ def test_probe_x_range_stays_on_the_data_and_the_line_on_the_neighbourhood(app, 
     assert ranges[0] == ranges[1] == ranges[2]  # no jump when dragged to either end
     assert ranges[0][0] < col.min() < col.max() < ranges[0][1]
     assert ranges[0][1] - ranges[0][0] < 1.1 * (col.max() - col.min())
+
+
+def test_weights_distance_axis_names_its_columns_and_edges_fade_rows(app, session):
+    view = app.weights_view
+    label = view.distance_figure.axes[0].label
+    cols = D.weight_profile(session.probe_report(), session.X_train,
+                            "local linear forest").attrs["distance_columns"]
+    assert cols[0] in label and "standard deviations" in label
+    ev = app.edges_view
+    for name in ev.dot_marks:
+        assert ev.dot_marks[name].opacities[0] <= 0.15
+        assert ev.mean_marks[name].default_size > 10 * ev.dot_marks[name].default_size
+    marks = list(ev.figure.marks)
+    assert max(marks.index(m) for m in ev.dot_marks.values()) < min(
+        marks.index(m) for m in ev.mean_marks.values())  # means drawn on top
