@@ -284,7 +284,7 @@ class TreatmentEffectForest(BaseEstimator):
         yt = self.y_centred_[rows]
         if corrected:
             dx = (self.X_train_[rows] - xq) / self.x_scale_
-            Zm = np.column_stack([np.ones_like(wt), wt, wt[:, None] * dx])
+            Zm = np.column_stack([np.ones_like(wt), wt, wt[:, None] * dx, dx])
         else:
             Zm = np.column_stack([np.ones_like(wt), wt])
         k = Zm.shape[1]
@@ -293,7 +293,8 @@ class TreatmentEffectForest(BaseEstimator):
         rhs = Za.T @ yt
         if corrected:
             pen = lam * max(M[1, 1] - M[0, 1] ** 2 / max(M[0, 0], 1e-300), 1e-12)
-            M[2:, 2:] += pen * np.eye(k - 2)
+            M[2:2 + d, 2:2 + d] += pen * np.eye(d)
+            M[2 + d:, 2 + d:] += lam * M[0, 0] * np.eye(d)
         M += 1e-12 * np.trace(M) / k * np.eye(k)
         theta = np.linalg.solve(M, rhs)
         resid = yt - Zm @ theta
@@ -302,7 +303,7 @@ class TreatmentEffectForest(BaseEstimator):
         # own estimate of the correction term); the forest averages them
         per_tree = np.bincount(tree_of, weights=g, minlength=nk) * nk
         psi[keep] = theta[1] + per_tree - per_tree.mean()
-        slopes = (theta[2:] / self.x_scale_) if corrected else np.full(d, np.nan)
+        slopes = (theta[2:2 + d] / self.x_scale_) if corrected else np.full(d, np.nan)
         return theta[1], slopes, psi
 
     def _solve(self, X, lam, corrected, oob=False):
