@@ -138,7 +138,8 @@ class TreatmentEffectForest(BaseEstimator):
         moment (0.1 shrinks a lone slope by about a tenth); changeable without refit
         (``with_ridge_penalty``).
     nuisance_estimators : int or None
-        Trees of each centring forest (default: half of ``n_estimators``, at least 20).
+        Trees of each centring forest (default: a quarter of ``n_estimators``, at least
+        40; single-tree bags on half-samples, so each row is out-of-bag for about half).
     """
 
     _parameter_constraints: dict = {
@@ -185,7 +186,7 @@ class TreatmentEffectForest(BaseEstimator):
 
     # -- fitting -------------------------------------------------------------------------
     def _nuisance(self, X, v, seed):
-        trees = self.nuisance_estimators or max(20, self.n_estimators // 2)
+        trees = self.nuisance_estimators or max(40, self.n_estimators // 4)
         f = HonestForestRegressor(
             n_estimators=trees, subsample_rate=min(self.subsample_rate, 0.5), trees_per_bag=1,
             min_samples_leaf=self.min_samples_leaf, random_state=seed, n_jobs=self.n_jobs,
