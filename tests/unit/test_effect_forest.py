@@ -72,7 +72,7 @@ def _rmse_pair(truth, seed):
 
 @pytest.mark.xfail(strict=True, reason=(
     "measured shortfall: on this linear-effect design (tau = 3 x0, n=2000, 200 trees, "
-    "ridge 0.1) the corrected effect's RMSE was 0.1533 against 0.1488 uncorrected; the "
+    "ridge 0.1) the corrected effect's RMSE was 0.1567 against 0.1525 uncorrected; the "
     "correction's extra variance outweighs the edge bias it removes here"))
 def test_correction_helps_on_smooth_effect():
     # Known-effect simulation (Friedberg et al. 2021, JCGS, show the correction helps on
@@ -159,6 +159,11 @@ def test_bad_input_clear_errors_and_state_kept():
 
 
 @pytest.mark.slow
+@pytest.mark.xfail(strict=True, reason=(
+    "measured shortfall: 20 seeded fits of the smooth trial (n=1000, 200 trees), 95% "
+    "'clt' intervals of the corrected effect covered 0.869 overall and 0.883 at the edges "
+    "(rms bias 0.036 against mean std 0.111): the little-bags std is too small and 'clt' "
+    "ignores bias; the bias-aware methods are not built for effects yet"))
 def test_effect_interval_coverage_smooth_design():
     # Coverage by the coverage readout's standard (0.93-0.97 overall, >= 0.90 at the
     # edges) on the smooth trial design; the bias/variance split is printed.
@@ -166,7 +171,7 @@ def test_effect_interval_coverage_smooth_design():
     Xq = np.column_stack([np.linspace(-0.95, 0.95, 21), np.zeros(21), np.zeros(21)])
     edge = np.abs(Xq[:, 0]) > 0.7
     t = trial_effect_truth(Xq)
-    for rep in range(6):
+    for rep in range(20):
         X, y, w, _ = load_trial_demo(1000, random_state=100 + rep)
         f = _fit(X, y, w)
         tau, std = f.predict_effect(Xq, return_std=True)
