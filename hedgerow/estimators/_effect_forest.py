@@ -37,7 +37,12 @@ from hedgerow._validation import (
 )
 from hedgerow.estimators._forest import HonestForestRegressor, _ForestBase
 from hedgerow.forest import RULE_EFFECT_GRADIENT
-from hedgerow.inference import little_bags_variance, normal_interval
+from hedgerow.inference import (
+    little_bags_variance,
+    normal_interval,
+    satterthwaite_df,
+    student_interval_half_width,
+)
 
 __all__ = ["EFFECT_CAUTION", "EFFECT_INTERVAL_METHODS", "AverageEffect",
            "TreatmentEffectForest"]
@@ -362,9 +367,11 @@ class TreatmentEffectForest(BaseEstimator):
                         ridge_penalty=None):
         """Return ``(lower, upper)`` of tau(x) at ``level``.
 
-        ``method="clt"``: the normal interval from little bags centred on the estimate
-        (ignores the estimate's bias). The regression forest's bias-aware methods are not
-        built for effects yet and are refused by name.
+        ``method="clt"``: the interval from little bags centred on the estimate (ignores
+        the estimate's bias), with the Student-t quantile at the Satterthwaite degrees of
+        freedom of the little-bags variance (few bags make the standard error noisy).
+        The regression forest's bias-aware methods are not built for effects yet and are
+        refused by name.
         """
         level = check_level(level)
         if method not in EFFECT_INTERVAL_METHODS:
@@ -373,9 +380,14 @@ class TreatmentEffectForest(BaseEstimator):
                 f"effects (the bias-aware methods are not built for effects yet). Got "
                 f"{method!r} instead."
             )
-        tau, std = self.predict_effect(X, return_std=True, corrected=corrected,
-                                       ridge_penalty=ridge_penalty)
-        return normal_interval(tau, std, level)
+        lam = self._penalty(ridge_penalty)
+        X = check_predict_data(self, X)
+        tau, _, psi = self._solve(X, lam, corrected)
+        self._require_bags()
+        lb = little_bags_variance(psi, self.trees_per_bag_)
+        df = satterthwaite_df(lb.variance, lb.tau, lb.n_bags)
+        h = student_interval_half_width(lb.std, df, level)
+        return tau - h, tau + h
 
     def local_slopes(self, X, *, ridge_penalty=None):
         """Return the (m, d) slopes of tau in the units of X from the local correction."""
