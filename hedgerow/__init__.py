@@ -6,6 +6,7 @@ from hedgerow.estimators import (
     LocalLinearForestRegressor,
     LocalLinearRegressor,
     NadarayaWatsonRegressor,
+    TreatmentEffectForest,
 )
 
 __all__ = [
@@ -13,6 +14,7 @@ __all__ = [
     "LocalLinearForestRegressor",
     "LocalLinearRegressor",
     "NadarayaWatsonRegressor",
+    "TreatmentEffectForest",
     "explore",
 ]
 __version__ = "0.1.0.dev0"

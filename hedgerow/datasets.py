@@ -36,10 +36,12 @@ __all__ = [
     "load_orchard_demo",
     "load_pump_demo",
     "load_step_demo",
+    "load_trial_demo",
     "make_softplus_design",
     "pump_truth",
     "softplus_truth",
     "split_demo",
+    "trial_effect_truth",
     "step_truth",
 ]
 
@@ -398,3 +400,35 @@ def coverage_designs(names=None) -> list[CoverageDesign]:
         raise ValueError(f"The 'names' parameter must list designs of {list(known)}. "
                          f"Got unknown {missing!r} instead.")
     return [known[n] for n in names]
+
+
+def trial_effect_truth(X) -> np.ndarray:
+    """The known effect of the invented field trial: smooth, steep towards the edges.
+
+    tau(x) = 1 + 1.5 tanh(2 x0) + 0.5 x0^3, in yield units per treated plot.
+    """
+    X = np.asarray(X, dtype=float)
+    return 1.0 + 1.5 * np.tanh(2.0 * X[:, 0]) + 0.5 * X[:, 0] ** 3
+
+
+def load_trial_demo(n_samples: int = 1000, random_state=0, observational=False):
+    """Return ``(X, y, treatment, tau)`` of an invented field trial of a soil treatment.
+
+    Invented scenario: plots on a field (columns ``slope`` scaled to [-1, 1], ``moisture``,
+    ``shade``) get a soil treatment by coin flip (randomised, propensity 0.5), and the
+    effect on yield follows ``trial_effect_truth`` of ``slope``. With ``observational=True``
+    the treatment goes preferentially to moist, unshaded plots, which also yield more:
+    confounding through two columns (propensity 0.15..0.85, so overlap holds).
+    """
+    _check_size(n_samples)
+    rng = np.random.default_rng(random_state)
+    X = rng.uniform(-1.0, 1.0, size=(n_samples, 3))
+    if observational:
+        e = 1.0 / (1.0 + np.exp(-(1.2 * X[:, 1] - 1.2 * X[:, 2])))
+        e = 0.15 + 0.7 * e
+    else:
+        e = np.full(n_samples, 0.5)
+    w = (rng.random(n_samples) < e).astype(float)
+    tau = trial_effect_truth(X)
+    y = 2.0 * X[:, 1] - 1.5 * X[:, 2] + w * tau + rng.normal(scale=0.5, size=n_samples)
+    return X, y, w, tau

@@ -1,13 +1,16 @@
-"""The four estimators, all with the scikit-learn API."""
+"""The estimators, all with the scikit-learn API (fit/predict or fit/predict_effect)."""
 
+from hedgerow.estimators._effect_forest import AverageEffect, TreatmentEffectForest
 from hedgerow.estimators._forest import HonestForestRegressor, TinyDataWarning
 from hedgerow.estimators._kernel import LocalLinearRegressor, NadarayaWatsonRegressor
 from hedgerow.estimators._local_linear_forest import LocalLinearForestRegressor
 
 __all__ = [
+    "AverageEffect",
     "HonestForestRegressor",
     "LocalLinearForestRegressor",
     "LocalLinearRegressor",
     "NadarayaWatsonRegressor",
     "TinyDataWarning",
+    "TreatmentEffectForest",
 ]

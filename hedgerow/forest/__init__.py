@@ -1,12 +1,19 @@
 """Tree growth (compiled), compact forest storage and forest weights."""
 
 from hedgerow.forest._build import TreePlan, assemble, grow_forest, plan_samples, subsample_size
-from hedgerow.forest._grow import RULE_MEAN, RULE_RIDGE_RESIDUAL, grow_tree, presort
+from hedgerow.forest._grow import (
+    RULE_EFFECT_GRADIENT,
+    RULE_MEAN,
+    RULE_RIDGE_RESIDUAL,
+    grow_tree,
+    presort,
+)
 from hedgerow.forest._storage import ForestArrays
 
 __all__ = [
     "ForestArrays",
     "TreePlan",
+    "RULE_EFFECT_GRADIENT",
     "RULE_MEAN",
     "RULE_RIDGE_RESIDUAL",
     "assemble",
@@ -26,7 +33,7 @@ def warm_up() -> None:
     rng = np.random.default_rng(0)
     X = rng.random((40, 2))
     y = X[:, 0] + rng.normal(size=40)
-    for rule in (RULE_MEAN, RULE_RIDGE_RESIDUAL):
+    for rule in (RULE_MEAN, RULE_RIDGE_RESIDUAL, RULE_EFFECT_GRADIENT):
         plan = plan_samples(40, 4, 2, 0.5, True, 0)
         forest = grow_forest(
             X, y, plan, min_samples_leaf=2, max_features=2, rule=rule, Z=X[:, :1],

@@ -14,8 +14,10 @@ ever sorts. The whole forest sorts once (``presort``).
 The split criterion is pluggable through ``rule``: before searching a node, the grow rows'
 working response is computed by ``_node_response``; ``RULE_MEAN`` uses the response
 itself (CART), ``RULE_RIDGE_RESIDUAL`` uses the residuals of a ridge regression of the
-response on the correction columns fitted on the node's grow rows. Adding a rule means
-adding a branch there.
+response on the correction columns fitted on the node's grow rows, and
+``RULE_EFFECT_GRADIENT`` (treatment effects) reads the response as a centred outcome and
+the first correction column as a centred treatment, and uses the gradient pseudo-outcome
+of the node's effect (see ``_node_response``). Adding a rule means adding a branch there.
 """
 
 from __future__ import annotations
@@ -25,6 +27,7 @@ from numba import njit
 
 RULE_MEAN = 0
 RULE_RIDGE_RESIDUAL = 1
+RULE_EFFECT_GRADIENT = 2
 
 # Two feature values closer than this fraction of their column's training range are
 # treated as tied. scikit-learn's FEATURE_THRESHOLD is the same number as an absolute
@@ -60,6 +63,32 @@ def _node_response(rule, rows, yl, zl, ridge_penalty, resp):
     if rule == RULE_MEAN:
         for r in rows:
             resp[r] = yl[r]
+        return
+    if rule == RULE_EFFECT_GRADIENT:
+        # Gradient-based splitting (Athey, Tibshirani & Wager 2019, Annals of Statistics):
+        # with y and w = zl[:, 0] already centred by out-of-bag nuisance forests, the
+        # node's effect is tau_P = sum (w - wbar)(y - ybar) / sum (w - wbar)^2 and each
+        # row's pseudo-outcome rho_i = (w_i - wbar)((y_i - ybar) - tau_P (w_i - wbar)),
+        # which the variance-reduction search below splits on. Centring within the node
+        # keeps rho unchanged when y is shifted (the engine centres y globally).
+        cnt = rows.shape[0]
+        ybar = 0.0
+        wbar = 0.0
+        for r in rows:
+            ybar += yl[r]
+            wbar += zl[r, 0]
+        ybar /= cnt
+        wbar /= cnt
+        sxy = 0.0
+        sxx = 0.0
+        for r in rows:
+            dw = zl[r, 0] - wbar
+            sxy += dw * (yl[r] - ybar)
+            sxx += dw * dw
+        tau = sxy / sxx if sxx > 0.0 else 0.0
+        for r in rows:
+            dw = zl[r, 0] - wbar
+            resp[r] = dw * ((yl[r] - ybar) - tau * dw)
         return
     # RULE_RIDGE_RESIDUAL: minimise mean (y - a - z'b)^2 + lam |b|^2 over the node's grow
     # rows (z standardised columns, intercept unpenalised) and keep the residuals.
@@ -207,7 +236,8 @@ def grow_tree(
     ----------
     XT : (d, n) float64 training features, transposed; y : (n,) response; Z : (n, k)
         standardised
-        correction columns (used by the ridge-residual rule only).
+        correction columns (used by the ridge-residual rule; the effect-gradient rule
+        reads the centred treatment from column 0).
     global_order : (d, n) int32 from ``presort(X)``.
     sample_rows : (s,) int64 global row ids of the tree's subsample.
     grow_mask, fill_mask : (s,) bool roles of the subsample rows (may overlap).

@@ -1,0 +1,471 @@
+"""The treatment-effect forest: a causal forest with the local linear correction.
+
+Method, each step with its published source:
+
+- Centring: the outcome y and the treatment w are centred by out-of-bag honest regression
+  forests, m(x) = E[y | x] and e(x) = E[w | x] (Robinson 1988, Econometrica; Nie & Wager
+  2021, Biometrika). Fitted values of the user's own models may be passed instead.
+- Splits: gradient-based splitting on the node's pseudo-outcome (Athey, Tibshirani &
+  Wager 2019, Annals of Statistics), ``RULE_EFFECT_GRADIENT`` of the engine; honest trees,
+  the forest's subsampling and little bags.
+- Effect at x: the forest-weighted moment condition sum_i alpha_i(x) z_i (y~_i - z_i'theta)
+  = 0 with z_i = (1, w~_i, w~_i (x_i - x)) and a ridge penalty on the last block (local
+  linear correction, Friedberg, Tibshirani, Athey & Wager 2021, JCGS); tau(x) is the
+  coefficient of w~. Without the last block it is the uncorrected causal-forest effect.
+- Standard errors: little bags of the per-tree influence terms of that solve.
+
+Treatment-effect output is decision support, not advice: it needs unconfoundedness (no
+diagnostic here checks it) and overlap; defer to the study design and domain review.
+"""
+
+from __future__ import annotations
+
+import copy
+from numbers import Integral, Real
+
+import numpy as np
+from sklearn.base import BaseEstimator
+from sklearn.utils._param_validation import Interval
+from sklearn.utils.validation import check_is_fitted
+
+from hedgerow._validation import (
+    check_fit_data,
+    check_level,
+    check_predict_data,
+    preserve_fitted_state,
+    validate_params,
+)
+from hedgerow.estimators._forest import HonestForestRegressor, _ForestBase
+from hedgerow.forest import RULE_EFFECT_GRADIENT
+from hedgerow.inference import (
+    little_bags_variance,
+    normal_interval,
+    satterthwaite_df,
+    student_interval_half_width,
+)
+
+__all__ = ["EFFECT_CAUTION", "EFFECT_INTERVAL_METHODS", "AverageEffect",
+           "TreatmentEffectForest"]
+
+#: The caution every effect reading carries.
+EFFECT_CAUTION = (
+    "Decision support, not advice: an effect reading assumes unconfoundedness (no "
+    "measured-or-not confounder left out; no diagnostic here checks it) and overlap "
+    "(every unit could have received either treatment). Defer to the study design and to "
+    "domain review."
+)
+
+#: Interval methods available for effects (the regression forest's names where they
+#: apply; the bias-aware ones are not built for effects yet).
+EFFECT_INTERVAL_METHODS = ("clt",)
+
+#: A propensity below this or above 1 minus this is flagged as weak overlap.
+OVERLAP_MARGIN = 0.05
+
+
+class AverageEffect:
+    """An average treatment effect with its standard error (see ``EFFECT_CAUTION``)."""
+
+    def __init__(self, estimate, std_error, n, method):
+        self.estimate = float(estimate)
+        self.std_error = float(std_error)
+        self.n = int(n)
+        self.method = method
+
+    def interval(self, level=0.95):
+        """Return the normal ``(lower, upper)`` interval at ``level``."""
+        level = check_level(level)
+        lo, hi = normal_interval(np.array([self.estimate]), np.array([self.std_error]),
+                                 level)
+        return float(lo[0]), float(hi[0])
+
+    def __repr__(self):
+        return (f"AverageEffect(estimate={self.estimate:.4g}, std_error="
+                f"{self.std_error:.4g}, n={self.n}, method={self.method!r})\n"
+                f"Caution: {EFFECT_CAUTION}")
+
+
+def _check_treatment(treatment, n):
+    try:
+        w = np.asarray(treatment, dtype=np.float64)
+    except (TypeError, ValueError) as err:
+        raise ValueError(
+            f"The 'treatment' parameter must be numeric (0/1 for a binary treatment, or a "
+            f"continuous dose). Got {type(treatment).__name__} values instead."
+        ) from err
+    if w.ndim != 1 or w.shape[0] != n:
+        raise ValueError(
+            f"The 'treatment' parameter must have one value per row of X ({n} rows). Got "
+            f"shape {w.shape} instead."
+        )
+    if not np.all(np.isfinite(w)):
+        raise ValueError(
+            f"The 'treatment' parameter must be finite. Got {int((~np.isfinite(w)).sum())} "
+            f"NaN or infinite values instead."
+        )
+    values = np.unique(w)
+    if values.size < 2:
+        raise ValueError(
+            f"The 'treatment' parameter must vary: every row has treatment {values[0]!r} "
+            f"(a single arm), so no effect can be estimated."
+        )
+    binary = bool(np.all(np.isin(values, (0.0, 1.0))))
+    return np.ascontiguousarray(w), binary
+
+
+def _check_nuisance(name, value, n):
+    v = np.asarray(value, dtype=np.float64)
+    if v.ndim != 1 or v.shape[0] != n:
+        raise ValueError(
+            f"The '{name}' parameter must hold one fitted value per row of X ({n} rows). "
+            f"Got shape {v.shape} instead."
+        )
+    if not np.all(np.isfinite(v)):
+        raise ValueError(f"The '{name}' parameter must be finite (no NaN or inf).")
+    return np.ascontiguousarray(v)
+
+
+class TreatmentEffectForest(BaseEstimator):
+    """Heterogeneous treatment effects by a causal forest with the local linear correction.
+
+    The method is the published causal forest (Athey, Tibshirani & Wager 2019) on
+    Robinson-centred outcome and treatment (Robinson 1988; Nie & Wager 2021), with the
+    local linear correction of Friedberg et al. (2021). Caution: effect readings are
+    decision support, not advice; they assume unconfoundedness (no diagnostic here checks
+    it) and overlap; defer to the study design and to domain review.
+
+    Parameters
+    ----------
+    n_estimators, subsample_rate, trees_per_bag, honest, min_samples_leaf, max_features,
+    max_depth, random_state, n_jobs : as for ``HonestForestRegressor``.
+    ridge_penalty : float >= 0
+        Penalty on the correction slopes, relative to each slope column's local second
+        moment (0.1 shrinks a lone slope by about a tenth); changeable without refit
+        (``with_ridge_penalty``).
+    nuisance_estimators : int or None
+        Trees of each centring forest (default: a quarter of ``n_estimators``, at least
+        40; single-tree bags on half-samples, so each row is out-of-bag for about half).
+    """
+
+    _parameter_constraints: dict = {
+        **_ForestBase._parameter_constraints,
+        "ridge_penalty": [Interval(Real, 0.0, None, closed="left")],
+        "nuisance_estimators": [None, Interval(Integral, 2, None, closed="left")],
+    }
+
+    def __init__(
+        self,
+        n_estimators=500,
+        *,
+        subsample_rate=0.5,
+        trees_per_bag="auto",
+        honest=True,
+        min_samples_leaf=5,
+        max_features=None,
+        max_depth=None,
+        ridge_penalty=0.1,
+        nuisance_estimators=None,
+        random_state=None,
+        n_jobs=None,
+    ):
+        self.n_estimators = n_estimators
+        self.subsample_rate = subsample_rate
+        self.trees_per_bag = trees_per_bag
+        self.honest = honest
+        self.min_samples_leaf = min_samples_leaf
+        self.max_features = max_features
+        self.max_depth = max_depth
+        self.ridge_penalty = ridge_penalty
+        self.nuisance_estimators = nuisance_estimators
+        self.random_state = random_state
+        self.n_jobs = n_jobs
+
+    # borrowed plumbing of the regression forests (same validation, growth and threads)
+    _check_forest_params = _ForestBase._check_forest_params
+    _grow = _ForestBase._grow
+    _n_threads = _ForestBase._n_threads
+    _require_bags = _ForestBase._require_bags
+
+    def __repr__(self, N_CHAR_MAX=700):
+        return super().__repr__(N_CHAR_MAX) + f"\nCaution: {EFFECT_CAUTION}"
+
+    # -- fitting -------------------------------------------------------------------------
+    def _nuisance(self, X, v, seed):
+        trees = self.nuisance_estimators or max(40, self.n_estimators // 4)
+        f = HonestForestRegressor(
+            n_estimators=trees, subsample_rate=min(self.subsample_rate, 0.5), trees_per_bag=1,
+            min_samples_leaf=self.min_samples_leaf, random_state=seed, n_jobs=self.n_jobs,
+        ).fit(X, v)
+        return f.oob_predict()
+
+    def fit(self, X, y, treatment, sample_weight=None, *, outcome_model=None,
+            propensity_model=None):
+        """Fit the centring forests (unless given) and the effect forest; return ``self``.
+
+        Parameters
+        ----------
+        X : (n, d); y : (n,) outcome; treatment : (n,) 0/1 or a continuous dose.
+        sample_weight : (n,) non-negative, optional
+            Weights of the local moment solve and the average effect (the forests'
+            splits are unweighted).
+        outcome_model, propensity_model : (n,), optional
+            Out-of-sample fitted values m(x_i) = E[y | x_i] and e(x_i) = E[w | x_i] from
+            the user's own models; by default out-of-bag honest forests.
+        """
+        with preserve_fitted_state(self):
+            validate_params(self)
+            X, y = check_fit_data(self, X, y)
+            n = X.shape[0]
+            w, binary = _check_treatment(treatment, n)
+            if sample_weight is None:
+                sw = np.ones(n)
+            else:
+                sw = _check_nuisance("sample_weight", sample_weight, n)
+                if np.any(sw < 0) or sw.sum() <= 0:
+                    raise ValueError("The 'sample_weight' parameter must be non-negative "
+                                     "with a positive sum.")
+            rng = np.random.default_rng(
+                None if self.random_state is None else
+                (self.random_state if isinstance(self.random_state, Integral) else None))
+            seeds = rng.integers(0, 2**31 - 1, size=3)
+            m = (self._nuisance(X, y, int(seeds[0])) if outcome_model is None
+                 else _check_nuisance("outcome_model", outcome_model, n))
+            e = (self._nuisance(X, w, int(seeds[1])) if propensity_model is None
+                 else _check_nuisance("propensity_model", propensity_model, n))
+            if not (np.all(np.isfinite(m)) and np.all(np.isfinite(e))):
+                raise ValueError(
+                    "Some rows have no out-of-bag centring value (every nuisance tree drew "
+                    "them); set nuisance_estimators higher or pass outcome_model and "
+                    "propensity_model."
+                )
+            if binary:
+                bad = (e <= 0.0) | (e >= 1.0)
+                if np.any(bad):
+                    raise ValueError(
+                        f"The 'propensity_model' values must lie strictly between 0 and 1 "
+                        f"for a binary treatment (overlap); {int(bad.sum())} rows have a "
+                        f"propensity of exactly 0 or 1 (or outside [0, 1])."
+                    )
+            yt = y - m
+            wt = w - e
+            Z = wt[:, None]
+            forest, l, mtry, s = self._grow(X, yt, rule=RULE_EFFECT_GRADIENT, Z=Z)
+        self.forest_ = forest
+        self.X_train_ = X
+        self.y_train_ = y
+        self.treatment_ = w
+        self.binary_treatment_ = binary
+        self.sample_weight_ = sw
+        self.outcome_fit_ = m
+        self.propensity_ = e
+        self.y_centred_ = yt
+        self.w_centred_ = wt
+        self.trees_per_bag_ = l
+        self.max_features_ = mtry
+        self.subsample_size_ = s
+        centre = X.mean(axis=0)
+        scale = X.std(axis=0)
+        self.x_centre_ = centre
+        self.x_scale_ = np.where(scale > 0, scale, 1.0)
+        return self
+
+    # -- the local solve -----------------------------------------------------------------
+    def _solve_one(self, leaf_ids, usable, xq, lam, corrected):
+        """Return (tau, slopes of tau in X units, per-tree influence psi (B,))."""
+        f = self.forest_
+        B = leaf_ids.shape[0]
+        starts = f.leaf_ptr[leaf_ids]
+        sizes = f.leaf_ptr[leaf_ids + 1] - starts
+        keep = (sizes > 0) if usable is None else (usable & (sizes > 0))
+        psi = np.full(B, np.nan)
+        nk = int(keep.sum())
+        d = xq.shape[0]
+        if nk == 0:
+            return np.nan, np.full(d, np.nan), psi
+        st, sz = starts[keep], sizes[keep]
+        tree_of = np.repeat(np.arange(nk), sz)
+        offs = np.arange(sz.sum()) - np.repeat(np.cumsum(sz) - sz, sz)
+        rows = f.leaf_rows[np.repeat(st, sz) + offs]
+        a = self.sample_weight_[rows] / (np.repeat(sz, sz) * nk)  # alpha_i per entry
+        wt = self.w_centred_[rows]
+        yt = self.y_centred_[rows]
+        if corrected:
+            dx = (self.X_train_[rows] - xq) / self.x_scale_
+            Zm = np.column_stack([np.ones_like(wt), wt, wt[:, None] * dx, dx])
+        else:
+            Zm = np.column_stack([np.ones_like(wt), wt])
+        k = Zm.shape[1]
+        Za = Zm * a[:, None]
+        M = Za.T @ Zm
+        rhs = Za.T @ yt
+        if corrected:
+            # penalty relative to each slope column's own local second moment, so the
+            # shrinkage does not depend on how wide the neighbourhood is
+            diag = np.diag(M)[2:].copy()
+            M[2:, 2:] += lam * np.diag(np.maximum(diag, 1e-300))
+        M += 1e-12 * np.trace(M) / k * np.eye(k)
+        theta = np.linalg.solve(M, rhs)
+        resid = yt - Zm @ theta
+        g = np.linalg.solve(M, (Za * resid[:, None]).T)[1]  # influence per entry, summed
+        # per tree: the sum over its leaf of alpha-weighted influence, times nk (a tree's
+        # own estimate of the correction term); the forest averages them
+        per_tree = np.bincount(tree_of, weights=g, minlength=nk) * nk
+        psi[keep] = theta[1] + per_tree - per_tree.mean()
+        slopes = (theta[2:2 + d] / self.x_scale_) if corrected else np.full(d, np.nan)
+        return theta[1], slopes, psi
+
+    def _solve(self, X, lam, corrected, oob=False):
+        check_is_fitted(self)
+        if oob:
+            X = self.X_train_
+            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+            usable = ~self.forest_.inbag(np.arange(X.shape[0]))
+        else:
+            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+            usable = None
+        m = X.shape[0]
+        tau = np.empty(m)
+        slopes = np.empty((m, X.shape[1]))
+        psi = np.empty((m, leaves.shape[1]))
+        for q in range(m):
+            u = None if usable is None else usable[q]
+            tau[q], slopes[q], psi[q] = self._solve_one(leaves[q], u, X[q], lam, corrected)
+        return tau, slopes, psi
+
+    def _penalty(self, ridge_penalty):
+        lam = self.ridge_penalty if ridge_penalty is None else ridge_penalty
+        if isinstance(lam, bool) or not isinstance(lam, Real) or not (
+                np.isfinite(lam) and lam >= 0):
+            raise ValueError(f"The 'ridge_penalty' parameter must be a finite float >= 0. "
+                             f"Got {lam!r} instead.")
+        return float(lam)
+
+    def _std(self, psi):
+        self._require_bags()
+        return little_bags_variance(psi, self.trees_per_bag_).std
+
+    # -- public queries ------------------------------------------------------------------
+    def predict_effect(self, X, return_std=False, *, corrected=True, ridge_penalty=None):
+        """Return tau(x) (and its little-bags standard error) at the rows of X.
+
+        ``corrected=False`` gives the uncorrected causal-forest effect on the same trees.
+        Caution: decision support, not advice; assumes unconfoundedness (not checked
+        here) and overlap; defer to the study design and to domain review.
+        """
+        lam = self._penalty(ridge_penalty)
+        X = check_predict_data(self, X)
+        tau, _, psi = self._solve(X, lam, corrected)
+        return (tau, self._std(psi)) if return_std else tau
+
+    def oob_effect(self, return_std=False, *, corrected=True, ridge_penalty=None):
+        """Return out-of-bag effects of the training rows (trees that did not draw them)."""
+        lam = self._penalty(ridge_penalty)
+        tau, _, psi = self._solve(None, lam, corrected, oob=True)
+        return (tau, self._std(psi)) if return_std else tau
+
+    def effect_interval(self, X, level=0.95, method="clt", *, corrected=True,
+                        ridge_penalty=None):
+        """Return ``(lower, upper)`` of tau(x) at ``level``.
+
+        ``method="clt"``: the interval from little bags centred on the estimate (ignores
+        the estimate's bias), with the Student-t quantile at the Satterthwaite degrees of
+        freedom of the little-bags variance (few bags make the standard error noisy).
+        The regression forest's bias-aware methods are not built for effects yet and are
+        refused by name.
+        """
+        level = check_level(level)
+        if method not in EFFECT_INTERVAL_METHODS:
+            raise ValueError(
+                f"The 'method' parameter must be one of {list(EFFECT_INTERVAL_METHODS)} for "
+                f"effects (the bias-aware methods are not built for effects yet). Got "
+                f"{method!r} instead."
+            )
+        lam = self._penalty(ridge_penalty)
+        X = check_predict_data(self, X)
+        tau, _, psi = self._solve(X, lam, corrected)
+        self._require_bags()
+        lb = little_bags_variance(psi, self.trees_per_bag_)
+        df = satterthwaite_df(lb.variance, lb.tau, lb.n_bags)
+        h = student_interval_half_width(lb.std, df, level)
+        return tau - h, tau + h
+
+    def local_slopes(self, X, *, ridge_penalty=None):
+        """Return the (m, d) slopes of tau in the units of X from the local correction."""
+        lam = self._penalty(ridge_penalty)
+        X = check_predict_data(self, X)
+        return self._solve(X, lam, True)[1]
+
+    def neighbour_weights(self, X):
+        """Return the forest weights alpha_i(x) as CSR (m × n_train); rows sum to 1."""
+        X = check_predict_data(self, X)
+        W, _ = self.forest_.weights(self.forest_.apply(X, n_jobs=self._n_threads()),
+                                    n_jobs=self._n_threads())
+        return W
+
+    def with_ridge_penalty(self, ridge_penalty):
+        """Return a shallow copy using ``ridge_penalty``, without refitting."""
+        lam = self._penalty(ridge_penalty)
+        other = copy.copy(self)
+        other.ridge_penalty = lam
+        return other
+
+    def average_effect(self, mask=None):
+        """Return the average effect over the training rows (or the rows in ``mask``).
+
+        Binary treatment: the doubly robust augmented inverse-propensity-weighted mean of
+        Gamma_i = tau(x_i) + (w_i - e_i) / (e_i (1 - e_i)) (y_i - m_i - (w_i - e_i)
+        tau(x_i)), tau out-of-bag, standard error sd / sqrt(n) (Robins, Rotnitzky & Zhao
+        1994, JASA). Continuous treatment: the Robinson residual-on-residual slope
+        sum w~ y~ / sum w~^2 with its sandwich (heteroscedasticity-robust) standard error.
+
+        Caution: decision support, not advice. The reading assumes unconfoundedness (no
+        diagnostic here checks it) and overlap (see ``overlap``); defer to the study design
+        and to domain review.
+        """
+        check_is_fitted(self)
+        n = self.X_train_.shape[0]
+        if mask is None:
+            sel = np.ones(n, dtype=bool)
+        else:
+            sel = np.asarray(mask)
+            if sel.dtype != bool or sel.shape != (n,):
+                raise ValueError(f"The 'mask' parameter must be a boolean array with one "
+                                 f"entry per training row ({n}). Got dtype {sel.dtype}, "
+                                 f"shape {sel.shape} instead.")
+            if sel.sum() < 2:
+                raise ValueError("The 'mask' parameter must select at least two rows.")
+        sw = self.sample_weight_[sel]
+        wt, yt = self.w_centred_[sel], self.y_centred_[sel]
+        if self.binary_treatment_:
+            tau = self.oob_effect()
+            lost = ~np.isfinite(tau)
+            if np.any(lost):  # rows every tree drew: the all-tree effect stands in
+                tau[lost] = self.predict_effect(self.X_train_[lost])
+            tau = tau[sel]
+            e = self.propensity_[sel]
+            gamma = tau + wt / (e * (1 - e)) * (yt - wt * tau)
+            est = np.sum(sw * gamma) / sw.sum()
+            neff = sw.sum() ** 2 / np.sum(sw ** 2)
+            var = np.sum(sw * (gamma - est) ** 2) / sw.sum() / (neff - 1)
+            return AverageEffect(est, np.sqrt(var), sel.sum(), "augmented IPW")
+        sxx = np.sum(sw * wt * wt)
+        est = np.sum(sw * wt * yt) / sxx
+        r = yt - est * wt
+        se = np.sqrt(np.sum((sw * wt * r) ** 2)) / sxx
+        return AverageEffect(est, se, sel.sum(), "Robinson residual-on-residual")
+
+    def overlap(self, margin=OVERLAP_MARGIN):
+        """Return the overlap readout: propensities by arm and the rows flagged weak.
+
+        A dict with ``propensity`` (n,), ``by_arm`` {0: e of untreated, 1: e of treated}
+        (binary treatment only), and ``flagged`` (n,) bool: e(x) within ``margin`` of 0 or 1.
+        """
+        check_is_fitted(self)
+        e = self.propensity_
+        out = {"propensity": e}
+        if self.binary_treatment_:
+            out["by_arm"] = {0: e[self.treatment_ == 0], 1: e[self.treatment_ == 1]}
+            out["flagged"] = (e < margin) | (e > 1 - margin)
+        else:
+            out["flagged"] = np.zeros(e.shape[0], dtype=bool)
+        return out

@@ -1,0 +1,205 @@
+"""TreatmentEffectForest: known answers, published comparisons and bad input."""
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+
+from hedgerow import TreatmentEffectForest
+from hedgerow.datasets import load_trial_demo, trial_effect_truth
+
+TREES = 200
+
+
+def _fit(X, y, w, **kw):
+    return TreatmentEffectForest(n_estimators=TREES, random_state=0, **kw).fit(X, y, w)
+
+
+def test_constant_effect_randomised_matches_difference_in_means():
+    # Randomised design, constant effect 2: the AIPW average (Robins, Rotnitzky & Zhao
+    # 1994) and the difference in means with its usual (Neyman) standard error estimate
+    # the same number; AIPW is at least as precise up to noise.
+    rng = np.random.default_rng(5)
+    n = 800
+    X = rng.uniform(-1, 1, (n, 3))
+    w = (rng.random(n) < 0.5).astype(float)
+    y = X[:, 0] + 2.0 * w + rng.normal(scale=1.0, size=n)
+    est = _fit(X, y, w).average_effect()
+    t, c = y[w == 1], y[w == 0]
+    dim = t.mean() - c.mean()
+    se_dim = np.sqrt(t.var(ddof=1) / t.size + c.var(ddof=1) / c.size)
+    assert abs(est.estimate - dim) < se_dim
+    assert 0.6 < est.std_error / se_dim < 1.05
+    assert abs(est.estimate - 2.0) < 3 * est.std_error
+    assert "unconfoundedness" in repr(est)
+
+
+def test_linear_effect_against_ols_interactions():
+    # tau(x) = a + b x1 with outcome linear in x: OLS of y on (1, x, w, w x1) is exact for
+    # that model (statsmodels); the forest's effects and average follow it.
+    rng = np.random.default_rng(7)
+    n = 1500
+    X = rng.uniform(-1, 1, (n, 2))
+    w = (rng.random(n) < 0.5).astype(float)
+    y = 0.5 * X[:, 1] + w * (1.0 + 2.0 * X[:, 0]) + rng.normal(scale=0.5, size=n)
+    D = sm.add_constant(np.column_stack([X, w, w * X[:, 0]]))
+    ols = sm.OLS(y, D).fit()
+    a, b = ols.params[3], ols.params[4]
+    f = _fit(X, y, w)
+    Xq = np.column_stack([np.linspace(-0.8, 0.8, 9), np.zeros(9)])
+    tau = f.predict_effect(Xq)
+    ols_tau = a + b * Xq[:, 0]
+    # within a fifth of the effect's span over the probes
+    assert np.max(np.abs(tau - ols_tau)) < 0.2 * abs(b) * 1.6
+    slopes = f.local_slopes(Xq)[:, 0]
+    assert abs(np.median(slopes) - b) < 0.5 * abs(b)
+    ate = f.average_effect()
+    assert abs(ate.estimate - (a + b * X[:, 0].mean())) < 2.5 * ate.std_error
+
+
+def _rmse_pair(truth, seed, min_samples_leaf=5):
+    rng = np.random.default_rng(seed)
+    n = 2000
+    X = rng.uniform(-1, 1, (n, 2))
+    w = (rng.random(n) < 0.5).astype(float)
+    y = X[:, 1] + w * truth(X) + rng.normal(scale=0.5, size=n)
+    f = _fit(X, y, w, min_samples_leaf=min_samples_leaf)
+    Xq = rng.uniform(-1, 1, (400, 2))
+    t = truth(Xq)
+    corr = np.sqrt(np.mean((f.predict_effect(Xq) - t) ** 2))
+    unc = np.sqrt(np.mean((f.predict_effect(Xq, corrected=False) - t) ** 2))
+    return corr, unc
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "measured shortfall: on this linear-effect design (tau = 3 x0, n=2000, 200 trees, "
+    "ridge 0.1) the corrected effect's RMSE was 0.1567 against 0.1525 uncorrected; the "
+    "correction's extra variance outweighs the edge bias it removes here"))
+def test_correction_helps_on_smooth_effect():
+    # Known-effect simulation (Friedberg et al. 2021, JCGS, show the correction helps on
+    # smooth signals); seeded.
+    corr, unc = _rmse_pair(lambda X: 3.0 * X[:, 0], 11)
+    print(f"smooth: corrected {corr:.4f} uncorrected {unc:.4f}")
+    assert corr < unc
+
+
+def test_correction_helps_on_smooth_effect_with_larger_leaves():
+    # Known-effect simulation (Friedberg et al. 2021, JCGS): with leaves of at least 20
+    # rows the forest's error is bias-dominated at the edges, the regime the correction
+    # is for; seeded. (With leaves of 5 it is variance-dominated: xfail above.)
+    corr, unc = _rmse_pair(lambda X: 3.0 * X[:, 0], 11, min_samples_leaf=20)
+    print(f"smooth, leaves >= 20: corrected {corr:.4f} uncorrected {unc:.4f}")
+    assert corr < 0.95 * unc
+
+
+def test_correction_does_not_hurt_much_on_step_effect_with_larger_leaves():
+    # Known-effect simulation, step effect, leaves >= 20 (Friedberg et al. 2021, JCGS).
+    corr, unc = _rmse_pair(lambda X: np.where(X[:, 0] > 0, 2.0, 0.0), 13,
+                           min_samples_leaf=20)
+    print(f"step, leaves >= 20: corrected {corr:.4f} uncorrected {unc:.4f}")
+    assert corr < 1.05 * unc
+
+
+def test_correction_does_not_hurt_much_on_step_effect():
+    # Known-effect simulation, step effect: the correction may not help, but must not
+    # hurt by more than a few percent (Friedberg et al. 2021, JCGS).
+    corr, unc = _rmse_pair(lambda X: np.where(X[:, 0] > 0, 2.0, 0.0), 13)
+    print(f"step: corrected {corr:.4f} uncorrected {unc:.4f}")
+    assert corr < 1.05 * unc
+
+
+def test_confounded_design_centring_removes_bias():
+    # Observational demo (confounded through moisture and shade): the naive difference
+    # in means is biased; the Robinson-centred forest's AIPW average is not (Robinson
+    # 1988; Athey, Tibshirani & Wager 2019).
+    X, y, w, tau = load_trial_demo(2000, random_state=3, observational=True)
+    naive = y[w == 1].mean() - y[w == 0].mean()
+    est = _fit(X, y, w).average_effect()
+    truth = tau.mean()
+    print(f"truth {truth:.3f} naive {naive:.3f} (bias {naive - truth:+.3f}) "
+          f"forest {est.estimate:.3f} (bias {est.estimate - truth:+.3f})")
+    assert abs(naive - truth) > 4 * est.std_error
+    assert abs(est.estimate - truth) < 3 * est.std_error
+
+
+def test_continuous_treatment_robinson_average():
+    # Continuous dose, constant effect 1.5: the Robinson residual-on-residual slope with
+    # its sandwich standard error (Robinson 1988).
+    rng = np.random.default_rng(2)
+    n = 1000
+    X = rng.uniform(-1, 1, (n, 2))
+    w = 0.5 * X[:, 0] + rng.normal(size=n)
+    y = X[:, 0] + 1.5 * w + rng.normal(scale=0.5, size=n)
+    est = _fit(X, y, w).average_effect()
+    assert est.method.startswith("Robinson")
+    assert abs(est.estimate - 1.5) < 3 * est.std_error
+    assert est.std_error < 0.1
+
+
+def test_ridge_penalty_without_refit_and_overlap():
+    X, y, w, _ = load_trial_demo(400, random_state=1)
+    f = _fit(X, y, w)
+    g = f.with_ridge_penalty(100.0)
+    assert g.forest_ is f.forest_
+    np.testing.assert_array_equal(g.predict_effect(X[:20]),
+                                  f.predict_effect(X[:20], ridge_penalty=100.0))
+    assert not np.allclose(g.predict_effect(X[:20]), f.predict_effect(X[:20]))
+    ov = f.overlap()
+    assert ov["by_arm"][1].size == int(w.sum())
+    assert not ov["flagged"].any()  # randomised at 0.5
+    W = f.neighbour_weights(X[:5])
+    np.testing.assert_allclose(np.asarray(W.sum(axis=1)).ravel(), 1.0)
+    lo, hi = f.effect_interval(X[:5], 0.9)
+    assert np.all(lo < hi)
+    with pytest.raises(ValueError, match="'method'"):
+        f.effect_interval(X[:5], method="bias_bound")
+
+
+def test_bad_input_clear_errors_and_state_kept():
+    X, y, w, _ = load_trial_demo(300, random_state=2)
+    f = TreatmentEffectForest(n_estimators=40, random_state=0).fit(X, y, w)
+    before = f.predict_effect(X[:10])
+    forest = f.forest_
+    with pytest.raises(ValueError, match="'treatment'.*300 rows"):
+        f.fit(X, y, w[:-1])
+    w_nan = w.copy()
+    w_nan[3] = np.nan
+    with pytest.raises(ValueError, match="'treatment'.*finite"):
+        f.fit(X, y, w_nan)
+    with pytest.raises(ValueError, match="single arm"):
+        f.fit(X, y, np.ones_like(w))
+    e = np.full(300, 0.5)
+    e[0] = 1.0
+    with pytest.raises(ValueError, match="'propensity_model'.*exactly 0 or 1"):
+        f.fit(X, y, w, propensity_model=e)
+    assert f.forest_ is forest
+    np.testing.assert_array_equal(f.predict_effect(X[:10]), before)
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(strict=True, reason=(
+    "measured miss: 20 seeded fits of the smooth trial (n=1000, 200 trees, 8 little "
+    "bags), 95% 'clt' intervals with the Satterthwaite Student-t quantile covered 0.976 "
+    "overall (above the 0.97 bound: too wide) and 0.967 at the edges (rms bias 0.036 "
+    "against mean std 0.111); with the normal quantile they covered 0.869 and 0.883"))
+def test_effect_interval_coverage_smooth_design():
+    # Coverage by the coverage readout's standard (0.93-0.97 overall, >= 0.90 at the
+    # edges) on the smooth trial design; the bias/variance split is printed.
+    hits, edge_hits, biases, stds = [], [], [], []
+    Xq = np.column_stack([np.linspace(-0.95, 0.95, 21), np.zeros(21), np.zeros(21)])
+    edge = np.abs(Xq[:, 0]) > 0.7
+    t = trial_effect_truth(Xq)
+    for rep in range(20):
+        X, y, w, _ = load_trial_demo(1000, random_state=100 + rep)
+        f = _fit(X, y, w)
+        tau, std = f.predict_effect(Xq, return_std=True)
+        lo, hi = f.effect_interval(Xq, 0.95)
+        hit = (lo <= t) & (t <= hi)
+        hits.append(hit.mean())
+        edge_hits.append(hit[edge].mean())
+        biases.append(tau - t)
+        stds.append(std)
+    bias = np.mean(biases, axis=0)
+    print(f"coverage {np.mean(hits):.3f} edges {np.mean(edge_hits):.3f}; "
+          f"rms bias {np.sqrt(np.mean(bias ** 2)):.3f} mean std {np.mean(stds):.3f}")
+    assert 0.93 <= np.mean(hits) <= 0.97
+    assert np.mean(edge_hits) >= 0.90
