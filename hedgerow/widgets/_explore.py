@@ -31,10 +31,21 @@ class Explorer(W.Tab):
         self.edges_view = EdgesView(session)
         self.tuning_view = TuningView(session)
         self.verdict_view = VerdictView(session)
-        views = [self.decision_view, self.probe_view, self.weights_view, self.edges_view,
-                 self.tuning_view, self.verdict_view]
-        super().__init__(children=views, titles=TAB_TITLES)
+        self._views = [self.decision_view, self.probe_view, self.weights_view,
+                       self.edges_view, self.tuning_view, self.verdict_view]
+        # each tab holds an empty box until it is first opened: a bqplot figure laid out
+        # inside a hidden tab has no width and draws negative-width rectangles (console
+        # errors); put in when its tab shows, it is laid out at its real size
+        self._slots = [W.Box(layout=W.Layout(width="100%")) for _ in self._views]
+        super().__init__(children=self._slots, titles=TAB_TITLES)
         self.add_class("hedgerow-explorer")
+        self.observe(self._on_tab_opened, "selected_index")
+        self._on_tab_opened()
+
+    def _on_tab_opened(self, change=None):
+        k = self.selected_index if self.selected_index is not None else 0
+        if not self._slots[k].children:
+            self._slots[k].children = [self._views[k]]
 
     def close(self):
         """Close the widget and cancel the session's background jobs (smoothers, ...)."""
@@ -43,7 +54,8 @@ class Explorer(W.Tab):
 
     @property
     def views(self):
-        return list(self.children)
+        """The views, in tab order (each is put in its tab when the tab is first opened)."""
+        return list(self._views)
 
     # -- view state (what a snapshot records besides the session) -------------------------
     def _legend(self):

@@ -134,10 +134,14 @@ class ProbeView(View):
         for name, mark in [*self.slice_marks.items(), ("95% band", self.band_mark),
                            ("local line", self.line_mark)]:
             colour = "local linear forest" if name in ("95% band", "local line") else name
-            box = W.Checkbox(value=True, indent=False, layout=W.Layout(width="auto"),
-                             description=name)
+            # a width for the whole name ("auto" cut it short); the swatch may not shrink
+            # (a flex row squeezed it to nothing once the box redrew)
+            box = W.Checkbox(value=True, indent=False, description=name,
+                             layout=W.Layout(width=f"{max(12, len(name) + 4)}ch"))
             W.jslink((box, "value"), (mark, "visible"))
-            boxes.append(W.HBox([W.HTML(swatch(colour, label=False)), box]))
+            chip = W.HTML(swatch(colour, label=False),
+                          layout=W.Layout(width="18px", min_width="18px", flex="0 0 auto"))
+            boxes.append(W.HBox([chip, box]))
         self._toggles.children = boxes
         self._readout_html = W.HTML(layout=W.Layout(margin="0 0 0 24px"))
         self._readout_html.add_class(CSS.probe_readout)

@@ -395,7 +395,8 @@ def test_coordinate_typed_outside_the_data_is_flagged(app, session):
 
 def test_decision_panel_is_the_first_tab_and_the_functions_numbers(app, session):
     view = app.decision_view
-    assert app.children[0] is view and app.selected_index in (None, 0)
+    assert app.views[0] is view and app.selected_index in (None, 0)
+    assert app.children[0].children == (view,)
     session.ridge_penalty = 0.05
     assert session.wait_for("verdict", 300) == "done"
     panel = view.panel
@@ -604,3 +605,29 @@ def test_weights_distance_axis_names_its_columns_and_edges_fade_rows(app, sessio
     marks = list(ev.figure.marks)
     assert max(marks.index(m) for m in ev.dot_marks.values()) < min(
         marks.index(m) for m in ev.mean_marks.values())  # means drawn on top
+
+
+def test_a_view_is_put_in_its_tab_when_the_tab_opens(app):
+    # a figure laid out in a hidden tab draws negative-width rectangles in the browser
+    k = app.views.index(app.edges_view)
+    slot = app.children[k]
+    assert slot.children in ((), (app.edges_view,))
+    before = app.selected_index
+    app.selected_index = k
+    assert slot.children == (app.edges_view,)
+    app.selected_index = 0
+    assert app.children[0].children == (app.decision_view,)
+    assert slot.children == (app.edges_view,)  # stays once opened
+    app.selected_index = before
+
+
+def test_legend_entries_have_room_for_their_names_and_keep_their_swatch(app):
+    view = app.probe_view
+    for row in view._toggles.children:
+        chip, box = row.children
+        assert int(box.layout.width.rstrip("ch")) >= len(box.description) + 4
+        assert chip.layout.min_width == chip.layout.width and chip.layout.flex == "0 0 auto"
+        html_before = chip.value
+        box.value = False
+        box.value = True
+        assert chip.value == html_before and row.children[0] is chip
