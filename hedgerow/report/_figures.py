@@ -177,7 +177,10 @@ def _weights_figure(Figure, pr, weights):
             1, len(prof), FIGURE_POINTS).astype(np.int64)) - 1]
         b.plot(steps["rank"], steps["cumulative"], color=c, lw=1.6, ls=line_style(name),
                drawstyle="steps-post", label=_mpl(label))
-    a.set_xlabel("distance from the probe (training s.d.)")
+    cols = next((p.attrs.get("distance_columns") for p in weights.values()), None) or []
+    shown = ", ".join(cols[:3]) + (f" +{len(cols) - 3}" if len(cols) > 3 else "")
+    a.set_xlabel(_mpl(f"distance from the probe in {shown} (training s.d.)") if cols
+                 else "distance from the probe (training s.d.)")
     a.set_ylabel("weight")
     a.set_title("who the probe listens to", loc="left", fontsize=10)
     a.legend(fontsize=7.5, loc="best")
