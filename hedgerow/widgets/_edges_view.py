@@ -95,19 +95,26 @@ class EdgesView(View):
                 if name not in prof.residuals:  # not fitted yet
                     continue
                 shift = (k - (len(self._order) - 1) / 2) * self._offset
+                # rows without a held-out prediction (NaN residual) and empty bands are
+                # left out: a NaN point is not drawable (the browser rejects its position)
                 r = prof.residuals[name].to_numpy()
-                self.dot_marks[name].x = prof.depth[self._rows]
-                self.dot_marks[name].y = r[self._rows]
+                ok = np.isfinite(r[self._rows])
+                self.dot_marks[name].x = prof.depth[self._rows][ok]
+                self.dot_marks[name].y = r[self._rows][ok]
                 b = prof.bands[prof.bands["method"] == name]
                 xm = self._band_mid + shift
-                self.mean_marks[name].x = xm
-                self.mean_marks[name].y = b["mean_residual"].to_numpy()
-                self.whisker_marks[name].x = np.column_stack([xm, xm])
-                self.whisker_marks[name].y = np.column_stack([b["lower"].to_numpy(),
-                                                              b["upper"].to_numpy()])
-            self.probe_rows_mark.x = prof.depth[heavy]
-            self.probe_rows_mark.y = prof.residuals[first].to_numpy()[heavy]
-            self.probe_rows_mark.size = size
+                mean = b["mean_residual"].to_numpy()
+                lo, hi = b["lower"].to_numpy(), b["upper"].to_numpy()
+                ok = np.isfinite(mean)
+                self.mean_marks[name].x, self.mean_marks[name].y = xm[ok], mean[ok]
+                ok &= np.isfinite(lo) & np.isfinite(hi)
+                self.whisker_marks[name].x = np.column_stack([xm[ok], xm[ok]])
+                self.whisker_marks[name].y = np.column_stack([lo[ok], hi[ok]])
+            r = prof.residuals[first].to_numpy()[heavy]
+            ok = np.isfinite(r)
+            self.probe_rows_mark.x = prof.depth[heavy][ok]
+            self.probe_rows_mark.y = r[ok]
+            self.probe_rows_mark.size = size[ok]
         rows = "".join(
             f"<tr><td>{swatch(r['method'])}</td><td class='hedgerow-value'>{fmt(r['bend'], 3)}"
             f"</td><td>{fmt(r['lower'], 3)} to {fmt(r['upper'], 3)}</td><td>{r['n']}</td></tr>"

@@ -315,6 +315,12 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
         page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         page.locator(".hedgerow-explorer").first.screenshot(
             path=str(ARTIFACTS / "explorer.png"))
+        # no console errors over the whole run (figures laid out in hidden tabs drew
+        # negative sizes; NaN points gave unparsable positions)
+        (ARTIFACTS / "explore-console.log").write_text("\n".join(page.console_lines))
+        errors = [line for line in page.console_lines if line.startswith("error")]
+        print(f"console: {len(page.console_lines)} lines, {len(errors)} errors")
+        assert errors == [], errors[:5]
     except BaseException:
         _save_failure(page, "explore-tabs")
         raise
@@ -328,16 +334,21 @@ def test_the_explorer_renders_in_notebook_7(lab, page):
     try:
         pg.goto(f"{lab['url']}/notebooks/{NOTEBOOK.name}?token={lab['token']}",
                 timeout=60_000)
-        readout = pg.locator(".hedgerow-probe-readout")
+        decision = pg.locator(".hedgerow-decision")
         # Run All can be lost while the kernel is still starting: retry a few times
         for _ in range(6):
             pg.locator(".lm-MenuBar-itemLabel", has_text="Run").first.click()
             pg.locator(".lm-Menu-itemLabel", has_text="Run All Cells").first.click()
             try:
-                readout.wait_for(state="visible", timeout=20_000)
+                decision.wait_for(state="visible", timeout=20_000)
                 break
             except Exception:  # noqa: BLE001 - playwright's timeout; try again
                 continue
+        # the explorer opens on the decision panel; the probe view is put in its tab
+        # when the tab is opened
+        pg.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
+        readout = pg.locator(".hedgerow-probe-readout")
+        readout.wait_for(state="visible", timeout=30_000)
         _wait_until(lambda: "±" in readout.inner_text(), 30, "the probe readout")
         _wait_until(lambda: "local linear (kernel)" in readout.inner_text(), 120,
                     "the smoother rows in the probe readout")

@@ -190,10 +190,13 @@ def test_edges_view_highlights_the_probe_rows(app, session):
     view = app.edges_view
     prof = session.edge_profile()
     w = session.probe_report().weights.toarray().ravel()
-    np.testing.assert_allclose(view.probe_rows_mark.x, prof.depth[w > 0])
+    # the rows carrying weight that have a held-out residual (NaN points are not drawn)
+    r = prof.residuals[view._order[0]].to_numpy()
+    np.testing.assert_allclose(view.probe_rows_mark.x, prof.depth[(w > 0) & np.isfinite(r)])
     for name, mark in view.mean_marks.items():
         b = prof.bands[prof.bands["method"] == name]
-        np.testing.assert_allclose(mark.y, b["mean_residual"])
+        m = b["mean_residual"].to_numpy()
+        np.testing.assert_allclose(mark.y, m[np.isfinite(m)])
     before = np.asarray(view.probe_rows_mark.x).copy()
     drag(app.probe_view, float(session.X_train[:, session.feature_names.index(
         app.probe_view.feature)].max()))
@@ -631,3 +634,16 @@ def test_legend_entries_have_room_for_their_names_and_keep_their_swatch(app):
         box.value = False
         box.value = True
         assert chip.value == html_before and row.children[0] is chip
+
+
+def test_edges_marks_hold_only_drawable_points(app, session):
+    ev = app.edges_view
+    prof = session.edge_profile()
+    for name, mark in ev.dot_marks.items():
+        if name not in prof.residuals:
+            continue
+        assert np.isfinite(np.asarray(mark.y)).all() and np.isfinite(np.asarray(mark.x)).all()
+        r = prof.residuals[name].to_numpy()[ev._rows]
+        assert len(mark.y) == np.isfinite(r).sum()
+        assert np.isfinite(np.asarray(ev.mean_marks[name].y)).all()
+    assert np.isfinite(np.asarray(ev.probe_rows_mark.y)).all()
