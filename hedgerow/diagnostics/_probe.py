@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -167,6 +168,28 @@ def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None,
     )
 
 
+_SUMMARIES = weakref.WeakKeyDictionary()
+
+
+def _column_summary(X):
+    """Return (sd with 1.0 for constant columns, min, max) of the training columns.
+
+    Computed once per training array (kept while the array lives): the probe's
+    neighbourhood offset and the outside-the-data check read it at every move.
+    """
+    try:
+        return _SUMMARIES[X]
+    except (KeyError, TypeError):
+        pass
+    sd = X.std(axis=0)
+    out = (np.where(sd > 0, sd, 1.0), X.min(axis=0), X.max(axis=0))
+    try:
+        _SUMMARIES[X] = out
+    except TypeError:  # not weak-referenceable: computed each time
+        pass
+    return out
+
+
 def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     """Return the ``ProbeReport`` of a fitted forest at the point ``x``.
 
@@ -211,12 +234,12 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     W = model.neighbour_weights(q)
     w = W.toarray().ravel()
     X = model.X_train_
-    sd = X.std(axis=0)
-    sd = np.where(sd > 0, sd, 1.0)
-    diff = (X - xq) / sd
-    offset = w @ diff
-    spread = w @ np.abs(diff)
-    lo, hi = X.min(axis=0), X.max(axis=0)
+    sd, lo, hi = _column_summary(X)
+    # over the rows with weight only: the probe's cost does not grow with n
+    nz = np.flatnonzero(w)
+    diff = (X[nz] - xq) / sd
+    offset = w[nz] @ diff
+    spread = w[nz] @ np.abs(diff)
     x0 = xq.reshape(-1)
     outside = tuple((names[j], float(x0[j]), float(lo[j]), float(hi[j]))
                     for j in np.flatnonzero((x0 < lo) | (x0 > hi)))

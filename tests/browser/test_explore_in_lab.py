@@ -18,6 +18,7 @@ import time
 import urllib.request
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -238,6 +239,15 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
             assert f"{row['prediction']:.4g}" in after, (name, after)
         assert rec1["probe_x"][1] > rec0["probe_x"][1]  # dragged right along sun_hours
         page.screenshot(path=str(ARTIFACTS / "explore-after-drag.png"))
+        # more drags, back and forth, for the latency figures (mouse-up to readout)
+        trips = [round_trip]
+        for k in range(6):
+            shown = readout.inner_text()
+            _wait_until(lambda: _settled(page, marker, 0.2), 20, "the probe marker")
+            released = _drag(page, marker, -60 if k % 2 == 0 else 60)
+            _wait_until(lambda shown=shown: readout.inner_text() != shown, 20,
+                        "the readout to follow a drag")
+            trips.append(time.perf_counter() - released)
 
         # the ridge slider, on the tuning tab, re-solves without refitting
         page.locator(".lm-TabBar-tabLabel", has_text="tuning").first.click()
@@ -245,14 +255,25 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         tuning.wait_for(state="visible", timeout=10_000)
         tuning_before = tuning.inner_text()
         handle = page.locator(".hedgerow-ridge-slider .noUi-handle").first
-        _drag(page, handle, 120)
+        released_ridge = _drag(page, handle, 120)
         _wait_until(lambda: tuning.inner_text() != tuning_before, 20, "the tuning readout")
+        ridge_trips = [time.perf_counter() - released_ridge]
         rec2 = _wait_until(
             lambda: (r := _read_record(lab["record"]))
             and r["ridge_penalty"] != rec1["ridge_penalty"] and r, 10, "the new penalty")
         assert rec2["ridge_penalty"] > rec1["ridge_penalty"]
         assert f"{rec2['oob_rmse']:.4g}" in tuning.inner_text()
         page.screenshot(path=str(ARTIFACTS / "explore-after-ridge.png"))
+        for k in range(4):
+            shown = tuning.inner_text()
+            released_ridge = _drag(page, handle, -40 if k % 2 == 0 else 40)
+            _wait_until(lambda shown=shown: tuning.inner_text() != shown, 20,
+                        "the tuning readout to follow the slider")
+            ridge_trips.append(time.perf_counter() - released_ridge)
+        rec2 = _wait_until(
+            lambda: (r := _read_record(lab["record"]))
+            and f"{r['oob_rmse']:.4g}" in tuning.inner_text() and r, 20,
+            "the kernel record of the penalty shown")
         page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         llf = rec2["readout"]["local linear forest"]["prediction"]
         _wait_until(lambda: f"{llf:.4g}" in readout.inner_text(), 10,
@@ -273,8 +294,10 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
                     and "ridge penalty 0.1" in settings.inner_text(), 120,
                     "the clicked setting in the settings line")
         (ARTIFACTS / "timings.json").write_text(json.dumps(
-            {"probe_drag_round_trip_s": round_trip}))
-        print(f"probe drag: mouse-up to readout change {1000 * round_trip:.0f} ms")
+            {"probe_drag_round_trips_s": trips, "ridge_round_trips_s": ridge_trips}))
+        for what, rt in (("probe drag", trips), ("ridge slider", ridge_trips)):
+            print(f"{what}: mouse-up to readout change over {len(rt)} drags: p50 "
+                  f"{1000 * np.median(rt):.0f} ms, p95 {1000 * np.percentile(rt, 95):.0f} ms")
     except BaseException:
         _save_failure(page, "explore")
         raise
