@@ -13,6 +13,7 @@ from sklearn.base import clone
 from hedgerow._progress import progress_bar
 from hedgerow.diagnostics._heldout import edge_depth
 from hedgerow.diagnostics._report import ReportMixin
+from hedgerow.diagnostics._verdict import EDGE_BAND
 
 __all__ = ["FLAG_OFF_CENTRE", "FLAG_TOO_NARROW", "CoverageReport", "coverage_readout"]
 
@@ -297,7 +298,7 @@ def coverage_readout(model, X=None, y=None, *, truth=None, reps=20, level=0.95,
         mode = "surrogate truth (additive spline)"
     resid = y - mean
     depth, _, _ = edge_depth(X, model.correction_features_)
-    edge = depth[eval_idx] < 0.10
+    edge = depth[eval_idx] < EDGE_BAND
     params = model.get_params()
     forest_keys = HonestForestRegressor().get_params().keys()
     templates = {

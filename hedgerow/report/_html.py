@@ -205,9 +205,10 @@ def _edges_html(r) -> str:
            _table(["method", "edge depth band", "rows", "mean residual", "95% interval",
                    "RMSE"], rows, "hr-edges")]
     if len(ep.bend):
-        out.append("<h3>Inward-bend score (outer 10%)</h3><p>Mean of residual x side x "
-                   "sign(local slope) over the edge band: positive means the predictions "
-                   "bend toward the interior at the edges, a forest's edge bias.</p>")
+        out.append(f"<h3>Inward-bend score (outer {100 * D.EDGE_BAND:.0f}%)</h3><p>Mean of "
+                   "residual x side x sign(local slope) over the edge band: positive means "
+                   "the predictions bend toward the interior at the edges, a forest's edge "
+                   "bias.</p>")
         out.append(_table(["method", "score", "95% interval", "rows"],
                           [[_method_cell(row["method"]), number(row["bend"]),
                             f"{number(row['lower'])} to {number(row['upper'])}", number(row["n"])]
