@@ -18,6 +18,8 @@ from hedgerow.diagnostics._verdict import EDGE_BAND
 __all__ = ["EdgeProfile", "edges", "DEPTH_BANDS"]
 
 #: Band edges of edge depth: outer 5%, 5-10%, 10-25%, interior.
+#: Edge rows whose local slopes are solved in one batch (bounds the query state's memory).
+SLOPE_BLOCK = 4096
 DEPTH_BANDS = (0.0, 0.05, 0.10, 0.25, 0.5 + 1e-12)
 
 
@@ -129,7 +131,14 @@ def edges(models, X=None, y=None, *, columns=None, slope_model=None, level=0.95)
     edge = depth < EDGE_BAND
     bend_rows = []
     if slope_model is not None and np.any(edge):
-        slopes = np.asarray(slope_model.local_slopes(checked_rows(X[edge], slope_model)))
+        # in row blocks: one batch over every edge row (half of a large table) holds the
+        # query state of all of them against every tree at once; rows are independent,
+        # so the slopes are the same
+        Xe = X[edge]
+        slopes = np.concatenate([
+            np.asarray(slope_model.local_slopes(checked_rows(Xe[i:i + SLOPE_BLOCK],
+                                                             slope_model)))
+            for i in range(0, Xe.shape[0], SLOPE_BLOCK)])
         if hasattr(slope_model, "correction_features_"):
             pos = {c: i for i, c in enumerate(slope_model.correction_features_)}
             idx = np.array([pos.get(c, -1) for c in column[edge]])

@@ -284,3 +284,20 @@ def test_probe_outside_the_data_names_the_column_and_span():
     assert rep.outside_note() in rep._notes()
     below = Dg.probe(model, np.array([100.0, 79.0]))
     assert [o[0] for o in below.outside] == ["x1"]
+
+
+def test_edges_slopes_in_blocks_are_the_one_batch_slopes(monkeypatch):
+    from hedgerow import LocalLinearForestRegressor
+    from hedgerow import diagnostics as D
+    from hedgerow.datasets import load_pump_demo, split_demo
+    from hedgerow.diagnostics import _edges
+
+    X, y, _ = split_demo(load_pump_demo(400, random_state=2))
+    m = LocalLinearForestRegressor(n_estimators=40, random_state=1).fit(X, y)
+    models = {"local linear forest": m}
+    whole = D.edges(models)
+    monkeypatch.setattr(_edges, "SLOPE_BLOCK", 7)  # many blocks, a ragged last one
+    blocked = D.edges(models)
+    assert (whole.depth < D.EDGE_BAND).sum() > 7 * 3
+    pd_testing = __import__("pandas").testing
+    pd_testing.assert_frame_equal(whole.bend, blocked.bend)
