@@ -35,7 +35,12 @@ from hedgerow.diagnostics._probe import TOP_ROWS, WIDE_COLUMNS, MethodAtProbe, P
 from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._split_half import SELECTIONS, SplitHalfReport, split_half_agreement
-from hedgerow.diagnostics._tuning import TuningSurface, surface_column, tuning_surface
+from hedgerow.diagnostics._tuning import (
+    SURFACE_COLUMNS,
+    TuningSurface,
+    surface_column,
+    tuning_surface,
+)
 from hedgerow.diagnostics._verdict import (
     DECISIONS,
     EDGE_BAND,
@@ -50,6 +55,7 @@ __all__ = [
     "CAUTIONS_LINK",
     "DecisionPanel",
     "decision_panel",
+    "SURFACE_COLUMNS",
     "surface_column",
     "at_ridge_penalty",
     "check_probe_point",

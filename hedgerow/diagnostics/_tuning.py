@@ -15,6 +15,10 @@ from hedgerow.diagnostics._report import ReportMixin
 __all__ = ["TuningSurface", "surface_column", "tuning_surface"]
 
 
+#: Columns of a tuning-surface cell (``TuningSurface.frame`` without coverage), in order.
+SURFACE_COLUMNS = ("subsample_rate", "ridge_penalty", "oob_rmse", "mean_width", "n_rows")
+
+
 @dataclass(frozen=True)
 class TuningSurface(ReportMixin):
     """Out-of-bag RMSE and mean interval width for every (subsample rate, penalty) cell.
@@ -107,8 +111,7 @@ def surface_column(X, y, subsample_rate, ridge_penalties, *, level=0.95, random_
     forest_params = {k: v for k, v in forest_params.items() if k != "subsample_rate"}
     model, _ = _fit_rate(X, y, rates[0], random_state, n_jobs, forest_params, progress)
     rows = [_cell(model, rates[0], lam, level) for lam in lams]
-    return pd.DataFrame(rows, columns=["subsample_rate", "ridge_penalty", "oob_rmse",
-                                       "mean_width", "n_rows"]), model
+    return pd.DataFrame(rows, columns=list(SURFACE_COLUMNS)), model
 
 
 def _cell(model, rate, lam, level) -> dict:
@@ -198,7 +201,7 @@ def tuning_surface(X, y, subsample_rates, ridge_penalties, *, level=0.95, progre
         bar.close()
     # cells in grid order whatever order the rates finished in
     rows = [row for i in sorted(by_rate) for row in by_rate[i]]
-    columns = ["subsample_rate", "ridge_penalty", "oob_rmse", "mean_width", "n_rows"]
+    columns = list(SURFACE_COLUMNS)
     if coverage_reps and complete:
         try:
             cbar = progress_bar(len(rows), "coverage per cell", progress)

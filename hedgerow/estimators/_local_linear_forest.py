@@ -305,7 +305,7 @@ class LocalLinearForestRegressor(_ForestBase):
         self._leaf_features()
 
     def _query_state(self, X):
-        """Return (leaves, None, moments) of the queries X, cached by the bytes of X."""
+        """Return (leaves, moments) of the queries X, cached by the bytes of X."""
         def compute():
             leaves = self._leaves(X)
             # W @ [moment features] as averages of per-leaf means: no m × n weight matrix
@@ -313,7 +313,7 @@ class LocalLinearForestRegressor(_ForestBase):
             R, _ = self.forest_.weighted_sums(leaves, means, n_jobs=self._n_threads())
             mom = moments_from_sums(R, X[:, self.correction_features_], centre,
                                     self.correction_scale_)
-            return leaves, None, mom
+            return leaves, mom
 
         return lru_lookup(self._fit_cache, "query state", array_key(X), compute,
                           size=_CACHE_SIZE)
@@ -337,7 +337,7 @@ class LocalLinearForestRegressor(_ForestBase):
                                                    n_jobs=self._n_threads())
             # rows without an out-of-bag tree have zero total weight: NaN in the solve
             mom = moments_from_sums(R, self._Xc, centre, self.correction_scale_)
-            cache["oob state"] = (leaves, usable, None, n_used, mom)
+            cache["oob state"] = (leaves, usable, n_used, mom)
         return cache["oob state"]
 
     def _penalty(self, ridge_penalty):
@@ -362,7 +362,7 @@ class LocalLinearForestRegressor(_ForestBase):
             leaves, usable, self.forest_, means, offset, gamma, n_jobs=self._n_threads()
         )
 
-    def _std(self, leaves, usable, W, Qc, fit):
+    def _std(self, leaves, usable, Qc, fit):
         self._require_bags()
         psi = self._tree_terms(leaves, usable, Qc, fit)
         return little_bags_variance(psi, self.trees_per_bag_)
@@ -382,13 +382,13 @@ class LocalLinearForestRegressor(_ForestBase):
     def _line_fit(self, X, leaves, line, Qc):
         if not line.get("own"):
             return super()._line_fit(X, leaves, line, Qc)
-        _, _, mom = self._query_state(X)
+        _, mom = self._query_state(X)
         return self._solve(mom, self.ridge_penalty_)
 
     def _clt_parts(self, X):
-        leaves, W, mom = self._query_state(X)
+        leaves, mom = self._query_state(X)
         fit = self._solve(mom, self.ridge_penalty_)
-        var = self._std(leaves, None, W, X[:, self.correction_features_], fit)
+        var = self._std(leaves, None, X[:, self.correction_features_], fit)
         return fit.intercept, var.std
 
     # -- public --------------------------------------------------------------------------
@@ -405,7 +405,7 @@ class LocalLinearForestRegressor(_ForestBase):
 
     def _ridge_path_in_units(self, ridge_penalties) -> np.ndarray:
         """The out-of-bag errors of ``ridge_path`` divided by ``_y_unit ** 2`` (exactly)."""
-        _, _, _, n_used, mom = self._oob_state()
+        _, _, n_used, mom = self._oob_state()
         ok = n_used > 0
         unit = self._y_unit
         out = []
@@ -432,7 +432,7 @@ class LocalLinearForestRegressor(_ForestBase):
         lam = self._penalty(ridge_penalty)
         if return_std:
             self._require_bags()
-        leaves, W, mom = self._query_state(X)
+        leaves, mom = self._query_state(X)
         fit = self._solve(mom, lam)
         warn_fallback(fit, "local linear forest")
         if not return_std:
@@ -443,7 +443,7 @@ class LocalLinearForestRegressor(_ForestBase):
     def local_fit(self, X, *, ridge_penalty=None):
         """Return the solver's ``LocalFit`` (intercept, slopes, Gram inverse) at X."""
         X = check_predict_data(self, X)
-        _, _, mom = self._query_state(X)
+        _, mom = self._query_state(X)
         return self._solve(mom, self._penalty(ridge_penalty))
 
     def local_slopes(self, X, *, ridge_penalty=None):
@@ -458,7 +458,7 @@ class LocalLinearForestRegressor(_ForestBase):
         """
         X = check_predict_data(self, X)
         self._require_bags()
-        leaves, _, mom = self._query_state(X)
+        leaves, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
         return self._slope_std_of(leaves, X, fit)
 
@@ -492,9 +492,9 @@ class LocalLinearForestRegressor(_ForestBase):
         """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
         X = check_predict_data(self, X)
         self._require_bags()
-        leaves, W, mom = self._query_state(X)
+        leaves, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
-        return self._std(leaves, None, W, X[:, self.correction_features_], fit)
+        return self._std(leaves, None, X[:, self.correction_features_], fit)
 
     def oob_predict(self, return_std=False, *, ridge_penalty=None):
         """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
@@ -502,7 +502,7 @@ class LocalLinearForestRegressor(_ForestBase):
         lam = self._penalty(ridge_penalty)
         if return_std:
             self._require_bags()
-        leaves, usable, W, n_used, mom = self._oob_state()
+        leaves, usable, n_used, mom = self._oob_state()
         self._warn_unusable(n_used, "training rows (out-of-bag)")
         fit = self._solve(mom, lam)
         if not return_std:
@@ -538,7 +538,7 @@ class LocalLinearForestRegressor(_ForestBase):
         and ``slope_std``.
         """
         X = check_predict_data(self, X)
-        leaves, W, mom = self._query_state(X)
+        leaves, mom = self._query_state(X)
         fit = self._solve(mom, self._penalty(ridge_penalty))
         if self.trees_per_bag_ < 2:
             return fit, None, None

@@ -36,7 +36,6 @@ _CACHE = 64
 #: penalties (no refit).
 SURFACE_RATES = (0.1, 0.2, 0.3, 0.4, 0.5)
 SURFACE_PENALTIES = (0.0, 0.001, 0.01, 0.1, 1.0, 10.0)
-SURFACE_COLUMNS = ["subsample_rate", "ridge_penalty", "oob_rmse", "mean_width", "n_rows"]
 
 
 #: Raised inside a refit's (any job's) progress report once it was cancelled.
@@ -417,7 +416,7 @@ class ExploreSession(t.HasTraits):
         cols = [f for (k, lam_key, _), f in sorted(self._surface.items(), key=lambda kv:
                                                     kv[0][2]) if k == key and lam_key == lams]
         if not cols:
-            return pd.DataFrame(columns=SURFACE_COLUMNS)
+            return pd.DataFrame(columns=list(D.SURFACE_COLUMNS))
         return pd.concat(cols, ignore_index=True)
 
     def request_surface(self, rates=SURFACE_RATES, penalties=SURFACE_PENALTIES) -> list:

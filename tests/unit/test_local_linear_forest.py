@@ -252,7 +252,7 @@ def test_leaf_mean_linearisation_equals_row_by_row(design, fitted):
         np.testing.assert_allclose(fast, slow, rtol=1e-9, atol=1e-9)
     leaves_oob = fitted.forest_.apply(X)
     usable = ~fitted.forest_.inbag(np.arange(X.shape[0]))
-    fit_oob = fitted._solve(fitted._oob_state()[4], fitted.ridge_penalty_)
+    fit_oob = fitted._solve(fitted._oob_state()[3], fitted.ridge_penalty_)
     fast = fitted._tree_terms(leaves_oob, usable, X[:, cols], fit_oob)
     slow = linearised_tree_predictions(
         leaves_oob, usable, fitted.forest_, X[:, cols], y, X[:, cols],
