@@ -10,6 +10,7 @@ from numbers import Integral, Real
 
 import numpy as np
 from joblib import effective_n_jobs
+from scipy.stats import t as student_t
 from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import Interval, RealNotInt, StrOptions
@@ -143,6 +144,33 @@ class TinyDataWarning(UserWarning):
     """The data are too few for any tree to split; every tree is a single leaf."""
 
 
+class FewBagsWarning(UserWarning):
+    """The forest has too few little bags for its intervals to be narrow enough to use."""
+
+
+#: Below this many little bags a fit warns (``FewBagsWarning``): with G bags the
+#: little-bags variance rests on at most G - 1 degrees of freedom, and the Student-t
+#: quantile of the default interval is then more than 1.2x the normal one at 95%
+#: (t(0.975, 7) / z(0.975) = 1.21; t(0.975, 1) / z(0.975) = 6.5).
+MIN_INTERVAL_BAGS = 8
+
+
+def _warn_few_bags(n_estimators: int, trees_per_bag: int, stacklevel: int) -> None:
+    n_bags = n_estimators // trees_per_bag
+    if trees_per_bag < 2 or n_bags >= MIN_INTERVAL_BAGS:
+        return
+    ratio = float(student_t.ppf(0.975, max(n_bags - 1, 1)) / student_t.ppf(0.975, np.inf))
+    warnings.warn(
+        f"Few little bags for intervals: n_estimators={n_estimators} in bags of "
+        f"trees_per_bag={trees_per_bag} gives {n_bags} bags, so each interval's variance "
+        f"rests on at most {max(n_bags - 1, 1)} degree(s) of freedom and the default "
+        f"95% interval is at least {ratio:.2f}x as wide as a normal one. Grow "
+        f"n_estimators >= {MIN_INTERVAL_BAGS * trees_per_bag} ({MIN_INTERVAL_BAGS} bags) "
+        f"for intervals; predictions are not affected.",
+        FewBagsWarning, stacklevel=stacklevel,
+    )
+
+
 # Bags much larger than this gain little (VARIANCE-NOTES: any l within a factor two of the
 # optimum 1 + W/V costs at most ~15% extra variance, and W/V was 33-66 here).
 _MAX_AUTO_BAG = 32
@@ -274,6 +302,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
                 f"larger subsample_rate or a smaller min_samples_leaf.",
                 TinyDataWarning, stacklevel=4,
             )
+        _warn_few_bags(self.n_estimators, l, stacklevel=4)
         return l, mtry, s
 
     def _n_threads(self) -> int:
@@ -546,7 +575,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         line = self._corrected_line()
         leaves, usable = self._oob_parts()
         if line.get("own"):
-            _, _, _, n_used, mom = self._oob_state()
+            _, _, n_used, mom = self._oob_state()
             fit = self._solve(mom, self.ridge_penalty_)
             Qc = line["Xc"]
         else:

@@ -3,6 +3,8 @@
 Messages name the parameter or column, what was expected and what was received.
 """
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -490,3 +492,45 @@ def test_fast_predict_path_keeps_the_checks_of_the_general_one():
     with pytest.raises(ValueError, match="NaN"):
         check_predict_data(plain, bad)
     np.testing.assert_array_equal(named.predict(frame.iloc[:7]), plain.predict(X[:7]))
+
+
+# -- few little bags (issue: intervals) ---------------------------------------------------
+def test_few_little_bags_warn_with_the_width_cost_and_the_tree_count_to_grow():
+    # 60 trees fall into 2 bags of 30: the variance has 1 degree of freedom and the
+    # Student-t 95% quantile is 12.71 / 1.96 = 6.5x the normal one (t tables)
+    import re
+
+    from hedgerow.estimators import MIN_INTERVAL_BAGS, FewBagsWarning
+
+    rng = np.random.default_rng(0)
+    X = rng.uniform(size=(300, 3))
+    y = X[:, 0] + rng.normal(scale=0.1, size=300)
+    with pytest.warns(FewBagsWarning) as rec:
+        few = HonestForestRegressor(n_estimators=60, random_state=0).fit(X, y)
+    msg = str(rec[0].message)
+    assert few.trees_per_bag_ == 30
+    assert "2 bags" in msg and "n_estimators=60" in msg and "trees_per_bag=30" in msg
+    assert float(re.search(r"at least ([0-9.]+)x", msg).group(1)) == pytest.approx(6.48,
+                                                                                  abs=0.01)
+    assert f"n_estimators >= {MIN_INTERVAL_BAGS * 30}" in msg
+    # predictions are those of the same forest without the warning: it changes nothing
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FewBagsWarning)
+        again = HonestForestRegressor(n_estimators=60, random_state=0).fit(X, y)
+    np.testing.assert_array_equal(few.predict(X[:20]), again.predict(X[:20]))
+
+
+@pytest.mark.parametrize("params", [
+    {"n_estimators": 200},                      # 8 bags of 25: the explorer's default
+    {"n_estimators": 60, "trees_per_bag": 1},   # no bags asked for: no intervals to warn of
+    {"n_estimators": 7},                        # a prime: "auto" gives bags of 1
+])
+def test_enough_bags_or_none_do_not_warn(params):
+    from hedgerow.estimators import FewBagsWarning
+
+    rng = np.random.default_rng(1)
+    X = rng.uniform(size=(200, 2))
+    y = X[:, 0] + rng.normal(scale=0.1, size=200)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", FewBagsWarning)
+        HonestForestRegressor(random_state=0, **params).fit(X, y)
