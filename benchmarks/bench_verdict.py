@@ -2,8 +2,12 @@
 
 Goal: the 5-fold verdict (plain honest forest, scikit-learn's forest, no smoothers) costs
 at most 6x one ``LocalLinearForestRegressor().fit`` on the same rows with the same thread
-budget. Also printed: the parts (one fold's fits), the variants (split_rule="mean", where
-the plain forest's trees are the correction's trees; no scikit-learn forest; the preview)
+budget. The verdict's fold forests grow ``FOLD_TREES`` (500) trees of ours and
+``SKLEARN_FOREST`` (200) of scikit-learn's; that their numbers match the full forests' is
+checked in tests/reference/test_verdict_cost.py. Also printed: the parts (one fold's fits),
+the variants (the full forests, ``fold_trees=None`` with a 500-tree scikit-learn forest;
+split_rule="mean", where the plain forest's trees are the correction's trees; no
+scikit-learn forest; the preview)
 and one ``RandomForestRegressor(**SKLEARN_FOREST).fit`` as an outside reference measured
 in the same run. Best of ``--repeat`` runs each.
 
@@ -25,6 +29,12 @@ def _best(fn, repeat):
     return best
 
 
+def _full(verdict, V, mock, X, y, forest, nj):
+    with mock.patch.dict(V.SKLEARN_FOREST, {"n_estimators": 500}):
+        return verdict(X, y, forest=forest, smoothers=None, n_jobs=nj, progress=False,
+                       fold_trees=None)
+
+
 def main(argv=None):
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--n", type=int, default=1000)
@@ -33,12 +43,15 @@ def main(argv=None):
     p.add_argument("--repeat", type=int, default=2)
     args = p.parse_args(argv)
 
+    from unittest import mock
+
     from sklearn.ensemble import RandomForestRegressor
 
     from hedgerow import HonestForestRegressor, LocalLinearForestRegressor
     from hedgerow.datasets import load_pump_demo, split_demo
+    from hedgerow.diagnostics import _verdict as V
     from hedgerow.diagnostics import verdict
-    from hedgerow.diagnostics._verdict import SKLEARN_FOREST
+    from hedgerow.diagnostics._verdict import FOLD_TREES, SKLEARN_FOREST
     from hedgerow.forest import warm_up
 
     warm_up()
@@ -52,17 +65,22 @@ def main(argv=None):
 
     cut = int(0.8 * len(y))
     fit = _best(lambda: llf().fit(X, y), args.repeat)
+    k = min(args.trees, FOLD_TREES)
     parts = {
-        "one fold: local linear forest": _best(lambda: llf().fit(X[:cut], y[:cut]), args.repeat),
-        "one fold: plain honest forest": _best(lambda: HonestForestRegressor(
-            n_estimators=args.trees, random_state=0, n_jobs=nj).fit(X[:cut], y[:cut]),
+        f"one fold: local linear forest ({k} trees)": _best(lambda: LocalLinearForestRegressor(
+            n_estimators=k, random_state=0, n_jobs=nj).fit(X[:cut], y[:cut]), args.repeat),
+        f"one fold: plain honest forest ({k} trees)": _best(lambda: HonestForestRegressor(
+            n_estimators=k, random_state=0, n_jobs=nj).fit(X[:cut], y[:cut]),
             args.repeat),
-        "one fold: scikit-learn forest": _best(lambda: RandomForestRegressor(
-            **SKLEARN_FOREST, random_state=0, n_jobs=nj).fit(X[:cut], y[:cut]), args.repeat),
+        f"one fold: scikit-learn forest ({SKLEARN_FOREST['n_estimators']} trees)": _best(
+            lambda: RandomForestRegressor(**SKLEARN_FOREST, random_state=0, n_jobs=nj).fit(
+                X[:cut], y[:cut]), args.repeat),
     }
     runs = {
         "verdict, 5 folds (default baselines)": lambda: verdict(
             X, y, forest=llf(), smoothers=None, n_jobs=nj, progress=False),
+        "verdict, 5 folds, full forests (fold_trees=None, 500 sklearn trees)": lambda: _full(
+            verdict, V, mock, X, y, llf(), nj),
         "verdict, 5 folds, split_rule='mean' (trees reused)": lambda: verdict(
             X, y, forest=llf(split_rule="mean"), smoothers=None, n_jobs=nj, progress=False),
         "verdict, 5 folds, no scikit-learn forest": lambda: verdict(

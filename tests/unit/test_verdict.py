@@ -177,7 +177,8 @@ def test_preview_is_labelled_and_others_join_cross_fit():
 @pytest.mark.parametrize("kw, match", [
     ({"folds": 1}, "'folds'"), ({"folds": 2.5}, "'folds'"), ({"scoring": "oob"}, "'scoring'"),
     ({"on_new_data": "ignore"}, "'on_new_data'"), ({"level": 1.5}, "'level'"),
-    ({"smoothers": "loo"}, "'smoothers'"),
+    ({"smoothers": "loo"}, "'smoothers'"), ({"fold_trees": 0}, "'fold_trees'"),
+    ({"fold_trees": 2.5}, "'fold_trees'"), ({"fold_trees": True}, "'fold_trees'"),
 ])
 def test_bad_parameters_name_themselves(kw, match):
     X, y = _design(11, n=40)
@@ -194,3 +195,26 @@ def test_decision_follows_the_interval_against_the_best_alternative():
     assert v.decision == expected and f"Decision: {expected}" in v.conclusion
     alts = v.comparisons[v.comparisons["role"] == "alternative"]
     assert r["mse"] == alts["mse"].min()
+
+
+@pytest.mark.parametrize("trees, per_bag, fold_trees, grown", [
+    (60, "auto", 20, 20), (60, 10, 25, 20), (60, 10, 5, 10), (60, "auto", None, 60),
+    (60, "auto", 100, 60),
+])
+def test_fold_forests_grow_at_most_fold_trees_in_whole_bags(trees, per_bag, fold_trees, grown):
+    # each fold's forests are clones of the forest at fold_trees trees (rounded down to whole
+    # bags, never below one bag); the numbers are those of such clones fitted by hand
+    X, y = _design(13)
+    forest = LocalLinearForestRegressor(n_estimators=trees, trees_per_bag=per_bag,
+                                        random_state=3)
+    v = verdict(X, y, forest=forest, smoothers=None, baseline=False, progress=False,
+                fold_trees=fold_trees)
+    assert f"n_estimators={grown}," in v.settings[LLF]
+    assert f"n_estimators={grown}," in v.settings[PLAIN]
+    fold = fold_assignment(y.size, 5, 0)
+    pred = np.empty(y.size)
+    for k in range(5):
+        tr, te = fold != k, fold == k
+        pred[te] = clone(forest).set_params(n_estimators=grown).fit(X[tr], y[tr]).predict(
+            X[te])
+    np.testing.assert_allclose(v.errors[LLF], (y - pred) ** 2, rtol=1e-10)
