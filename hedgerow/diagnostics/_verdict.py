@@ -110,12 +110,18 @@ class Verdict(ReportMixin):
     ``edge_depth``. ``comparisons``: one row per method the local linear forest is compared
     with: its gain over that method (share of the method's held-out squared error it
     removes; negative = worse) with the interval, overall, in the edge band and in the
-    interior; ``mse`` of that method; ``role`` ("alternative" or "diagnostic");
+    interior; ``mse`` of that method; ``role``: "alternative" (a forest a user would
+    otherwise fit, or a regressor passed in ``others``: these decide), "diagnostic" (the
+    same-trees local average) or "smoother" (a kernel smoother: shown, and said in
+    ``smoother_note``, but the decision weighs the local linear forest against forests, so
+    it reads the same with or without smoothers);
     ``rows_for_half`` / ``share_of_half`` (``carrying_rows``) and ``fragile``.
     ``decision``: one of ``DECISIONS``, ``"incomplete"`` or ``"constant target"``.
     ``best_alternative``: the alternative with the lowest held-out error, the one the
     sentence leads with. ``scoring``: ``"cross-fit, K folds"`` or ``PREVIEW``.
     ``folds_done`` of ``folds``; ``data_note``: what was done with a fitted forest's rows.
+    ``smoother_note``: the gain against the best kernel smoother, in words ("" without
+    smoothers).
     """
 
     errors: pd.DataFrame
@@ -129,6 +135,7 @@ class Verdict(ReportMixin):
     folds_done: int = 0
     settings: dict | None = None
     data_note: str = ""
+    smoother_note: str = ""
     _title = "verdict"
 
     def to_frame(self) -> pd.DataFrame:
@@ -136,6 +143,8 @@ class Verdict(ReportMixin):
 
     def _notes(self):
         notes = [self.conclusion, f"scored by {self.scoring}"]
+        if self.smoother_note:
+            notes.append(self.smoother_note)
         if self.settings and SKLEARN in self.settings:
             notes.append(f"{SKLEARN}: {self.settings[SKLEARN]}")
         if self.data_note:
@@ -144,6 +153,29 @@ class Verdict(ReportMixin):
 
 
 # -- the sentence -----------------------------------------------------------------------------
+def _smoother_note(comparisons, level):
+    """Return the gain against the best kernel smoother in words ("" when none scored)."""
+    sm = comparisons[(comparisons["role"] == "smoother") & np.isfinite(comparisons["mse"])]
+    if sm.empty:
+        return ""
+    best = str(sm["mse"].idxmin())
+    r = sm.loc[best]
+    g, lo, hi = r["gain_all"], r["lower_all"], r["upper_all"]
+    if not np.isfinite(g):
+        return ""
+    pct = f"{100 * level:.0f}%"
+    if g >= 0:
+        head = (f"lowers held-out error by {_pc(g)} ({pct} interval {_pc(lo, True)} to "
+                f"{_pc(hi, True)})")
+    else:
+        head = (f"raises held-out error by {_pc(-g)} ({pct} interval {_pc(-hi, True)} to "
+                f"{_pc(-lo, True)})")
+    tail = (" The smoother does better: a forest may not be needed here." if hi < 0 else "")
+    return (f"Kernel smoothers (shown, not part of the decision): against the best, the "
+            f"{best}, the local linear forest {head}.{tail}")
+
+
+
 def _pc(v, signed=False):
     """Return a percentage; one decimal below 10% so a small change does not read as 0."""
     digits = 1 if abs(v) < 0.095 else 0
@@ -336,7 +368,7 @@ def _sklearn_template(random_state, n_jobs):
 
 
 def _specs(template, smoothers, baseline, others, random_state, n_jobs, view_penalty=None):
-    """Return ``[(label, template, extra)]`` and ``{label: role}`` for the comparison."""
+    """Return ``[(label, template, extra)]`` and the labels of the kernel smoothers."""
     from sklearn.base import clone
 
     specs = [(LLF, template, {"penalty": view_penalty})]
@@ -353,7 +385,9 @@ def _specs(template, smoothers, baseline, others, random_state, n_jobs, view_pen
 
         smoothers = [NadarayaWatsonRegressor(), LocalLinearRegressor()]
     taken = {s[0] for s in specs}
-    for m in list(smoothers or ()) + list(others or ()):
+    smoother_labels = []
+    n_smoothers = len(list(smoothers or ()))
+    for i_m, m in enumerate(list(smoothers or ()) + list(others or ())):
         if not hasattr(m, "fit") or not hasattr(m, "predict"):
             raise TypeError(f"The 'smoothers' and 'others' parameters must hold regressors "
                             f"with fit and predict. Got {type(m).__name__} instead.")
@@ -362,7 +396,9 @@ def _specs(template, smoothers, baseline, others, random_state, n_jobs, view_pen
             label, i = f"{method_label(m)} ({i})", i + 1
         taken.add(label)
         specs.append((label, clone(m), None))
-    return specs
+        if i_m < n_smoothers:
+            smoother_labels.append(label)
+    return specs, smoother_labels
 
 
 def _settings(specs):
@@ -475,12 +511,14 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, fo
 
         client = check_client(client)
     fold_trees = _check_fold_trees(fold_trees)
-    specs = _specs(_with_fold_trees(template, fold_trees) if scoring == "cross-fit"
-                   else template, smoothers, baseline,
-                   others if scoring == "cross-fit" else None, random_state, n_jobs,
-                   view_penalty)
+    specs, smoother_labels = _specs(
+        _with_fold_trees(template, fold_trees) if scoring == "cross-fit" else template,
+        smoothers, baseline, others if scoring == "cross-fit" else None, random_state,
+        n_jobs, view_penalty)
     roles = {label: "alternative" for label, _, _ in specs}
     roles[SAME_TREES] = "diagnostic"
+    for label in smoother_labels:
+        roles[label] = "smoother"
     labels = [LLF, SAME_TREES] + [s[0] for s in specs[1:]]
     if scoring == "preview":
         preds, cols = _preview(X, ya, template, fitted, specs, view_penalty)
@@ -525,7 +563,8 @@ def verdict(X, y, *, forest=None, smoothers="cv", baseline=True, others=None, fo
     return Verdict(errors=errors, comparisons=comparisons, conclusion=conclusion,
                    level=level, decision=decision, best_alternative=best,
                    scoring=label_scoring, folds=folds, folds_done=done,
-                   settings=_settings(specs), data_note=note)
+                   settings=_settings(specs), data_note=note,
+                   smoother_note=_smoother_note(comparisons, level))
 
 
 def _run_folds(X, y, fold, folds, specs, progress, client, cache=None):

@@ -163,7 +163,8 @@ def _warn_few_bags(n_estimators: int, trees_per_bag: int, stacklevel: int) -> No
     warnings.warn(
         f"Few little bags for intervals: n_estimators={n_estimators} in bags of "
         f"trees_per_bag={trees_per_bag} gives {n_bags} bags, so each interval's variance "
-        f"rests on at most {max(n_bags - 1, 1)} degree(s) of freedom and the default "
+        f"rests on at most {max(n_bags - 1, 1)} "
+        f"{'degree' if n_bags <= 2 else 'degrees'} of freedom and the default "
         f"95% interval is at least {ratio:.2f}x as wide as a normal one. Grow "
         f"n_estimators >= {MIN_INTERVAL_BAGS * trees_per_bag} ({MIN_INTERVAL_BAGS} bags) "
         f"for intervals; predictions are not affected.",

@@ -153,8 +153,10 @@ def _verdict_html(r) -> str:
                             for key in ("gain", "lower", "upper"))
             cells.append(f"{gain}<br><small>{lo} to {hi}</small>")
         rows.append(cells)
+    smoothers = (f'<p id="verdict-smoothers">{_e(v.smoother_note)}</p>'
+                 if getattr(v, "smoother_note", "") else "")
     return (f'<p class="hr-conclusion" id="verdict-conclusion">{_e(v.conclusion)}</p>'
-            f"<p>Share of each method's held-out squared error the local linear forest "
+            f"{smoothers}<p>Share of each method's held-out squared error the local linear forest "
             f"removes (negative: worse), paired row by row on the same rows, with {lvl} "
             f"intervals; scored by {_e(v.scoring)}. The diagnostic row is the local average "
             f"on the local linear forest's own trees (split for the correction, so a "

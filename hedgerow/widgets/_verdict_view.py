@@ -67,7 +67,8 @@ class VerdictView(View):
             best = v.best_alternative
             self.whisker_mark.y = (np.zeros((len(PARTS), 2)) if best is None else np.array(
                 [[comp.loc[best, f"lower_{p}"], comp.loc[best, f"upper_{p}"]] for p in PARTS]))
-        self.conclusion_html.value = f"<p><b>{html.escape(v.conclusion)}</b></p>"
+        self.conclusion_html.value = f"<p><b>{html.escape(v.conclusion)}</b></p>" + (
+            f"<p>{html.escape(v.smoother_note)}</p>" if v.smoother_note else "")
         head = "".join(f"<th>{p}</th>" for p in PARTS)
         rows = "".join(
             f"<tr><td>{swatch(m)}</td>" + "".join(

@@ -218,3 +218,31 @@ def test_fold_forests_grow_at_most_fold_trees_in_whole_bags(trees, per_bag, fold
         pred[te] = clone(forest).set_params(n_estimators=grown).fit(X[tr], y[tr]).predict(
             X[te])
     np.testing.assert_allclose(v.errors[LLF], (y - pred) ** 2, rtol=1e-10)
+
+
+def test_kernel_smoothers_are_shown_but_do_not_change_the_sentence():
+    # the decision weighs the forests; smoothers get rows of their own (role "smoother")
+    # and a note, so the report (with smoothers) and the decision panel and snapshot
+    # (without) read the same sentence from the same folds
+    from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
+
+    rng = np.random.default_rng(21)
+    X = rng.uniform(size=(160, 1))
+    y = np.sin(6 * X[:, 0]) + rng.normal(0, 0.2, 160)  # one smooth column: kernels do well
+    sm = [NadarayaWatsonRegressor(), LocalLinearRegressor()]
+    with_sm = verdict(X, y, forest=_forest(), smoothers=sm, progress=False)
+    without = verdict(X, y, forest=_forest(), smoothers=None, progress=False)
+    assert with_sm.conclusion == without.conclusion
+    assert with_sm.decision == without.decision
+    assert with_sm.best_alternative == without.best_alternative
+    roles = with_sm.comparisons["role"]
+    smoothers = list(roles[roles == "smoother"].index)
+    assert len(smoothers) == 2 and "smoother" not in set(without.comparisons["role"])
+    # the note names the best smoother and its gain; the kernel line beats the forest here
+    best = str(with_sm.comparisons.loc[smoothers, "mse"].idxmin())
+    r = with_sm.comparisons.loc[best]
+    assert with_sm.smoother_note.startswith(
+        f"Kernel smoothers (shown, not part of the decision): against the best, the {best},")
+    assert r["upper_all"] < 0 and "The smoother does better" in with_sm.smoother_note
+    assert without.smoother_note == ""
+    assert with_sm.smoother_note in repr(with_sm)
