@@ -544,3 +544,24 @@ def test_figures_draw_a_bounded_number_of_points(data, model, monkeypatch):
         assert capped.figures[name].count("<use ") < uncapped.figures[name].count("<use "), name
     assert capped.figures["slice"].count("<use ") < 50 + 30
     assert capped.figures["edges"].count("<use ") < 2 * 50 + 30
+
+
+def test_report_panel_and_snapshot_read_the_same_verdict_sentence(data, model, report):
+    # the report compares kernel smoothers; the decision panel and the snapshot headline do
+    # not (a bandwidth search per fold): the smoothers never decide, so all three carry one
+    # sentence (issue: a verdict a reviewer can trust)
+    from hedgerow.snapshot import Snapshot
+    from hedgerow.widgets._session import ExploreSession
+
+    X, y = data
+    assert (report.verdict.comparisons["role"] == "smoother").sum() == 2
+    assert report.verdict.smoother_note.startswith("Kernel smoothers")
+    snap = Snapshot.from_model(model, X, y, verdict=True, compare=False)
+    assert snap.headline["verdict"] == report.verdict.conclusion
+    session = ExploreSession(X, y, model=model, compare=False)
+    try:
+        panel = session.verdict_report()
+    finally:
+        session.close()
+    assert panel.conclusion == report.verdict.conclusion
+    assert panel.decision == report.verdict.decision
