@@ -442,9 +442,15 @@ class LocalLinearForestRegressor(_ForestBase):
 
     def local_fit(self, X, *, ridge_penalty=None):
         """Return the solver's ``LocalFit`` (intercept, slopes, Gram inverse) at X."""
+        return self._checked_fit(X, ridge_penalty)[2]
+
+    def _checked_fit(self, X, ridge_penalty, need_bags=False):
+        """Return ``(X checked, leaves, LocalFit)`` of the queries at ``ridge_penalty``."""
         X = check_predict_data(self, X)
-        _, mom = self._query_state(X)
-        return self._solve(mom, self._penalty(ridge_penalty))
+        if need_bags:
+            self._require_bags()
+        leaves, mom = self._query_state(X)
+        return X, leaves, self._solve(mom, self._penalty(ridge_penalty))
 
     def local_slopes(self, X, *, ridge_penalty=None):
         """Return the local slopes (m × k) in original units of ``correction_features_``."""
@@ -456,10 +462,7 @@ class LocalLinearForestRegressor(_ForestBase):
         Same linearisation as the prediction's, with row j+1 of the inverse Gram matrix
         in place of the first row.
         """
-        X = check_predict_data(self, X)
-        self._require_bags()
-        leaves, mom = self._query_state(X)
-        fit = self._solve(mom, self._penalty(ridge_penalty))
+        X, leaves, fit = self._checked_fit(X, ridge_penalty, need_bags=True)
         return self._slope_std_of(leaves, X, fit)
 
     def _slope_std_of(self, leaves, X, fit):
@@ -490,10 +493,7 @@ class LocalLinearForestRegressor(_ForestBase):
 
     def predict_variance(self, X, *, ridge_penalty=None):
         """Return the ``LittleBagsVariance`` of the predictions at X (raw and debiased)."""
-        X = check_predict_data(self, X)
-        self._require_bags()
-        leaves, mom = self._query_state(X)
-        fit = self._solve(mom, self._penalty(ridge_penalty))
+        X, leaves, fit = self._checked_fit(X, ridge_penalty, need_bags=True)
         return self._std(leaves, None, X[:, self.correction_features_], fit)
 
     def oob_predict(self, return_std=False, *, ridge_penalty=None):
@@ -537,9 +537,7 @@ class LocalLinearForestRegressor(_ForestBase):
         little bags. The numbers equal those of ``local_fit``, ``predict(return_std=True)``
         and ``slope_std``.
         """
-        X = check_predict_data(self, X)
-        leaves, mom = self._query_state(X)
-        fit = self._solve(mom, self._penalty(ridge_penalty))
+        X, leaves, fit = self._checked_fit(X, ridge_penalty)
         if self.trees_per_bag_ < 2:
             return fit, None, None
         psi = self._tree_terms(leaves, None, X[:, self.correction_features_], fit)
