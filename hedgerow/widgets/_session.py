@@ -318,25 +318,16 @@ class ExploreSession(t.HasTraits):
         from hedgerow._progress import RunControl
 
         self._verdict_wanted = True  # asked for again after a refit cancelled it
-        if self.peek_verdict() is not None:
-            return None
-        key = self._state_key()
-        job = self._unfinished("verdict", key)
-        if job is not None:
-            return job
-        model = self.penalised_model()
 
-        def run(job):
+        def run(job, model):
             control = RunControl(lambda done, total: job.report(done, total, stop=False))
             job.on_cancel(control.cancel)
             with _quiet():
                 return self._verdict_of(model, progress=control)
 
-        def store(job, value):
-            if value is not None and value.decision != "incomplete":
-                self._store(key + ("verdict",), value)
-
-        return self.submit("verdict", run, key=key, on_done=store, stops_itself=True)
+        # an interrupted verdict is not kept
+        return self._request_once("verdict", ("verdict",), run, stops_itself=True,
+                                  keep=lambda value: value.decision != "incomplete")
 
     def oob_summary(self):
         """The out-of-bag summary at the current penalty, interval width included."""
@@ -364,20 +355,34 @@ class ExploreSession(t.HasTraits):
         little-bags errors of every training row are the slow part. The result is stored
         in the cache under its key, then the subscribers hear of it.
         """
-        if self.peek(("oob",)) is not None:
+        def compute(job, model):
+            with _quiet():
+                return D.oob_summary(model)
+
+        return self._request_once("interval width", ("oob",), compute)
+
+    def _request_once(self, kind, slot, compute, *, keep=None, stops_itself=False):
+        """Run ``compute(job, model)`` as a ``kind`` job for the current state, at most once.
+
+        None when the cache already holds ``slot`` for this state; the running job when
+        one for this state is waiting or running; else a new job on the current
+        ``penalised_model()``, whose result is stored under ``slot`` (when ``keep(value)``
+        allows) before the subscribers hear of it.
+        """
+        if self.peek(slot) is not None:
             return None
         key = self._state_key()
-        job = self._unfinished("interval width", key)
+        job = self._unfinished(kind, key)
         if job is not None:
             return job
         model = self.penalised_model()
 
-        def compute(job):
-            with _quiet():
-                return D.oob_summary(model)
+        def store(job, value):
+            if value is not None and (keep is None or keep(value)):
+                self._store(key + slot, value)
 
-        return self.submit("interval width", compute, key=key,
-                           on_done=lambda job, value: self._store(key + ("oob",), value))
+        return self.submit(kind, lambda job: compute(job, model), key=key, on_done=store,
+                           stops_itself=stops_itself)
 
     def request_coverage(self, reps) -> Job:
         """Run the coverage readout of the current forest in the background; the job.
