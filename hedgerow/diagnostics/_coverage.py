@@ -131,7 +131,7 @@ def _replication(task, X, mean, resid, eval_idx) -> dict:
     sequence, so a replication gives the same numbers wherever and in whatever order it
     runs.
     """
-    from hedgerow.estimators._forest import INTERVAL_METHODS
+    from hedgerow.estimators._forest import INTERVAL_METHODS, FewBagsWarning
 
     seq, known_truth, templates, level, names = task
     rng = np.random.default_rng(seq)
@@ -146,6 +146,8 @@ def _replication(task, X, mean, resid, eval_idx) -> dict:
         est = clone(template).set_params(random_state=seed)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
+            # the refits have the model's own settings: its fit already said so
+            warnings.simplefilter("ignore", FewBagsWarning)
             est.fit(Xf, y_star)
             for method in INTERVAL_METHODS:
                 parts = est.interval_parts(Xe, method)

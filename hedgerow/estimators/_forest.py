@@ -530,12 +530,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         leaves = self._leaves(X)
         Qc = _line_queries(line, X)
         fit = self._line_fit(X, leaves, line, Qc)
-        offset, gamma = linearisation_coefficients(
-            Qc, line["centre"], line["scale"], np.nan_to_num(fit.intercept),
-            np.nan_to_num(fit.slopes_std), np.nan_to_num(fit.gram_inv[:, 0, :]),
-        )
-        psi = linearised_from_leaf_means(leaves, None, self.forest_, line["means"], offset,
-                                         gamma, n_jobs=self._n_threads())
+        psi = self._line_tree_terms(leaves, None, Qc, line, fit)
         lb = little_bags_variance(psi, self.trees_per_bag_)
         bound = np.zeros(X.shape[0])
         if method == "bias_corrected":
@@ -591,16 +586,25 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             fit, n_used = cache["oob corrected"]
             Qc = line["Xc"]
         self._warn_unusable(n_used, "training rows (out-of-bag)")
-        offset, gamma = linearisation_coefficients(
-            Qc, line["centre"], line["scale"], np.nan_to_num(fit.intercept),
-            np.nan_to_num(fit.slopes_scaled), np.nan_to_num(fit.gram_inv[:, 0, :]),
-        )
-        psi = linearised_from_leaf_means(leaves, usable, self.forest_, line["means"], offset,
-                                         gamma, n_jobs=self._n_threads())
+        psi = self._line_tree_terms(leaves, usable, Qc, line, fit)
         lb = little_bags_variance(psi, self.trees_per_bag_)
         parts = self._corrected_parts(fit.intercept, psi, lb)
         self._warn_missing_std(parts.centre, parts.std, "training rows (out-of-bag)")
         return parts
+
+    def _line_tree_terms(self, leaves, usable, Qc, line, fit):
+        """Return each tree's linearised estimate of a local line's intercept (little bags).
+
+        ``line``: the columns, centre, scale and per-leaf means of the local line fitted
+        as ``fit`` at the queries ``Qc`` (their line columns); ``usable`` masks trees per
+        query (out-of-bag), None for all.
+        """
+        offset, gamma = linearisation_coefficients(
+            Qc, line["centre"], line["scale"], np.nan_to_num(fit.intercept),
+            np.nan_to_num(fit.slopes_scaled), np.nan_to_num(fit.gram_inv[:, 0, :]),
+        )
+        return linearised_from_leaf_means(leaves, usable, self.forest_, line["means"],
+                                          offset, gamma, n_jobs=self._n_threads())
 
     def _corrected_parts(self, centre, psi, lb) -> IntervalParts:
         """Return the bias-corrected ``IntervalParts`` from its per-tree terms ``psi``.

@@ -19,7 +19,6 @@ from hedgerow import (
     NadarayaWatsonRegressor,
 )
 from hedgerow.datasets import make_softplus_design
-from hedgerow.estimators import FewBagsWarning
 
 
 @pytest.fixture(scope="module")
@@ -390,8 +389,6 @@ def test_coverage_readout_on_a_frame_fit_warns_nothing(data):
     llf = LocalLinearForestRegressor(n_estimators=20, random_state=0).fit(frame, y)
     with warnings.catch_warnings():
         warnings.simplefilter("error", UserWarning)  # "X does not have valid feature names"
-        # the refits of 20 trees (2 little bags) say so, rightly; not what is tested here
-        warnings.simplefilter("ignore", FewBagsWarning)
         report = D.coverage_readout(llf, reps=1, n_eval=30, progress=False)
     assert 0.0 <= report.coverage("local linear forest") <= 1.0
 
