@@ -43,7 +43,8 @@ def _run(argv, capsys):
 
 def test_report_from_a_csv(tmp_path, csv, capsys):
     out = tmp_path / "review.html"
-    code, stdout, err = _run(["report", str(csv), "--target", "output", "--trees", "40",
+    # 200 trees: 8 little bags of 25, so no few-bags warning joins stderr (checked below)
+    code, stdout, err = _run(["report", str(csv), "--target", "output", "--trees", "200",
                               "--seed", "7", "--feature", "hum", "--out", str(out),
                               "--quiet"], capsys)
     assert code == 0, err
@@ -53,7 +54,7 @@ def test_report_from_a_csv(tmp_path, csv, capsys):
     frame = pd.read_csv(csv)
     # the report was built on exactly the table in the file, with the options given
     assert data_fingerprint(frame[FEATURES], frame["output"]) in page
-    assert "<td>n_estimators</td><td>40</td>" in page
+    assert "<td>n_estimators</td><td>200</td>" in page
     assert "<td>random_state</td><td>7</td>" in page
     assert "sliced column</th><td class='hr-text'><code>hum</code>" in page
     conclusion = stdout.split("verdict: ", 1)[1].strip()
@@ -242,3 +243,12 @@ def test_progress_names_every_long_step(tmp_path, csv, capsys):
     for text in ("fit: 20/20 trees", "smoothers: Nadaraya-Watson", "smoothers: local linear",
                  "bandwidth evaluations", "verdict: ", " fits", "coverage: 1/1 replications"):
         assert text in err, text
+
+
+def test_few_trees_warn_on_stderr_naming_the_tree_count_to_grow(tmp_path, csv, capsys):
+    out = tmp_path / "few.html"
+    code, _, err = _run(["report", str(csv), "--target", "output", "--trees", "40",
+                         "--no-compare", "--no-baseline", "--out", str(out), "--quiet"],
+                        capsys)
+    assert code == 0 and out.exists()
+    assert "hedgerow: warning: FewBagsWarning" in err and "n_estimators >= 160" in err
