@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import resource
 import shlex
 import subprocess
 import sys
@@ -100,7 +101,11 @@ def main(argv=None) -> int:
               f"  ({_load()})")
         if ref is not None:
             print(f"ratio to the reference fit: {wall / ref:.1f}x")
-        print(f"goal: under 10 min: {'met' if wall < 600 else 'missed'}")
+        # the command is the only child process: its peak resident memory (Linux: KiB)
+        peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 2**20
+        print(f"peak resident memory of the command: {peak:.2f} GiB")
+        ok = done.returncode == 0 and wall < 600
+        print(f"goal: under 10 min with exit 0: {'met' if ok else 'missed'}")
         for line in notes:
             print(line)
         if done.returncode != 0:

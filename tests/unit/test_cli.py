@@ -252,3 +252,27 @@ def test_few_trees_warn_on_stderr_naming_the_tree_count_to_grow(tmp_path, csv, c
                         capsys)
     assert code == 0 and out.exists()
     assert "hedgerow: warning: FewBagsWarning" in err and "n_estimators >= 160" in err
+
+
+def test_a_large_table_grows_fewer_trees_unless_trees_is_given(tmp_path, csv, capsys,
+                                                               monkeypatch):
+    import hedgerow.cli as C
+
+    # the table has 160 rows: above a threshold of 100 the forest grows LARGE_TABLE_TREES
+    monkeypatch.setattr(C, "LARGE_TABLE_ROWS", 100)
+    monkeypatch.setattr(C, "LARGE_TABLE_TREES", 40)
+    out = tmp_path / "large.html"
+    code, _, err = _run(["report", str(csv), "--target", "output", "--no-compare",
+                         "--no-baseline", "--quiet", "--out", str(out)], capsys)
+    assert code == 0, err
+    page = out.read_text(encoding="utf-8")
+    assert "<td>n_estimators</td><td>40</td>" in page
+    assert "note: The forest grew 40 trees, not the default 2000" in err
+    assert "<p class='hr-note'>The forest grew 40 trees" in page and "--trees N" in page
+    out = tmp_path / "chosen.html"
+    code, _, err = _run(["report", str(csv), "--target", "output", "--no-compare",
+                         "--no-baseline", "--quiet", "--trees", "20", "--out", str(out)],
+                        capsys)
+    assert code == 0, err
+    assert "<td>n_estimators</td><td>20</td>" in out.read_text(encoding="utf-8")
+    assert "The forest grew" not in err
