@@ -307,6 +307,87 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, fir
             out[c] += acc
 
 
+@numba.njit(cache=True, fastmath={"reassoc", "contract"})
+def _gradient_block_terms(W, A, yw, factor, r):
+    """Overwrite ``W`` with ``factor_i w_ij a_ij (A'_ij - y_j - r_i a_ij)`` (see below).
+
+    ``A`` holds ``a_ij`` in its first half of rows and ``beta_i^T z_ij`` in the second,
+    so that ``A'_ij - y_j = -e_ij``.
+    """
+    m, p = W.shape
+    for i in range(m):
+        f = factor[i]
+        ri = r[i]
+        row = W[i]
+        a = A[i]
+        b = A[m + i]
+        if f == 0.0:
+            row[:] = 0.0
+            continue
+        for j in range(p):
+            aj = a[j]
+            row[j] = f * row[j] * aj * (b[j] - yw[j] - ri * aj)
+
+
+def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, first, last, out):
+    """Add the Gaussian gradient terms of the queries with ``factor != 0`` to ``out``.
+
+    The same sum as :func:`_gradient_sums` (``phi(u) = u^2``), for queries that keep their
+    own row (shift zero), in blocks of queries: the weights of a block over its rows
+    ``first[start]:last[stop - 1]`` from the compiled dense-block loop, ``a_ij`` and
+    ``beta_i^T z_ij`` as one BLAS product of the blocks' ``[g_i; beta_i]`` (expanded at
+    the block's mean) with ``[1, x_j]``, and ``sum_j v_ij (u_jc - u_ic)^2`` expanded into
+    one product of ``v`` with ``[u_j, u_j^2, 1]`` (``u`` centred at the block's mean too,
+    so that the expansion loses few digits).
+    """
+    from hedgerow.kernels._kernels import _block_weights
+
+    d, n = XT.shape
+    k = XsT.shape[0]
+    U = XT.T
+    Xs = XsT.T
+    live = np.flatnonzero(factor != 0.0)
+    if not live.size:
+        return
+    # blocks of consecutive live queries, about _DENSE_BLOCK_ENTRIES weights each
+    span = int(np.median(last[live] - first[live]))
+    block = max(8, min(live.size, _GRADIENT_BLOCK_ENTRIES // max(span, 1)))
+    no_skip = np.full(block, -1, dtype=np.int64)
+    for b0 in range(0, live.size, block):
+        rows_q = live[b0:b0 + block]
+        m = rows_q.size
+        lo, hi = int(first[rows_q].min()), int(last[rows_q].max())
+        Uq = U[rows_q]
+        mu = Uq.mean(axis=0)
+        Uw = U[lo:hi] - mu
+        Qs = np.ascontiguousarray(Uq - mu)
+        W = np.empty((m, hi - lo))
+        nnz = np.empty(m, dtype=np.int64)
+        _block_weights(np.ascontiguousarray(Uw.T), Qs, 0, no_skip[:m], 0, log_cut, W, nnz)
+        # a_ij = g_i0 + sum_c g_ic (xs_jc - xs_ic): coefficients of [1, xs_j - nu]
+        Xq = Xs[rows_q]
+        nu = Xq.mean(axis=0) if k else np.zeros(0)
+        Z = np.empty((hi - lo, k + 1))
+        Z[:, 0] = 1.0
+        Z[:, 1:] = Xs[lo:hi] - nu
+        coef = np.concatenate([g[rows_q], beta[rows_q]], axis=0)
+        if k:
+            shift = np.concatenate([Xq - nu, Xq - nu], axis=0)
+            coef[:, 0] -= np.einsum("ik,ik->i", coef[:, 1:], shift)
+        A = coef @ Z.T
+        _gradient_block_terms(W, A, y[lo:hi], factor[rows_q], r[rows_q])
+        F = np.empty((hi - lo, 2 * d + 1))
+        F[:, :d] = Uw
+        F[:, d:2 * d] = Uw * Uw
+        F[:, 2 * d] = 1.0
+        P = W @ F
+        out += (P[:, d:2 * d] - 2.0 * Qs * P[:, :d] + Qs * Qs * P[:, 2 * d:]).sum(axis=0)
+
+
+# Weights per query block of the blocked Gaussian gradient (512 KiB of doubles).
+_GRADIENT_BLOCK_ENTRIES = 1 << 16
+
+
 def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     """Return the gradient of the leave-one-out error in log bandwidth (see below).
 
@@ -366,8 +447,18 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
         yy = np.ascontiguousarray(y[order])
         first, last = first.astype(np.int64), last.astype(np.int64)
         first[alone], last[alone] = 0, n
-    _gradient_sums(XT, XsT, yy, code, -math.log(GAUSSIAN_TRUNCATION),
-                   g, beta, r, factor, alone, first, last, out)
+    log_cut = -math.log(GAUSSIAN_TRUNCATION)
+    if code == 0:
+        # dense blocks and BLAS for the rows in the hat-matrix identity; the few rows
+        # refitted alone (their own shift, all rows) through the row-by-row loop
+        _gaussian_gradient_blocks(XT, XsT, yy, log_cut, g, beta, r,
+                                  np.where(alone, 0.0, factor), first, last, out)
+        factor = np.where(alone, factor, 0.0)
+        if not factor.any():
+            factor = None
+    if factor is not None:
+        _gradient_sums(XT, XsT, yy, code, log_cut, g, beta, r, factor, alone, first, last,
+                       out)
     out *= 2.0 / n
     out[np.isinf(h)] = 0.0
     return out
