@@ -8,6 +8,7 @@ from hedgerow.kernels import (
     CV_FLAT_FROM,
     CV_FLAT_TOLERANCE,
     KERNELS,
+    kernel_weights,
     loo_cv_error,
     loo_cv_gradient,
     select_bandwidth_cv,
@@ -184,6 +185,18 @@ def test_sums_within_the_kernels_reach_change_nothing(kernel, degree, monkeypatc
     full = loo_cv_gradient(X, y, h, kernel, degree)
     assert np.isfinite(full[0]) and np.all(np.isfinite(full[1]))
     monkeypatch.setattr(bandwidth_module, "CV_WINDOW_FROM", 100)
+    # the sums (and the Gaussian gradient) in reach blocks, the compact kernels'
+    # gradient loop in windows along one column
+    blocks = bandwidth_module._reach_blocks(X, h, kernel)
+    assert blocks is not None
+    queries = np.concatenate([q for q, _ in blocks])
+    assert np.array_equal(np.sort(queries), np.arange(len(X)))  # each row once
+    assert sum(q.size * rows.size for q, rows in blocks) < 0.8 * len(X) ** 2
+    for q, rows in blocks:  # no row with weight is left out of its block
+        W = kernel_weights(X, X[q], h, kernel, normalize=False).toarray()
+        outside = np.setdiff1d(np.arange(len(X)), rows)
+        assert not W[:, outside].any()
+        assert W[:, rows].any(axis=1).all()
     assert bandwidth_module._reach_windows(X, h, kernel) is not None
     windowed = loo_cv_gradient(X, y, h, kernel, degree)
     assert windowed[0] == pytest.approx(full[0], rel=1e-12)
