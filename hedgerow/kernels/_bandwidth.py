@@ -252,7 +252,7 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
         warnings.simplefilter("ignore", RuntimeWarning)
-        fit = solve_local(moments, 0.0)
+        fit = solve_local(moments, 0.0, first_row=True)
         # A row's own unnormalised weight is k(0) = 1: it is its own nearest row, so the
         # Gaussian shift is zero (a test checks the diagonal).
         leverage = fit.gram_inv[:, 0, 0]
@@ -263,7 +263,8 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
         if direct.size:
             Xd = X[direct]
             Rd = rows.sums(Xd, B, exclude=direct)
-            fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0)
+            fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0,
+                             first_row=True)
             resid[direct] = y[direct] - fd.intercept
     return resid, fit, leverage, direct, fd
 
