@@ -226,8 +226,8 @@ def _windowed_sums(X, B, bandwidth, kernel, blocks):
     return R
 
 
-def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
-    """Return ``(resid, fit, leverage, direct, direct_fit)`` of the leave-one-out fits.
+def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None, weights=None):
+    """Return ``(resid, fit, leverage, direct, direct_fit, W)`` of the leave-one-out fits.
 
     ``resid`` are the leave-one-out residuals ``y_i - g_{-i}(x_i)`` (NaN where
     undefined), ``fit`` the local fits at the training rows with every row included,
@@ -238,7 +238,10 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     with the row excluded from its own weights: there ``1 - L_ii`` carries few correct
     digits, and Gaussian truncation against the row's own (self) weight may have dropped
     all of its neighbours. ``features`` are ``moment_features(X, y, scale, degree=degree)``
-    when the caller has them (they do not depend on the bandwidth).
+    when the caller has them (they do not depend on the bandwidth). ``weights``: an
+    ``(n, n)`` array to hold the unnormalised weight matrix ``W`` where every row is
+    summed over all rows (then ``R = W @ B`` is one product and the gradient reads ``W``
+    instead of recomputing it); ``W`` is None otherwise.
     """
     # Unnormalised rows: leverages and fits do not depend on the scaling of a row. The
     # weighted sums come from dense kernel blocks; no n x n matrix is formed.
@@ -246,8 +249,14 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     rows = KernelRows(X, bandwidth, kernel)
     # one fixed set of queries (the training rows): BLAS products (stable=False)
     blocks = _reach_blocks(X, bandwidth, kernel)
-    R = (rows.sums(X, B, stable=False) if blocks is None
-         else _windowed_sums(X, B, bandwidth, kernel, blocks))
+    W = None
+    if blocks is not None:
+        R = _windowed_sums(X, B, bandwidth, kernel, blocks)
+    elif weights is not None:
+        W = _all_weights(rows, X, weights)
+        R = W @ B
+    else:
+        R = rows.sums(X, B, stable=False)
     moments = moments_from_sums(R, X, centre, scale, degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
@@ -266,7 +275,22 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
             fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0,
                              first_row=True)
             resid[direct] = y[direct] - fd.intercept
-    return resid, fit, leverage, direct, fd
+    return resid, fit, leverage, direct, fd, W
+
+
+def _all_weights(rows, X, out):
+    """Write the unnormalised weights of every training row at every training query."""
+    from hedgerow.kernels._kernels import _block_weights
+
+    Qs, skip = rows._queries(X, None)
+    nnz = np.empty(X.shape[0], dtype=np.int64)
+    _block_weights(rows.XT, Qs, 0, skip, rows.code, -math.log(GAUSSIAN_TRUNCATION), out, nnz)
+    return out
+
+
+#: The search keeps the whole weight matrix (Gaussian kernel) up to this many entries
+#: (32 MiB): the gradient then reads the weights of the sums.
+_KEEP_WEIGHTS_ENTRIES = 1 << 22
 
 
 def _loo_residuals(X, y, bandwidth, kernel, degree, scale, features=None):
@@ -377,8 +401,8 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, fir
 
 
 @numba.njit(cache=True, fastmath={"reassoc", "contract"})
-def _gradient_block_terms(W, A, yw, factor, r):
-    """Overwrite ``W`` with ``factor_i w_ij a_ij (A'_ij - y_j - r_i a_ij)`` (see below).
+def _gradient_block_terms(W, A, yw, factor, r, out):
+    """Write ``factor_i w_ij a_ij (A'_ij - y_j - r_i a_ij)`` into ``out`` (see below).
 
     ``A`` holds ``a_ij`` in its first half of rows and ``beta_i^T z_ij`` in the second,
     so that ``A'_ij - y_j = -e_ij``.
@@ -388,23 +412,26 @@ def _gradient_block_terms(W, A, yw, factor, r):
         f = factor[i]
         ri = r[i]
         row = W[i]
+        res = out[i]
         a = A[i]
         b = A[m + i]
         if f == 0.0:
-            row[:] = 0.0
+            res[:] = 0.0
             continue
         for j in range(p):
             aj = a[j]
-            row[j] = f * row[j] * aj * (b[j] - yw[j] - ri * aj)
+            res[j] = f * row[j] * aj * (b[j] - yw[j] - ri * aj)
 
 
-def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, blocks, out):
+def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, blocks, out,
+                              weights=None):
     """Add the Gaussian gradient terms of the queries with ``factor != 0`` to ``out``.
 
     The same sum as :func:`_gradient_sums` (``phi(u) = u^2``), for queries that keep their
     own row (shift zero), block by block (``blocks``: ``(queries, rows)`` index arrays,
-    ``rows`` None for all): the weights of a block over its rows from the compiled
-    dense-block loop, ``a_ij`` and ``beta_i^T z_ij`` as one BLAS product of the block's
+    ``rows`` None for all, ``queries`` then a slice): the weights of a block over its
+    rows from the compiled dense-block loop (or the rows of ``weights``, the whole matrix,
+    when given), ``a_ij`` and ``beta_i^T z_ij`` as one BLAS product of the block's
     ``[g_i; beta_i]`` (expanded at the block's mean) with ``[1, x_j]``, and
     ``sum_j v_ij (u_jc - u_ic)^2`` expanded into one product of ``v`` with
     ``[u_j, u_j^2, 1]`` (``u`` centred at the block's mean too, so that the expansion
@@ -417,8 +444,11 @@ def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, blocks, o
     U = XT.T
     Xs = XsT.T
     for queries, rows in blocks:
-        queries = queries[factor[queries] != 0.0]
-        m = queries.size
+        if not isinstance(queries, slice):
+            queries = queries[factor[queries] != 0.0]
+        elif not factor[queries].any():
+            continue
+        m = factor[queries].size
         if not m:
             continue
         Ur, Xr, yr = (U, Xs, y) if rows is None else (U[rows], Xs[rows], y[rows])
@@ -427,10 +457,14 @@ def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, blocks, o
         Uw = Ur - mu
         Qs = np.ascontiguousarray(Uq - mu)
         p = Uw.shape[0]
-        W = np.empty((m, p))
-        nnz = np.empty(m, dtype=np.int64)
-        _block_weights(np.ascontiguousarray(Uw.T), Qs, 0, np.full(m, -1, dtype=np.int64),
-                       0, log_cut, W, nnz)
+        if weights is not None:
+            W = weights[queries]
+        else:
+            W = np.empty((m, p))
+            nnz = np.empty(m, dtype=np.int64)
+            _block_weights(np.ascontiguousarray(Uw.T), Qs, 0,
+                           np.full(m, -1, dtype=np.int64), 0, log_cut, W, nnz)
+        V = np.empty((m, p))
         # a_ij = g_i0 + sum_c g_ic (xs_jc - xs_ic): coefficients of [1, xs_j - nu]
         Xq = Xs[queries]
         nu = Xq.mean(axis=0) if k else np.zeros(0)
@@ -442,12 +476,12 @@ def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, blocks, o
             shift = np.concatenate([Xq - nu, Xq - nu], axis=0)
             coef[:, 0] -= np.einsum("ik,ik->i", coef[:, 1:], shift)
         A = coef @ Z.T
-        _gradient_block_terms(W, A, np.ascontiguousarray(yr), factor[queries], r[queries])
+        _gradient_block_terms(W, A, np.ascontiguousarray(yr), factor[queries], r[queries], V)
         F = np.empty((p, 2 * d + 1))
         F[:, :d] = Uw
         F[:, d:2 * d] = Uw * Uw
         F[:, 2 * d] = 1.0
-        P = W @ F
+        P = V @ F
         out += (P[:, d:2 * d] - 2.0 * Qs * P[:, :d] + Qs * Qs * P[:, 2 * d:]).sum(axis=0)
 
 
@@ -471,7 +505,7 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     ``dr_i = -dyhat_{-i}`` uses ``g`` and ``beta`` of its fit without itself. Columns
     with an infinite bandwidth get 0.
     """
-    resid, fit, leverage, direct, fd = parts
+    resid, fit, leverage, direct, fd, W = parts
     n, d = X.shape
     h = np.asarray(bandwidth, dtype=np.float64)
     centre = X.mean(axis=0)
@@ -507,13 +541,12 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     if code == 0:
         # dense blocks and BLAS for the rows in the hat-matrix identity; the few rows
         # refitted alone (their own shift, all rows) through the row-by-row loop below
-        blocks = _reach_blocks(X, h, kernel)
+        blocks = None if W is not None else _reach_blocks(X, h, kernel)
         if blocks is None:
-            every = np.arange(n)
             step = max(8, _GRADIENT_BLOCK_ENTRIES // max(n, 1))
-            blocks = [(every[i:i + step], None) for i in range(0, n, step)]
+            blocks = [(slice(i, min(n, i + step)), None) for i in range(0, n, step)]
         _gaussian_gradient_blocks(XT, XsT, yy, log_cut, g, beta, r,
-                                  np.where(alone, 0.0, factor), blocks, out)
+                                  np.where(alone, 0.0, factor), blocks, out, W)
         factor = np.where(alone, factor, 0.0)
         if factor.any():
             first, last = np.zeros(n, dtype=np.int64), np.full(n, n, dtype=np.int64)
@@ -718,6 +751,9 @@ class _Search:
         self.path_e: list[float] = []
         self.drop_results: dict[bytes, float] = {}
         self._parts = None  # (key, leave-one-out parts) of the latest evaluation
+        n = X.shape[0]
+        self._weights = (np.empty((n, n)) if kernel == "gaussian" and n * n
+                         <= _KEEP_WEIGHTS_ENTRIES else None)
 
     def evaluate(self, h, gradient=False, record=True):
         """Return ``(error, gradient or None)`` at ``h``; each new evaluation is a step."""
@@ -729,7 +765,7 @@ class _Search:
             parts = self._parts[1]  # the error is known here: only the gradient is new
         else:
             parts = _loo_parts(self.X, self.y, h, self.kernel, self.degree, self.scale,
-                               self.features)
+                               self.features, self._weights)
         # kept for a gradient asked for later at the same point (the start of stage 2
         # is the best point of stage 1)
         self._parts = (key, parts)

@@ -202,3 +202,30 @@ def test_sums_within_the_kernels_reach_change_nothing(kernel, degree, monkeypatc
     assert windowed[0] == pytest.approx(full[0], rel=1e-12)
     np.testing.assert_allclose(windowed[1], full[1], rtol=0,
                                atol=1e-10 * np.abs(full[1]).max())
+
+
+@pytest.mark.parametrize("degree", [0, 1])
+def test_gradient_from_the_kept_weight_matrix_equals_the_recomputed_one(degree):
+    """The search keeps the Gaussian weight matrix of its sums for the gradient; the
+    error and gradient are those of the path that recomputes the weights."""
+    import hedgerow.kernels._bandwidth as bandwidth_module
+    from hedgerow.local import default_scale
+
+    X, y = _design(10, 300, 3)
+    X[0] = X.max(axis=0) + 3.0 * X.std(axis=0)  # one row refitted alone
+    h = silverman_bandwidth(X) * 1.5
+    scale = default_scale(X)
+    plain = bandwidth_module._loo_parts(X, y, h, "gaussian", degree, scale)
+    kept = bandwidth_module._loo_parts(X, y, h, "gaussian", degree, scale,
+                                       weights=np.empty((300, 300)))
+    assert plain[5] is None and kept[5] is not None
+    assert plain[3].size >= 1  # the far row is refitted directly
+    np.testing.assert_allclose(kept[0], plain[0], rtol=1e-12)
+    g_plain = bandwidth_module._loo_gradient(X, y, h, "gaussian", degree, scale, plain)
+    g_kept = bandwidth_module._loo_gradient(X, y, h, "gaussian", degree, scale, kept)
+    np.testing.assert_allclose(g_kept, g_plain, rtol=0, atol=1e-11 * np.abs(g_plain).max())
+    # and the search's error is the one loo_cv_error gives
+    curve = select_bandwidth_cv(X, y, degree=degree)
+    keep = ~curve.ignored
+    assert curve.loo_error == pytest.approx(
+        loo_cv_error(X[:, keep], y, curve.bandwidth[keep], "gaussian", degree), rel=1e-12)
