@@ -229,3 +229,35 @@ def test_gradient_from_the_kept_weight_matrix_equals_the_recomputed_one(degree):
     keep = ~curve.ignored
     assert curve.loo_error == pytest.approx(
         loo_cv_error(X[:, keep], y, curve.bandwidth[keep], "gaussian", degree), rel=1e-12)
+
+
+def _untruncated_loo_error(X, y, h, degree):
+    """Leave-one-out error from the full Gaussian weight matrix, nothing truncated."""
+    U = X / h
+    D2 = ((U[:, None, :] - U[None, :, :]) ** 2).sum(axis=2)
+    W = np.exp(-0.5 * D2)
+    np.fill_diagonal(W, 0.0)  # row i left out of its own fit
+    if degree == 0:
+        fit = W @ y / W.sum(axis=1)
+    else:
+        Z = np.concatenate([np.ones((len(X), 1)), X], axis=1)
+        fit = np.empty(len(X))
+        for i in range(len(X)):
+            Zi = Z - np.append(0.0, X[i])
+            M = (Zi * W[i][:, None]).T @ Zi
+            fit[i] = np.linalg.solve(M, (Zi * W[i][:, None]).T @ y)[0]
+    return float(np.mean((y - fit) ** 2))
+
+
+@pytest.mark.parametrize("degree", [0, 1])
+@pytest.mark.parametrize(("seed", "widen"), [(11, 0.5), (12, 1.0), (13, 0.75)])
+def test_reach_blocks_keep_the_untruncated_objective(degree, seed, widen):
+    """From CV_WINDOW_FROM rows on the sums skip rows beyond the Gaussian's reach; the
+    error is still that of the untruncated kernel to round-off."""
+    import hedgerow.kernels._bandwidth as bandwidth_module
+
+    X, y = _design(seed, bandwidth_module.CV_WINDOW_FROM, 2)
+    h = silverman_bandwidth(X) * widen
+    assert bandwidth_module._reach_blocks(X, h, "gaussian") is not None
+    ours = loo_cv_error(X, y, h, "gaussian", degree)
+    assert ours == pytest.approx(_untruncated_loo_error(X, y, h, degree), rel=1e-12)
