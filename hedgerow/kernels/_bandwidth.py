@@ -112,8 +112,6 @@ LOO_DIRECT_LEVERAGE = 1.0 - 1e-4
 #: along one column only (see ``_reach_windows``).
 CV_WINDOW_FROM = 3000
 
-# Query blocks of the windowed leave-one-out sums (rows sorted along the window column).
-_WINDOW_BLOCK = 256
 
 
 def _reach_windows(X, bandwidth, kernel):
@@ -130,8 +128,7 @@ def _reach_windows(X, bandwidth, kernel):
     h = np.asarray(bandwidth, dtype=np.float64)
     if n < CV_WINDOW_FROM or not np.isfinite(h).any():
         return None
-    reach = (math.sqrt(-2.0 * math.log(GAUSSIAN_TRUNCATION)) if kernel == "gaussian"
-             else 1.0) * (1.0 + 1e-9)
+    reach = _reach(kernel)
     span = np.ptp(X, axis=0)
     share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
     c = int(np.argmin(share))
@@ -144,22 +141,93 @@ def _reach_windows(X, bandwidth, kernel):
     return order, first, last
 
 
-def _windowed_sums(X, B, bandwidth, kernel, windows):
-    """Return ``W @ B`` over the training rows as queries, row windows as above."""
-    order, first, last = windows
-    n = X.shape[0]
-    R = np.empty((n, B.shape[1]))
-    Xo, Bo = X[order], B[order]
-    for start in range(0, n, _WINDOW_BLOCK):
-        stop = min(n, start + _WINDOW_BLOCK)
-        lo, hi = first[start], last[stop - 1]
-        rows = KernelRows(Xo[lo:hi], bandwidth, kernel)
-        R[order[start:stop]] = rows.sums(Xo[start:stop], Bo[lo:hi], stable=False)
+# Queries per block of the reach blocks (a strip's queries, in order along the second
+# column), and the strip width in bandwidths of the first column (a share of the reach).
+_REACH_QUERIES = 64
+_STRIP_SHARE = 0.5
+
+
+def _reach(kernel):
+    """Distance (in bandwidths) beyond which every training query's weight is zero."""
+    return (math.sqrt(-2.0 * math.log(GAUSSIAN_TRUNCATION)) if kernel == "gaussian"
+            else 1.0) * (1.0 + 1e-9)
+
+
+def _reach_blocks(X, bandwidth, kernel):
+    """Return blocks ``[(queries, rows), ...]`` of training queries, or None.
+
+    Every row is a query of exactly one block, and ``rows`` holds every row with a
+    non-zero weight at any of the block's queries (with the row itself: shift zero).
+    Two columns are used, those where the bandwidth is the smallest share of the range
+    (``c0``, ``c1``): rows in strips of ``_STRIP_SHARE`` times the reach along ``c0``,
+    ordered along ``c1`` within a strip; a block is up to ``_REACH_QUERIES`` consecutive
+    queries of one strip, and its rows are, in every strip within reach, those within
+    reach along ``c1`` of the block's ``c1`` range. The Gaussian (truncated where its
+    squared distance exceeds ``2 ln(1 / GAUSSIAN_TRUNCATION)`` for a training query)
+    reaches a disc of radius 8.6 bandwidths in (``c0``, ``c1``), so a strip at distance
+    ``delta`` along ``c0`` keeps ``sqrt(reach^2 - delta^2)`` along ``c1``; compact
+    kernels reach one bandwidth in each column. None below :data:`CV_WINDOW_FROM` rows or
+    where the blocks would keep over 80% of all pairs.
+    """
+    n, d = X.shape
+    h = np.asarray(bandwidth, dtype=np.float64)
+    if n < CV_WINDOW_FROM or not np.isfinite(h).any():
+        return None
+    reach = _reach(kernel)
+    span = np.ptp(X, axis=0)
+    share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
+    cols = np.argsort(share, kind="stable")[:2]
+    cols = cols[np.isfinite(share[cols])]
+    if not cols.size or 2.0 * reach * share[cols[0]] > 0.9:
+        return None
+    u0 = X[:, cols[0]] / h[cols[0]]
+    u1 = X[:, cols[1]] / h[cols[1]] if cols.size > 1 else np.zeros(n)
+    width = _STRIP_SHARE * reach
+    strip = np.floor((u0 - u0.min()) / width).astype(np.int64)
+    order = np.lexsort((u1, strip))
+    strip, u0, u1 = strip[order], u0[order], u1[order]
+    ids, starts = np.unique(strip, return_index=True)
+    ends = np.append(starts[1:], n)
+    lo0 = np.minimum.reduceat(u0, starts)
+    hi0 = np.maximum.reduceat(u0, starts)
+    near = int(math.ceil(reach / width)) + 1
+    blocks, pairs = [], 0
+    for a in range(ids.size):
+        others = np.flatnonzero(np.abs(ids - ids[a]) <= near)
+        for q0 in range(starts[a], ends[a], _REACH_QUERIES):
+            q1 = min(ends[a], q0 + _REACH_QUERIES)
+            qlo0, qhi0 = u0[q0:q1].min(), u0[q0:q1].max()
+            qlo1, qhi1 = u1[q0], u1[q1 - 1]
+            parts = []
+            for b in others:
+                gap = max(0.0, lo0[b] - qhi0, qlo0 - hi0[b])
+                if gap > reach:
+                    continue
+                half = math.sqrt(reach * reach - gap * gap) if kernel == "gaussian" else reach
+                seg = u1[starts[b]:ends[b]]
+                j0 = starts[b] + np.searchsorted(seg, qlo1 - half, side="left")
+                j1 = starts[b] + np.searchsorted(seg, qhi1 + half, side="right")
+                if j1 > j0:
+                    parts.append(np.arange(j0, j1))
+            rows = order[np.concatenate(parts)]
+            pairs += (q1 - q0) * rows.size
+            blocks.append((order[q0:q1], rows))
+    if pairs > 0.8 * float(n) * n:
+        return None
+    return blocks
+
+
+def _windowed_sums(X, B, bandwidth, kernel, blocks):
+    """Return ``W @ B`` over the training rows as queries, summed block by block."""
+    R = np.empty((X.shape[0], B.shape[1]))
+    for queries, rows in blocks:
+        kr = KernelRows(X[rows], bandwidth, kernel)
+        R[queries] = kr.sums(X[queries], B[rows], stable=False)
     return R
 
 
-def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
-    """Return ``(resid, fit, leverage, direct, direct_fit)`` of the leave-one-out fits.
+def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None, weights=None):
+    """Return ``(resid, fit, leverage, direct, direct_fit, W)`` of the leave-one-out fits.
 
     ``resid`` are the leave-one-out residuals ``y_i - g_{-i}(x_i)`` (NaN where
     undefined), ``fit`` the local fits at the training rows with every row included,
@@ -170,21 +238,30 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
     with the row excluded from its own weights: there ``1 - L_ii`` carries few correct
     digits, and Gaussian truncation against the row's own (self) weight may have dropped
     all of its neighbours. ``features`` are ``moment_features(X, y, scale, degree=degree)``
-    when the caller has them (they do not depend on the bandwidth).
+    when the caller has them (they do not depend on the bandwidth). ``weights``: an
+    ``(n, n)`` array to hold the unnormalised weight matrix ``W`` where every row is
+    summed over all rows (then ``R = W @ B`` is one product and the gradient reads ``W``
+    instead of recomputing it); ``W`` is None otherwise.
     """
     # Unnormalised rows: leverages and fits do not depend on the scaling of a row. The
     # weighted sums come from dense kernel blocks; no n x n matrix is formed.
     B, centre = moment_features(X, y, scale, degree=degree) if features is None else features
     rows = KernelRows(X, bandwidth, kernel)
     # one fixed set of queries (the training rows): BLAS products (stable=False)
-    windows = _reach_windows(X, bandwidth, kernel)
-    R = (rows.sums(X, B, stable=False) if windows is None
-         else _windowed_sums(X, B, bandwidth, kernel, windows))
+    blocks = _reach_blocks(X, bandwidth, kernel)
+    W = None
+    if blocks is not None:
+        R = _windowed_sums(X, B, bandwidth, kernel, blocks)
+    elif weights is not None:
+        W = _all_weights(rows, X, weights)
+        R = W @ B
+    else:
+        R = rows.sums(X, B, stable=False)
     moments = moments_from_sums(R, X, centre, scale, degree=degree)
     with warnings.catch_warnings():
         # Empty rows only arise in the direct refits; they are reported as NaN.
         warnings.simplefilter("ignore", RuntimeWarning)
-        fit = solve_local(moments, 0.0)
+        fit = solve_local(moments, 0.0, first_row=True)
         # A row's own unnormalised weight is k(0) = 1: it is its own nearest row, so the
         # Gaussian shift is zero (a test checks the diagonal).
         leverage = fit.gram_inv[:, 0, 0]
@@ -195,9 +272,25 @@ def _loo_parts(X, y, bandwidth, kernel, degree, scale, features=None):
         if direct.size:
             Xd = X[direct]
             Rd = rows.sums(Xd, B, exclude=direct)
-            fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0)
+            fd = solve_local(moments_from_sums(Rd, Xd, centre, scale, degree=degree), 0.0,
+                             first_row=True)
             resid[direct] = y[direct] - fd.intercept
-    return resid, fit, leverage, direct, fd
+    return resid, fit, leverage, direct, fd, W
+
+
+def _all_weights(rows, X, out):
+    """Write the unnormalised weights of every training row at every training query."""
+    from hedgerow.kernels._kernels import _block_weights
+
+    Qs, skip = rows._queries(X, None)
+    nnz = np.empty(X.shape[0], dtype=np.int64)
+    _block_weights(rows.XT, Qs, 0, skip, rows.code, -math.log(GAUSSIAN_TRUNCATION), out, nnz)
+    return out
+
+
+#: The search keeps the whole weight matrix (Gaussian kernel) up to this many entries
+#: (32 MiB): the gradient then reads the weights of the sums.
+_KEEP_WEIGHTS_ENTRIES = 1 << 22
 
 
 def _loo_residuals(X, y, bandwidth, kernel, degree, scale, features=None):
@@ -307,6 +400,95 @@ def _gradient_sums(XT, XsT, y, code, log_cut, g, beta, resid, factor, alone, fir
             out[c] += acc
 
 
+@numba.njit(cache=True, fastmath={"reassoc", "contract"})
+def _gradient_block_terms(W, A, yw, factor, r, out):
+    """Write ``factor_i w_ij a_ij (A'_ij - y_j - r_i a_ij)`` into ``out`` (see below).
+
+    ``A`` holds ``a_ij`` in its first half of rows and ``beta_i^T z_ij`` in the second,
+    so that ``A'_ij - y_j = -e_ij``.
+    """
+    m, p = W.shape
+    for i in range(m):
+        f = factor[i]
+        ri = r[i]
+        row = W[i]
+        res = out[i]
+        a = A[i]
+        b = A[m + i]
+        if f == 0.0:
+            res[:] = 0.0
+            continue
+        for j in range(p):
+            aj = a[j]
+            res[j] = f * row[j] * aj * (b[j] - yw[j] - ri * aj)
+
+
+def _gaussian_gradient_blocks(XT, XsT, y, log_cut, g, beta, r, factor, blocks, out,
+                              weights=None):
+    """Add the Gaussian gradient terms of the queries with ``factor != 0`` to ``out``.
+
+    The same sum as :func:`_gradient_sums` (``phi(u) = u^2``), for queries that keep their
+    own row (shift zero), block by block (``blocks``: ``(queries, rows)`` index arrays,
+    ``rows`` None for all, ``queries`` then a slice): the weights of a block over its
+    rows from the compiled dense-block loop (or the rows of ``weights``, the whole matrix,
+    when given), ``a_ij`` and ``beta_i^T z_ij`` as one BLAS product of the block's
+    ``[g_i; beta_i]`` (expanded at the block's mean) with ``[1, x_j]``, and
+    ``sum_j v_ij (u_jc - u_ic)^2`` expanded into one product of ``v`` with
+    ``[u_j, u_j^2, 1]`` (``u`` centred at the block's mean too, so that the expansion
+    loses few digits).
+    """
+    from hedgerow.kernels._kernels import _block_weights
+
+    d, n = XT.shape
+    k = XsT.shape[0]
+    U = XT.T
+    Xs = XsT.T
+    for queries, rows in blocks:
+        if not isinstance(queries, slice):
+            queries = queries[factor[queries] != 0.0]
+        elif not factor[queries].any():
+            continue
+        m = factor[queries].size
+        if not m:
+            continue
+        Ur, Xr, yr = (U, Xs, y) if rows is None else (U[rows], Xs[rows], y[rows])
+        Uq = U[queries]
+        mu = Uq.mean(axis=0)
+        Uw = Ur - mu
+        Qs = np.ascontiguousarray(Uq - mu)
+        p = Uw.shape[0]
+        if weights is not None:
+            W = weights[queries]
+        else:
+            W = np.empty((m, p))
+            nnz = np.empty(m, dtype=np.int64)
+            _block_weights(np.ascontiguousarray(Uw.T), Qs, 0,
+                           np.full(m, -1, dtype=np.int64), 0, log_cut, W, nnz)
+        V = np.empty((m, p))
+        # a_ij = g_i0 + sum_c g_ic (xs_jc - xs_ic): coefficients of [1, xs_j - nu]
+        Xq = Xs[queries]
+        nu = Xq.mean(axis=0) if k else np.zeros(0)
+        Z = np.empty((p, k + 1))
+        Z[:, 0] = 1.0
+        Z[:, 1:] = Xr - nu
+        coef = np.concatenate([g[queries], beta[queries]], axis=0)
+        if k:
+            shift = np.concatenate([Xq - nu, Xq - nu], axis=0)
+            coef[:, 0] -= np.einsum("ik,ik->i", coef[:, 1:], shift)
+        A = coef @ Z.T
+        _gradient_block_terms(W, A, np.ascontiguousarray(yr), factor[queries], r[queries], V)
+        F = np.empty((p, 2 * d + 1))
+        F[:, :d] = Uw
+        F[:, d:2 * d] = Uw * Uw
+        F[:, 2 * d] = 1.0
+        P = V @ F
+        out += (P[:, d:2 * d] - 2.0 * Qs * P[:, :d] + Qs * Qs * P[:, 2 * d:]).sum(axis=0)
+
+
+# Weights per query block of the blocked Gaussian gradient (512 KiB of doubles).
+_GRADIENT_BLOCK_ENTRIES = 1 << 16
+
+
 def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     """Return the gradient of the leave-one-out error in log bandwidth (see below).
 
@@ -323,7 +505,7 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     ``dr_i = -dyhat_{-i}`` uses ``g`` and ``beta`` of its fit without itself. Columns
     with an infinite bandwidth get 0.
     """
-    resid, fit, leverage, direct, fd = parts
+    resid, fit, leverage, direct, fd, W = parts
     n, d = X.shape
     h = np.asarray(bandwidth, dtype=np.float64)
     centre = X.mean(axis=0)
@@ -354,20 +536,36 @@ def _loo_gradient(X, y, bandwidth, kernel, degree, scale, parts):
     beta[bad] = 0.0
     out = np.zeros(d)
     code = _CODES[kernel]
-    windows = _reach_windows(X, h, kernel)
-    if windows is None:
-        first, last = np.zeros(n, dtype=np.int64), np.full(n, n, dtype=np.int64)
-        yy = np.ascontiguousarray(y)
-    else:  # the sums do not depend on the order of the rows: sort them
-        order, first, last = windows
-        XT, XsT = np.ascontiguousarray(XT[:, order]), np.ascontiguousarray(XsT[:, order])
-        g, beta = np.ascontiguousarray(g[order]), np.ascontiguousarray(beta[order])
-        r, factor, alone = r[order], factor[order], alone[order]
-        yy = np.ascontiguousarray(y[order])
-        first, last = first.astype(np.int64), last.astype(np.int64)
-        first[alone], last[alone] = 0, n
-    _gradient_sums(XT, XsT, yy, code, -math.log(GAUSSIAN_TRUNCATION),
-                   g, beta, r, factor, alone, first, last, out)
+    log_cut = -math.log(GAUSSIAN_TRUNCATION)
+    yy = np.ascontiguousarray(y)
+    if code == 0:
+        # dense blocks and BLAS for the rows in the hat-matrix identity; the few rows
+        # refitted alone (their own shift, all rows) through the row-by-row loop below
+        blocks = None if W is not None else _reach_blocks(X, h, kernel)
+        if blocks is None:
+            step = max(8, _GRADIENT_BLOCK_ENTRIES // max(n, 1))
+            blocks = [(slice(i, min(n, i + step)), None) for i in range(0, n, step)]
+        _gaussian_gradient_blocks(XT, XsT, yy, log_cut, g, beta, r,
+                                  np.where(alone, 0.0, factor), blocks, out, W)
+        factor = np.where(alone, factor, 0.0)
+        if factor.any():
+            first, last = np.zeros(n, dtype=np.int64), np.full(n, n, dtype=np.int64)
+            _gradient_sums(XT, XsT, yy, code, log_cut, g, beta, r, factor, alone, first,
+                           last, out)
+    else:
+        windows = _reach_windows(X, h, kernel)
+        if windows is None:
+            first, last = np.zeros(n, dtype=np.int64), np.full(n, n, dtype=np.int64)
+        else:  # the sums do not depend on the order of the rows: sort them
+            order, first, last = windows
+            XT, XsT = np.ascontiguousarray(XT[:, order]), np.ascontiguousarray(XsT[:, order])
+            g, beta = np.ascontiguousarray(g[order]), np.ascontiguousarray(beta[order])
+            r, factor, alone = r[order], factor[order], alone[order]
+            yy = np.ascontiguousarray(y[order])
+            first, last = first.astype(np.int64), last.astype(np.int64)
+            first[alone], last[alone] = 0, n
+        _gradient_sums(XT, XsT, yy, code, log_cut, g, beta, r, factor, alone, first, last,
+                       out)
     out *= 2.0 / n
     out[np.isinf(h)] = 0.0
     return out
@@ -552,6 +750,10 @@ class _Search:
         self.path_h: list[np.ndarray] = []
         self.path_e: list[float] = []
         self.drop_results: dict[bytes, float] = {}
+        self._parts = None  # (key, leave-one-out parts) of the latest evaluation
+        n = X.shape[0]
+        self._weights = (np.empty((n, n)) if kernel == "gaussian" and n * n
+                         <= _KEEP_WEIGHTS_ENTRIES else None)
 
     def evaluate(self, h, gradient=False, record=True):
         """Return ``(error, gradient or None)`` at ``h``; each new evaluation is a step."""
@@ -559,8 +761,14 @@ class _Search:
         hit = self.seen.get(key)
         if hit is not None and (hit[1] is not None or not gradient):
             return hit
-        parts = _loo_parts(self.X, self.y, h, self.kernel, self.degree, self.scale,
-                           self.features)
+        if hit is not None and self._parts is not None and self._parts[0] == key:
+            parts = self._parts[1]  # the error is known here: only the gradient is new
+        else:
+            parts = _loo_parts(self.X, self.y, h, self.kernel, self.degree, self.scale,
+                               self.features, self._weights)
+        # kept for a gradient asked for later at the same point (the start of stage 2
+        # is the best point of stage 1)
+        self._parts = (key, parts)
         resid = parts[0]
         if np.all(np.isfinite(resid)):
             err = float(np.mean(resid**2))
@@ -614,7 +822,9 @@ class _Search:
             return errors[i]
 
         best = origin
-        for step in (1, -1):
+        # narrower first: the rule of thumb tends to oversmooth a curved response, and
+        # narrow bandwidths are the cheap ones from CV_WINDOW_FROM rows on
+        for step in (-1, 1):
             i = origin
             while 0 <= i + step < factors.size and at(i + step) < at(i):
                 i += step

@@ -135,6 +135,7 @@ class LocalFit:
         Inverse of the penalised weighted Gram matrix
         ``M = sum_i w_i [1, z_i][1, z_i]^T + lam * s0 * diag(0, 1, ..., 1)``. For fallback
         queries it is the degree-0 inverse padded with zeros, ``diag(1/s0, 0, ..., 0)``.
+        Shape ``(m, 1, k+1)``, its first row only, from ``solve_local(..., first_row=True)``.
     fallback : ndarray of shape (m,), bool
         Queries whose degree-1 system was singular and which fell back to the weighted
         mean (see the module notes).
@@ -454,7 +455,8 @@ def _clears_collinearity(C, shift) -> np.ndarray:
     return out
 
 
-def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
+def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0, *,
+                first_row: bool = False) -> LocalFit:
     """Return the local fits at every query from precomputed moments.
 
     Parameters
@@ -464,6 +466,10 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
     ridge_penalty : float, default=0.0
         Penalty ``lam >= 0`` on the standardised slopes (intercept unpenalised); see the
         module notes for its scaling. Ignored for degree 0.
+    first_row : bool, default=False
+        Keep only the first row of ``gram_inv`` (shape ``(m, 1, k+1)``): what leverages
+        and equivalent kernels need, two right-hand sides per system instead of
+        ``k + 2`` (the leave-one-out search).
 
     Returns
     -------
@@ -528,18 +534,20 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0) -> LocalFit:
     S_ok = np.where(degenerate[:, None, None], eye, S)
 
     r = t1 - s1 * mean[:, None]
-    rhs = np.concatenate([r[:, :, None], s1[:, :, None], np.broadcast_to(eye, (m, k, k))], 2)
-    sol = np.linalg.solve(S_ok, rhs)
+    parts = [r[:, :, None], s1[:, :, None]]
+    if not first_row:
+        parts.append(np.broadcast_to(eye, (m, k, k)))
+    sol = np.linalg.solve(S_ok, np.concatenate(parts, 2))
     b = sol[:, :, 0]
     Sinv_s1 = sol[:, :, 1]
-    Sinv = sol[:, :, 2:]
     a = mean - np.einsum("mk,mk->m", s1, b) / safe_s0
 
-    gram_inv = np.empty((m, k + 1, k + 1))
+    gram_inv = np.empty((m, 1 if first_row else k + 1, k + 1))
     gram_inv[:, 0, 0] = 1.0 / safe_s0 + np.einsum("mk,mk->m", s1, Sinv_s1) / safe_s0**2
     gram_inv[:, 0, 1:] = -Sinv_s1 / safe_s0[:, None]
-    gram_inv[:, 1:, 0] = gram_inv[:, 0, 1:]
-    gram_inv[:, 1:, 1:] = Sinv
+    if not first_row:
+        gram_inv[:, 1:, 0] = gram_inv[:, 0, 1:]
+        gram_inv[:, 1:, 1:] = sol[:, :, 2:]
 
     fallback = degenerate & ~empty
     a = np.where(degenerate, mean, a)

@@ -8,6 +8,7 @@ from hedgerow.kernels import (
     CV_FLAT_FROM,
     CV_FLAT_TOLERANCE,
     KERNELS,
+    kernel_weights,
     loo_cv_error,
     loo_cv_gradient,
     select_bandwidth_cv,
@@ -184,8 +185,79 @@ def test_sums_within_the_kernels_reach_change_nothing(kernel, degree, monkeypatc
     full = loo_cv_gradient(X, y, h, kernel, degree)
     assert np.isfinite(full[0]) and np.all(np.isfinite(full[1]))
     monkeypatch.setattr(bandwidth_module, "CV_WINDOW_FROM", 100)
+    # the sums (and the Gaussian gradient) in reach blocks, the compact kernels'
+    # gradient loop in windows along one column
+    blocks = bandwidth_module._reach_blocks(X, h, kernel)
+    assert blocks is not None
+    queries = np.concatenate([q for q, _ in blocks])
+    assert np.array_equal(np.sort(queries), np.arange(len(X)))  # each row once
+    assert sum(q.size * rows.size for q, rows in blocks) < 0.8 * len(X) ** 2
+    for q, rows in blocks:  # no row with weight is left out of its block
+        W = kernel_weights(X, X[q], h, kernel, normalize=False).toarray()
+        outside = np.setdiff1d(np.arange(len(X)), rows)
+        assert not W[:, outside].any()
+        assert W[:, rows].any(axis=1).all()
     assert bandwidth_module._reach_windows(X, h, kernel) is not None
     windowed = loo_cv_gradient(X, y, h, kernel, degree)
     assert windowed[0] == pytest.approx(full[0], rel=1e-12)
     np.testing.assert_allclose(windowed[1], full[1], rtol=0,
                                atol=1e-10 * np.abs(full[1]).max())
+
+
+@pytest.mark.parametrize("degree", [0, 1])
+def test_gradient_from_the_kept_weight_matrix_equals_the_recomputed_one(degree):
+    """The search keeps the Gaussian weight matrix of its sums for the gradient; the
+    error and gradient are those of the path that recomputes the weights."""
+    import hedgerow.kernels._bandwidth as bandwidth_module
+    from hedgerow.local import default_scale
+
+    X, y = _design(10, 300, 3)
+    X[0] = X.max(axis=0) + 3.0 * X.std(axis=0)  # one row refitted alone
+    h = silverman_bandwidth(X) * 1.5
+    scale = default_scale(X)
+    plain = bandwidth_module._loo_parts(X, y, h, "gaussian", degree, scale)
+    kept = bandwidth_module._loo_parts(X, y, h, "gaussian", degree, scale,
+                                       weights=np.empty((300, 300)))
+    assert plain[5] is None and kept[5] is not None
+    assert plain[3].size >= 1  # the far row is refitted directly
+    np.testing.assert_allclose(kept[0], plain[0], rtol=1e-12)
+    g_plain = bandwidth_module._loo_gradient(X, y, h, "gaussian", degree, scale, plain)
+    g_kept = bandwidth_module._loo_gradient(X, y, h, "gaussian", degree, scale, kept)
+    np.testing.assert_allclose(g_kept, g_plain, rtol=0, atol=1e-11 * np.abs(g_plain).max())
+    # and the search's error is the one loo_cv_error gives
+    curve = select_bandwidth_cv(X, y, degree=degree)
+    keep = ~curve.ignored
+    assert curve.loo_error == pytest.approx(
+        loo_cv_error(X[:, keep], y, curve.bandwidth[keep], "gaussian", degree), rel=1e-12)
+
+
+def _untruncated_loo_error(X, y, h, degree):
+    """Leave-one-out error from the full Gaussian weight matrix, nothing truncated."""
+    U = X / h
+    D2 = ((U[:, None, :] - U[None, :, :]) ** 2).sum(axis=2)
+    W = np.exp(-0.5 * D2)
+    np.fill_diagonal(W, 0.0)  # row i left out of its own fit
+    if degree == 0:
+        fit = W @ y / W.sum(axis=1)
+    else:
+        Z = np.concatenate([np.ones((len(X), 1)), X], axis=1)
+        fit = np.empty(len(X))
+        for i in range(len(X)):
+            Zi = Z - np.append(0.0, X[i])
+            M = (Zi * W[i][:, None]).T @ Zi
+            fit[i] = np.linalg.solve(M, (Zi * W[i][:, None]).T @ y)[0]
+    return float(np.mean((y - fit) ** 2))
+
+
+@pytest.mark.parametrize("degree", [0, 1])
+@pytest.mark.parametrize(("seed", "widen"), [(11, 0.5), (12, 1.0), (13, 0.75)])
+def test_reach_blocks_keep_the_untruncated_objective(degree, seed, widen):
+    """From CV_WINDOW_FROM rows on the sums skip rows beyond the Gaussian's reach; the
+    error is still that of the untruncated kernel to round-off."""
+    import hedgerow.kernels._bandwidth as bandwidth_module
+
+    X, y = _design(seed, bandwidth_module.CV_WINDOW_FROM, 2)
+    h = silverman_bandwidth(X) * widen
+    assert bandwidth_module._reach_blocks(X, h, "gaussian") is not None
+    ours = loo_cv_error(X, y, h, "gaussian", degree)
+    assert ours == pytest.approx(_untruncated_loo_error(X, y, h, degree), rel=1e-12)

@@ -301,3 +301,29 @@ def test_edges_slopes_in_blocks_are_the_one_batch_slopes(monkeypatch):
     assert (whole.depth < D.EDGE_BAND).sum() > 7 * 3
     pd_testing = __import__("pandas").testing
     pd_testing.assert_frame_equal(whole.bend, blocked.bend)
+
+
+def test_each_probe_row_has_the_effective_n_of_its_own_weights():
+    # The README screenshot (orchard demo, forest refitted at subsample rate 0.2 and
+    # penalty 0.1, probe dragged to sun_hours 8.48) showed "effective n" 91.4 for the
+    # forests and for the kernel local linear smoother alike. Measured: 91.391 (forest
+    # weights) and 91.361 (kernel weights), two different figures that both round to
+    # 91.4 at three digits; each row's figure is Kish's n of that method's own weights.
+    from hedgerow import LocalLinearRegressor, NadarayaWatsonRegressor
+    from hedgerow.datasets import load_orchard_demo
+
+    X, y = load_orchard_demo(300)
+    forest = LocalLinearForestRegressor(n_estimators=100, random_state=0,
+                                        subsample_rate=0.2, ridge_penalty=0.1).fit(X, y)
+    smoothers = [NadarayaWatsonRegressor().fit(X, y), LocalLinearRegressor().fit(X, y)]
+    x = np.array([16.68, 8.477, 0.4352, 19.64, 4.0])
+    rep = probe(forest, x, compare=smoothers)
+    forest_n = kish_ess(forest.neighbour_weights(x[None, :]).data)
+    for name in ("local linear forest", "honest forest (same trees)"):
+        assert rep.method(name).ess == pytest.approx(forest_n, rel=1e-12)
+    for s in smoothers:
+        row = rep.method("Nadaraya-Watson" if isinstance(s, NadarayaWatsonRegressor)
+                         else "local linear (kernel)")
+        own = kish_ess(s.neighbour_weights(x[None, :]).data)
+        assert row.ess == pytest.approx(own, rel=1e-12)
+        assert row.ess != pytest.approx(forest_n, rel=1e-6)  # not the forest's figure

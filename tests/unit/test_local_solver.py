@@ -159,6 +159,28 @@ def test_singular_neighbourhoods_fall_back_to_the_weighted_mean():
     assert not ridge.fallback[1]
 
 
+@pytest.mark.parametrize("lam", [0.0, 0.3])
+def test_first_row_only_is_the_first_row_of_the_full_inverse(lam):
+    X, y, Q = _design(n=120, k=3, m=25, seed=4)
+    W = _random_weights(25, 120, 5)
+    W = W.toarray()
+    W[0] = 0.0  # an empty row
+    W[1, :] = 0.0
+    W[1, :3] = 1.0  # too few rows for a line in three columns: the fallback
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        moments = local_moments(sp.csr_matrix(W), X, y, Q, degree=1)
+        full = solve_local(moments, lam)
+        first = solve_local(moments, lam, first_row=True)
+    assert first.gram_inv.shape == (25, 1, 4) and full.gram_inv.shape == (25, 4, 4)
+    np.testing.assert_array_equal(first.fallback, full.fallback)
+    assert full.fallback[1] == (lam == 0.0)  # a ridge makes the system well posed
+    np.testing.assert_allclose(first.gram_inv[:, 0], full.gram_inv[:, 0], rtol=1e-12,
+                               equal_nan=True)
+    np.testing.assert_allclose(first.intercept, full.intercept, rtol=1e-12, equal_nan=True)
+    np.testing.assert_allclose(first.slopes, full.slopes, rtol=1e-12, equal_nan=True)
+
+
 def test_equivalent_kernel_reproduces_intercept_and_sums_to_one():
     X, y, Q = _design(seed=14)
     W = _random_weights(Q.shape[0], X.shape[0], seed=15, density=0.4)
