@@ -41,6 +41,7 @@ class CSS:
     decision_table = "hedgerow-decision-table"
     surface = "hedgerow-surface"
     surface_cell = "hedgerow-surface-cell"
+    saved_output = "hedgerow-saved-output"
 
 
 def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):

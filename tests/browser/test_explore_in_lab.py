@@ -107,7 +107,8 @@ def lab(tmp_path_factory):
                 raise RuntimeError("JupyterLab did not start: "
                                    + (base / "server.log").read_text()[-2000:]) from None
             time.sleep(0.3)
-    yield {"url": url, "token": token, "record": record, "log": base / "server.log"}
+    yield {"url": url, "token": token, "record": record, "log": base / "server.log",
+           "root": root}
     proc.terminate()
     try:
         proc.wait(timeout=15)
@@ -384,6 +385,98 @@ def test_the_explorer_renders_in_notebook_7(lab, page):
     except BaseException:
         pg.console_lines = []
         _save_failure(pg, "explore-notebook7")
+        raise
+    finally:
+        pg.close()
+
+
+SAVED_CELL = """\
+from hedgerow.datasets import load_orchard_demo
+from hedgerow.widgets import explore
+
+X, y = load_orchard_demo(200)
+explore(X, y, n_estimators=40, compare=False)
+"""
+
+
+def _saved_notebook(lab, name, *, trusted):
+    """Run a one-cell explorer notebook with nbclient (no widget state) and save it.
+
+    ``trusted``: saved through the server's contents API with trusted cells, as JupyterLab
+    saves a notebook the user ran (the server signs it); otherwise written as a file, as
+    a notebook received from someone else (no signature: opened untrusted).
+    """
+    import nbclient
+    import nbformat
+
+    book = nbformat.v4.new_notebook(metadata={"kernelspec": {
+        "name": "python3", "display_name": "Python 3", "language": "python"}})
+    book.cells = [nbformat.v4.new_code_cell(SAVED_CELL)]
+    nbclient.NotebookClient(book, timeout=300, store_widget_state=False).execute()
+    assert "widgets" not in book.metadata
+    if not trusted:
+        nbformat.write(book, lab["root"] / name)
+        return
+    for cell in book.cells:
+        cell.metadata["trusted"] = True
+    body = json.dumps({"type": "notebook", "format": "json", "content": book}).encode()
+    req = urllib.request.Request(f"{lab['url']}/api/contents/{name}?token={lab['token']}",
+                                 data=body, method="PUT",
+                                 headers={"Content-Type": "application/json"})
+    with urllib.request.urlopen(req, timeout=30) as answer:
+        assert answer.status in (200, 201)
+
+
+#: Why a trusted saved output cannot show the note (measured with jupyterlab_widgets 3.0.17).
+TRUSTED_OUTPUT_LIMIT = (
+    "measured: the output reads 'Error displaying widget: model not found'. JupyterLab "
+    "renders a trusted output with the highest-ranked renderer for its bundle; the widget "
+    "renderer (rank -10, above text/html) takes the widget-view entry and, once the widget "
+    "manager has restored without the model, writes that fixed text. It never reads the "
+    "bundle's other entries.")
+
+
+@pytest.mark.parametrize("trusted", [
+    False, pytest.param(True, marks=pytest.mark.xfail(strict=True, reason=TRUSTED_OUTPUT_LIMIT))],
+    ids=["untrusted", "trusted"])
+def test_saved_output_without_widget_state_shows_the_fallback(lab, page, trusted):
+    """A saved explorer output opened without running: the note, not an error.
+
+    Untrusted (a notebook received as a file): the widget renderer is not a safe renderer,
+    so JupyterLab picks the bundle's text/html, the note. Trusted (saved by JupyterLab
+    itself): see TRUSTED_OUTPUT_LIMIT.
+    """
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+
+    kind = "trusted" if trusted else "untrusted"
+    name = f"saved-explorer-{kind}.ipynb"
+    _saved_notebook(lab, name, trusted=trusted)
+    pg = page.context.new_page()
+    pg.console_lines = []
+    pg.on("console", lambda m: pg.console_lines.append(f"{m.type}: {m.text}"))
+    try:
+        pg.goto(f"{lab['url']}/lab/tree/{name}?token={lab['token']}", timeout=60_000)
+        _wait_for_kernel(pg)
+        # the notebook opened (not another one the workspace restored), and its cell is
+        # trusted exactly when it was saved through the server
+        panel_id, cell_trusted = pg.evaluate("""() => {
+          const w = window.jupyterapp.shell.currentWidget;
+          return [w.id, w.content.widgets[0].model.trusted];
+        }""")
+        assert cell_trusted is trusted
+        output = pg.locator(f"[id='{panel_id}'] .jp-OutputArea-output").first
+        output.wait_for(state="attached", timeout=30_000)
+        # the widget manager gives up on a missing model after 2 s of looking
+        _wait_until(lambda: "Loading widget" not in output.inner_text(), 30,
+                    "the widget manager to finish restoring")
+        time.sleep(3)
+        text = output.inner_text()
+        print(f"{name}: {text!r}")
+        pg.screenshot(path=str(ARTIFACTS / f"saved-output-{kind}.png"))
+        assert SAVED_OUTPUT_NOTE in text
+        assert "model not found" not in text
+    except BaseException:
+        _save_failure(pg, f"saved-output-{kind}")
         raise
     finally:
         pg.close()

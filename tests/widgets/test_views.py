@@ -647,3 +647,29 @@ def test_edges_marks_hold_only_drawable_points(app, session):
         assert len(mark.y) == np.isfinite(r).sum()
         assert np.isfinite(np.asarray(ev.mean_marks[name].y)).all()
     assert np.isfinite(np.asarray(ev.probe_rows_mark.y)).all()
+
+
+def test_display_bundle_carries_a_static_note_for_saved_outputs(app):
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+
+    bundle = app._repr_mimebundle_()
+    view = bundle["application/vnd.jupyter.widget-view+json"]
+    assert view["model_id"] == app.model_id  # the live widget is still referred to
+    assert bundle["text/plain"] == SAVED_OUTPUT_NOTE
+    assert SAVED_OUTPUT_NOTE in bundle["text/html"]
+    assert "hedgerow-saved-output" in bundle["text/html"]
+
+
+def test_saved_output_without_widget_state_exports_the_note(app):
+    """nbconvert skips the widget-view entry when the notebook holds no widget state."""
+    nbformat = pytest.importorskip("nbformat")
+    nbconvert = pytest.importorskip("nbconvert")
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+
+    book = nbformat.v4.new_notebook()
+    cell = nbformat.v4.new_code_cell("explore(X, y)")
+    cell.outputs = [nbformat.v4.new_output("display_data", data=app._repr_mimebundle_())]
+    book.cells = [cell]
+    page, _ = nbconvert.HTMLExporter().from_notebook_node(book)
+    assert SAVED_OUTPUT_NOTE in page
+    assert app.model_id not in page  # no widget view for a model that is not there
