@@ -141,6 +141,7 @@ class ProbeView(View):
                                         layout=W.Layout(width="220px"))
         self._medians_button.on_click(self._on_medians_clicked)
         self._toggles = W.VBox([])
+        self._toggles.add_class(CSS.legend)
         boxes = []
         for name, mark in [*self.slice_marks.items(), ("95% band", self.band_mark),
                            ("local line", self.line_mark)]:

@@ -42,6 +42,9 @@ class CSS:
     surface = "hedgerow-surface"
     surface_cell = "hedgerow-surface-cell"
     saved_output = "hedgerow-saved-output"
+    trees_slider = "hedgerow-trees-slider"
+    refit_cancel = "hedgerow-refit-cancel"
+    legend = "hedgerow-legend"
 
 
 def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):

@@ -350,6 +350,77 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
         raise
 
 
+def test_cancelling_a_refit_from_the_page_puts_the_slider_back(lab, page):
+    """Runs after the drag test on the same page: a trees-slider refit, cancelled."""
+    try:
+        page.locator(".lm-TabBar-tabLabel", has_text="tuning").first.click()
+        readout = page.locator(".hedgerow-trees-slider .widget-readout").first
+        readout.wait_for(state="visible", timeout=10_000)
+        in_place = readout.inner_text().strip()
+        status = page.locator(".hedgerow-explorer .hedgerow-refit-status:visible").first
+        _wait_until(lambda: not status.inner_text().startswith(("waiting", "running")), 120,
+                    "no refit running before the test")
+        handle = page.locator(".hedgerow-trees-slider .noUi-handle").first
+        _drag(page, handle, 400)  # many more trees: a refit of some seconds
+        _wait_until(lambda: readout.inner_text().strip() != in_place, 10,
+                    "the slider to show the new number of trees")
+        asked = readout.inner_text().strip()
+        # clicked as soon as it is enabled: while the refit waits or runs
+        page.locator(".hedgerow-refit-cancel").first.click(timeout=10_000)
+        _wait_until(lambda: status.inner_text().startswith("cancelled"), 30,
+                    "the status to say cancelled")
+        _wait_until(lambda: readout.inner_text().strip() == in_place, 10,
+                    "the trees slider back at the forest in place")
+        assert asked != in_place
+        bar = page.locator(".hedgerow-explorer .widget-hprogress:visible", has=page.locator(
+            ".widget-label", has_text="refit")).first.locator(".progress-bar")
+        assert bar.evaluate("e => e.style.width") == "0%"  # emptied, not left full
+        assert "progress-bar-warning" in bar.get_attribute("class")
+        page.screenshot(path=str(ARTIFACTS / "explore-refit-cancelled.png"))
+    except BaseException:
+        _save_failure(page, "explore-refit-cancel")
+        raise
+
+
+def _rgb(hex_colour):
+    h = hex_colour.lstrip("#")
+    return "rgb({}, {}, {})".format(*(int(h[k:k + 2], 16) for k in (0, 2, 4)))
+
+
+def test_a_legend_method_switched_off_and_on_keeps_its_swatch(lab, page):
+    """Runs after the drag test on the same page: the probe figure's legend toggles."""
+    from hedgerow.widgets._style import colour_of
+
+    try:
+        page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
+        name = "local linear forest"
+        row = page.locator(".hedgerow-legend .widget-hbox", has_text=name).first
+        row.wait_for(state="visible", timeout=10_000)
+        chip = row.locator(".widget-html span").first
+        box = row.locator("input[type=checkbox]").first
+        lines = page.locator(".hedgerow-probe-figure path.line:visible")
+        shown = lines.count()
+
+        def swatch():
+            b = chip.bounding_box()
+            colour = chip.evaluate("e => getComputedStyle(e).backgroundColor")
+            return b and b["width"] >= 8 and b["height"] >= 8 and colour
+
+        assert swatch() == _rgb(colour_of(name))
+        box.click()
+        _wait_until(lambda: lines.count() < shown, 10, f"the {name} line to hide")
+        assert swatch() == _rgb(colour_of(name))
+        box.click()
+        _wait_until(lambda: lines.count() == shown, 10, f"the {name} line to show again")
+        time.sleep(0.5)  # the row redrew: the swatch must still be there, full size
+        assert swatch() == _rgb(colour_of(name))
+        assert box.is_checked()
+        row.screenshot(path=str(ARTIFACTS / "explore-legend-entry.png"))
+    except BaseException:
+        _save_failure(page, "explore-legend")
+        raise
+
+
 @pytest.mark.skipif(importlib.util.find_spec("notebook") is None,
                     reason="Notebook 7 (the 'notebook' package) is not installed")
 def test_the_explorer_renders_in_notebook_7(lab, page):
