@@ -12,7 +12,7 @@ from hedgerow.widgets._decision_view import DecisionView
 from hedgerow.widgets._edges_view import EdgesView
 from hedgerow.widgets._probe_view import ProbeView
 from hedgerow.widgets._session import ExploreSession
-from hedgerow.widgets._style import CSS
+from hedgerow.widgets._style import CSS, SAVED_NOTE_RULES
 from hedgerow.widgets._tuning_view import TuningView
 from hedgerow.widgets._verdict_view import VerdictView
 from hedgerow.widgets._weights_view import WeightsView
@@ -67,6 +67,29 @@ class Explorer(W.Tab):
         bundle["text/html"] = (f"<div class='{CSS.saved_output}'><em>"
                                f"{html.escape(SAVED_OUTPUT_NOTE)}</em></div>")
         return bundle
+
+    def _ipython_display_(self, **kwargs):
+        """Display the widget, then a note shown only where the widget cannot be drawn.
+
+        JupyterLab draws a trusted saved output with the widget renderer even when the
+        widget's model is gone (no kernel-side widget, no saved widget state), which
+        writes "Error displaying widget: model not found" and never uses the bundle's
+        other entries. The second output holds the note collapsed (an inline style that
+        survives the sanitizer of untrusted outputs) and ``SAVED_NOTE_RULES``, which hide
+        that error and show the note. Front ends without those classes, or where the
+        rules are stripped, keep the second output collapsed.
+        """
+        from IPython.display import display
+
+        bundle = self._repr_mimebundle_() if callable(self._repr_mimebundle_) else None
+        if bundle is None:  # closed
+            display({"text/plain": repr(self)}, raw=True)
+            return
+        display(bundle, raw=True)
+        display({"text/html": (
+            f"<style>{SAVED_NOTE_RULES}</style><div class='{CSS.saved_note}' "
+            f"style='max-height:0;overflow:hidden'><em>{html.escape(SAVED_OUTPUT_NOTE)}"
+            f"</em></div>")}, raw=True)
 
     def close(self):
         """Close the widget and cancel the session's background jobs (smoothers, ...)."""

@@ -191,6 +191,13 @@ def _drag(page, handle, dx):
     return time.perf_counter()
 
 
+def _notes_on_screen(page):
+    """The saved-output notes drawn with a real size (a collapsed or hidden one is not)."""
+    return [n.inner_text() for n in page.locator(
+        ".hedgerow-saved-output, .hedgerow-saved-note").all()
+        if (n.bounding_box() or {}).get("height", 0) > 1]
+
+
 def _save_failure(page, name):
     ARTIFACTS.mkdir(exist_ok=True)
     page.screenshot(path=str(ARTIFACTS / f"{name}-failure.png"), full_page=True)
@@ -212,6 +219,7 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         decision = page.locator(".hedgerow-decision")
         decision.wait_for(state="visible", timeout=90_000)
         _wait_until(lambda: "decision:" in decision.inner_text(), 30, "the decision panel")
+        assert _notes_on_screen(page) == []  # live: the saved-output note stays hidden
         page.screenshot(path=str(ARTIFACTS / "explore-decision-on-open.png"))
         page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         readout = page.locator(".hedgerow-probe-readout")
@@ -452,6 +460,7 @@ def test_the_explorer_renders_in_notebook_7(lab, page):
         for name, row in rec["readout"].items():
             assert f"{row['prediction']:.4g}" in text, (name, text)
         assert pg.locator(".hedgerow-probe-figure path.dot").count() > 10
+        assert _notes_on_screen(pg) == []
         pg.screenshot(path=str(ARTIFACTS / "explore-notebook7.png"))
     except BaseException:
         pg.console_lines = []
@@ -498,24 +507,14 @@ def _saved_notebook(lab, name, *, trusted):
         assert answer.status in (200, 201)
 
 
-#: Why a trusted saved output cannot show the note (measured with jupyterlab_widgets 3.0.17).
-TRUSTED_OUTPUT_LIMIT = (
-    "measured: the output reads 'Error displaying widget: model not found'. JupyterLab "
-    "renders a trusted output with the highest-ranked renderer for its bundle; the widget "
-    "renderer (rank -10, above text/html) takes the widget-view entry and, once the widget "
-    "manager has restored without the model, writes that fixed text. It never reads the "
-    "bundle's other entries.")
-
-
-@pytest.mark.parametrize("trusted", [
-    False, pytest.param(True, marks=pytest.mark.xfail(strict=True, reason=TRUSTED_OUTPUT_LIMIT))],
-    ids=["untrusted", "trusted"])
+@pytest.mark.parametrize("trusted", [False, True], ids=["untrusted", "trusted"])
 def test_saved_output_without_widget_state_shows_the_fallback(lab, page, trusted):
     """A saved explorer output opened without running: the note, not an error.
 
     Untrusted (a notebook received as a file): the widget renderer is not a safe renderer,
     so JupyterLab picks the bundle's text/html, the note. Trusted (saved by JupyterLab
-    itself): see TRUSTED_OUTPUT_LIMIT.
+    itself): the widget renderer writes "Error displaying widget: model not found" whatever
+    the bundle holds; the explorer's second output hides that and shows the note.
     """
     from hedgerow.widgets import SAVED_OUTPUT_NOTE
 
@@ -535,17 +534,20 @@ def test_saved_output_without_widget_state_shows_the_fallback(lab, page, trusted
           return [w.id, w.content.widgets[0].model.trusted];
         }""")
         assert cell_trusted is trusted
-        output = pg.locator(f"[id='{panel_id}'] .jp-OutputArea-output").first
+        output = pg.locator(f"[id='{panel_id}'] .jp-Cell-outputArea").first
         output.wait_for(state="attached", timeout=30_000)
         # the widget manager gives up on a missing model after 2 s of looking
         _wait_until(lambda: "Loading widget" not in output.inner_text(), 30,
                     "the widget manager to finish restoring")
         time.sleep(3)
-        text = output.inner_text()
-        print(f"{name}: {text!r}")
         pg.screenshot(path=str(ARTIFACTS / f"saved-output-{kind}.png"))
-        assert SAVED_OUTPUT_NOTE in text
-        assert "model not found" not in text
+        # what is on screen: the notes with a real size (a collapsed one has height 0)
+        # and the text of the outputs not hidden
+        notes = _notes_on_screen(output)
+        text = output.inner_text()
+        print(f"{name}: notes on screen {notes}, output text {text!r}")
+        assert notes == [SAVED_OUTPUT_NOTE]
+        assert "model not found" not in text and "Error displaying widget" not in text
     except BaseException:
         _save_failure(pg, f"saved-output-{kind}")
         raise

@@ -749,3 +749,24 @@ def test_drag_steps_are_throttled_and_a_release_where_it_started_redraws(
     drag_step(view, second)  # the release reset the throttle
     assert view.sketch_x == pytest.approx(second)
     drag(view, start[j])
+
+
+def test_displaying_the_explorer_adds_a_collapsed_note_for_trusted_saved_outputs(
+        app, monkeypatch):
+    import IPython.display
+
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+    from hedgerow.widgets._style import SAVED_NOTE_RULES
+
+    shown = []
+    monkeypatch.setattr(IPython.display, "display",
+                        lambda *objs, **kw: shown.extend((o, kw) for o in objs))
+    app._ipython_display_()
+    (widget, kw1), (note, kw2) = shown
+    assert kw1 == kw2 == {"raw": True}
+    assert widget == app._repr_mimebundle_()  # the widget itself, with its own fallback
+    assert set(note) == {"text/html"}  # nothing for text-only front ends to print
+    page = note["text/html"]
+    assert SAVED_OUTPUT_NOTE in page and SAVED_NOTE_RULES in page
+    # collapsed by an inline style the sanitizer of untrusted outputs keeps
+    assert "class='hedgerow-saved-note' style='max-height:0;overflow:hidden'" in page
