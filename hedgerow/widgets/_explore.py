@@ -75,7 +75,7 @@ class Explorer(W.Tab):
         widget's model is gone (no kernel-side widget, no saved widget state), which
         writes "Error displaying widget: model not found" and never uses the bundle's
         other entries. The second output holds the note collapsed (an inline style that
-        survives the sanitizer of untrusted outputs) and ``SAVED_NOTE_RULES``, which hide
+        survives the sanitiser of untrusted outputs) and ``SAVED_NOTE_RULES``, which hide
         that error and show the note. Front ends without those classes, or where the
         rules are stripped, keep the second output collapsed.
         """

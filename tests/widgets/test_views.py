@@ -768,5 +768,5 @@ def test_displaying_the_explorer_adds_a_collapsed_note_for_trusted_saved_outputs
     assert set(note) == {"text/html"}  # nothing for text-only front ends to print
     page = note["text/html"]
     assert SAVED_OUTPUT_NOTE in page and SAVED_NOTE_RULES in page
-    # collapsed by an inline style the sanitizer of untrusted outputs keeps
+    # collapsed by an inline style the sanitiser of untrusted outputs keeps
     assert "class='hedgerow-saved-note' style='max-height:0;overflow:hidden'" in page
