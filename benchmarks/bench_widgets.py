@@ -2,7 +2,8 @@
 
 n = 10,000, d = 10 (make_friedman1), 1000 trees. Times, without a browser, the handler
 a drag end calls (`ProbeView._on_probe_moved`: diagnostics plus every mark update of the
-views that follow the probe) and one ridge-slider step (`session.ridge_penalty = λ`:
+views that follow the probe), a drag step (`_on_probe_dragged`: weights and local line
+only, printed as a ratio to the drag end) and one ridge-slider step (`session.ridge_penalty = λ`:
 everything redrawn without refitting; the out-of-bag interval-width readout follows from
 a background thread, and the time until it is shown is printed too). Budgets: probe move
 <= 30 ms median, ridge step <= 250 ms. The browser round trip (mouse-up to readout) is measured by
@@ -58,6 +59,21 @@ def main(argv=None):
     move = 1e3 * float(np.median(times[1:]))
     print(f"probe move, median of {len(times) - 1}: {move:.1f} ms, p95 "
           f"{1e3 * float(np.percentile(times[1:], 95)):.1f} ms   (budget <= 30 ms median)")
+    # a drag step draws only the weights and the local line (diagnostics.probe_sketch);
+    # the release above is its reference, measured in the same run
+    steps = []
+    for x in xs[::-1]:
+        view._sketched_at = -np.inf  # every step drawn (no throttle)
+        t = time.perf_counter()
+        view._on_probe_dragged(view.probe_mark, {"event": "drag", "point": {"x": float(x),
+                                                                            "y": 0.0}})
+        steps.append(time.perf_counter() - t)
+    assert view.error == "", view.error
+    step_ms = 1e3 * float(np.median(steps[1:]))
+    print(f"probe drag step (weights and local line only), median of {len(steps) - 1}: "
+          f"{step_ms:.1f} ms = {step_ms / move:.2f} x the release's drawing")
+    view._on_probe_moved(view.probe_mark, {"event": "drag_end", "point": {"x": float(xs[0]),
+                                                                          "y": 0.0}})
     lams = np.geomspace(1e-3, 3.0, 9)
     times, filled = [], []
     for lam in lams:

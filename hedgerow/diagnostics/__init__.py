@@ -31,7 +31,14 @@ from hedgerow.diagnostics._interactive import (
     slice_grid,
     weight_profile,
 )
-from hedgerow.diagnostics._probe import TOP_ROWS, WIDE_COLUMNS, MethodAtProbe, ProbeReport, probe
+from hedgerow.diagnostics._probe import (
+    TOP_ROWS,
+    WIDE_COLUMNS,
+    MethodAtProbe,
+    ProbeReport,
+    probe,
+    probe_sketch,
+)
 from hedgerow.diagnostics._report import check_probe_point, kish_ess
 from hedgerow.diagnostics._slices import SliceReport, method_label, resolve_feature, slices
 from hedgerow.diagnostics._split_half import SELECTIONS, SplitHalfReport, split_half_agreement
@@ -68,6 +75,7 @@ __all__ = [
     "oob_summary",
     "probe_anchor",
     "probe_readout",
+    "probe_sketch",
     "ridge_curve",
     "slice_grid",
     "weight_profile",

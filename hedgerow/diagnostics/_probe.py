@@ -21,7 +21,8 @@ from hedgerow.diagnostics._report import (
 from hedgerow.diagnostics._slices import method_label
 from hedgerow.inference import normal_interval
 
-__all__ = ["MethodAtProbe", "ProbeReport", "probe", "TOP_ROWS", "WIDE_COLUMNS"]
+__all__ = ["MethodAtProbe", "ProbeReport", "probe", "probe_sketch", "TOP_ROWS",
+           "WIDE_COLUMNS"]
 
 #: Rows counted in ``ProbeReport.top_share``.
 TOP_ROWS = 10
@@ -228,22 +229,9 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
     # one validated array from here to the weights: every estimator fitted on these
     # columns takes it without checking it again
     q = check_probe_point(model, x)
-    xq = np.asarray(q)
-    names = column_names(model)
+    hood = _neighbourhood(model, q)
+    W, xq = hood["weights"], np.asarray(q)
     bags = has_little_bags(model)
-    W = model.neighbour_weights(q)
-    w = W.toarray().ravel()
-    X = model.X_train_
-    sd, lo, hi = _column_summary(X)
-    # over the rows with weight only: the probe's cost does not grow with n
-    nz = np.flatnonzero(w)
-    diff = (X[nz] - xq) / sd
-    offset = w[nz] @ diff
-    spread = w[nz] @ np.abs(diff)
-    x0 = xq.reshape(-1)
-    outside = tuple((names[j], float(x0[j]), float(lo[j]), float(hi[j]))
-                    for j in np.flatnonzero((x0 < lo) | (x0 > hi)))
-    top = float(np.sort(W.data)[::-1][:TOP_ROWS].sum())
     is_llf = isinstance(model, LocalLinearForestRegressor)
     cols = model.correction_features_ if is_llf else np.arange(0)
     k = cols.size
@@ -283,9 +271,52 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
             np.full(k, np.nan), level,
             columns_used=int(getattr(smoother, "n_features_used_", smoother.n_features_in_)),
         ))
-    return ProbeReport(
-        x=xq[0], feature_names=names, weights=sp.csr_matrix(W), ess=kish_ess(W.data),
-        top_share=top, neighbour_offset=offset, neighbour_spread=spread,
-        slope_columns=np.asarray(cols), methods=tuple(methods), level=level,
-        outside=outside,
-    )
+    return ProbeReport(slope_columns=np.asarray(cols), methods=tuple(methods), level=level,
+                       **hood)
+
+
+def _neighbourhood(model, q):
+    """The probe's weights and where its neighbours lie: the fields every report shares."""
+    names = column_names(model)
+    xq = np.asarray(q)
+    W = model.neighbour_weights(q)
+    w = W.toarray().ravel()
+    X = model.X_train_
+    sd, lo, hi = _column_summary(X)
+    # over the rows with weight only: the probe's cost does not grow with n
+    nz = np.flatnonzero(w)
+    diff = (X[nz] - xq) / sd
+    x0 = xq.reshape(-1)
+    outside = tuple((names[j], float(x0[j]), float(lo[j]), float(hi[j]))
+                    for j in np.flatnonzero((x0 < lo) | (x0 > hi)))
+    return {"x": xq[0], "feature_names": names, "weights": sp.csr_matrix(W),
+            "ess": kish_ess(W.data), "top_share": float(np.sort(W.data)[::-1][:TOP_ROWS].sum()),
+            "neighbour_offset": w[nz] @ diff, "neighbour_spread": w[nz] @ np.abs(diff),
+            "outside": outside}
+
+
+def probe_sketch(model, x) -> ProbeReport:
+    """Return the cheap part of ``probe(model, x)``: the neighbour weights and the local line.
+
+    A ``ProbeReport`` with the same weights, effective sample size, neighbourhood and
+    outside-the-data fields as ``probe`` and one method: the local linear forest's
+    prediction and slopes from its local solve (an honest forest: its local average,
+    slope-free). No standard errors, intervals (NaN) or comparison smoothers: what the
+    probe view draws while the probe is being dragged; ``probe`` gives the rest on release.
+    """
+    from hedgerow.estimators import LocalLinearForestRegressor
+
+    check_model(model, "model", FORESTS)
+    q = check_probe_point(model, x)
+    hood = _neighbourhood(model, q)
+    W = hood["weights"]
+    if isinstance(model, LocalLinearForestRegressor):
+        cols = model.correction_features_
+        fit = model.local_fit(q)
+        entry = _method_entry("local linear forest", W, fit.intercept[0], None,
+                              fit.slopes[0], np.full(cols.size, np.nan), 0.95)
+    else:
+        cols = np.arange(0)
+        entry = _method_entry("honest forest (same trees)", W, model.local_average(q)[0],
+                              None, np.full(0, np.nan), np.full(0, np.nan), 0.95)
+    return ProbeReport(slope_columns=np.asarray(cols), methods=(entry,), **hood)

@@ -6,7 +6,7 @@ its own, built on an ``ExploreSession``.
 
 from hedgerow.widgets._decision_view import DecisionView
 from hedgerow.widgets._edges_view import EdgesView
-from hedgerow.widgets._explore import Explorer, explore
+from hedgerow.widgets._explore import SAVED_OUTPUT_NOTE, Explorer, explore
 from hedgerow.widgets._probe_view import ProbeView
 from hedgerow.widgets._session import ExploreSession, ProbeScene, RefitCancelled
 from hedgerow.widgets._tuning_view import TuningView
@@ -14,4 +14,5 @@ from hedgerow.widgets._verdict_view import VerdictView
 from hedgerow.widgets._weights_view import WeightsView
 
 __all__ = ["DecisionView", "EdgesView", "ExploreSession", "Explorer", "ProbeScene", "ProbeView",
-           "RefitCancelled", "TuningView", "VerdictView", "WeightsView", "explore"]
+           "RefitCancelled", "SAVED_OUTPUT_NOTE", "TuningView", "VerdictView", "WeightsView",
+           "explore"]

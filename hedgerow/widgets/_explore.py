@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import html
 import warnings
 
 import ipywidgets as W
@@ -11,13 +12,17 @@ from hedgerow.widgets._decision_view import DecisionView
 from hedgerow.widgets._edges_view import EdgesView
 from hedgerow.widgets._probe_view import ProbeView
 from hedgerow.widgets._session import ExploreSession
+from hedgerow.widgets._style import CSS, SAVED_NOTE_RULES
 from hedgerow.widgets._tuning_view import TuningView
 from hedgerow.widgets._verdict_view import VerdictView
 from hedgerow.widgets._weights_view import WeightsView
 
-__all__ = ["Explorer", "explore"]
+__all__ = ["Explorer", "explore", "SAVED_OUTPUT_NOTE"]
 
 TAB_TITLES = ("decision", "probe", "neighbour weights", "edges", "tuning", "verdict")
+
+#: What a saved output shows where the live explorer was (no kernel, no widget state).
+SAVED_OUTPUT_NOTE = "hedgerow explorer: run the cell again to bring it back"
 
 
 class Explorer(W.Tab):
@@ -46,6 +51,45 @@ class Explorer(W.Tab):
         k = self.selected_index if self.selected_index is not None else 0
         if not self._slots[k].children:
             self._slots[k].children = [self._views[k]]
+
+    def _repr_mimebundle_(self, **kwargs):
+        """The widget's view reference plus a static note for front ends that cannot show it.
+
+        A front end draws the widget-view entry when it has the widget's model; without a
+        model (a saved output reopened, no widget state) a front end that picks another
+        entry of the bundle shows the note instead of the widget's repr. See
+        DEVELOPERS.md ("Saved outputs") for which front ends do.
+        """
+        bundle = super()._repr_mimebundle_(**kwargs)
+        if bundle is None:  # a closed widget has no view to refer to
+            return None
+        bundle["text/plain"] = SAVED_OUTPUT_NOTE
+        bundle["text/html"] = (f"<div class='{CSS.saved_output}'><em>"
+                               f"{html.escape(SAVED_OUTPUT_NOTE)}</em></div>")
+        return bundle
+
+    def _ipython_display_(self, **kwargs):
+        """Display the widget, then a note shown only where the widget cannot be drawn.
+
+        JupyterLab draws a trusted saved output with the widget renderer even when the
+        widget's model is gone (no kernel-side widget, no saved widget state), which
+        writes "Error displaying widget: model not found" and never uses the bundle's
+        other entries. The second output holds the note collapsed (an inline style that
+        survives the sanitiser of untrusted outputs) and ``SAVED_NOTE_RULES``, which hide
+        that error and show the note. Front ends without those classes, or where the
+        rules are stripped, keep the second output collapsed.
+        """
+        from IPython.display import display
+
+        bundle = self._repr_mimebundle_() if callable(self._repr_mimebundle_) else None
+        if bundle is None:  # closed
+            display({"text/plain": repr(self)}, raw=True)
+            return
+        display(bundle, raw=True)
+        display({"text/html": (
+            f"<style>{SAVED_NOTE_RULES}</style><div class='{CSS.saved_note}' "
+            f"style='max-height:0;overflow:hidden'><em>{html.escape(SAVED_OUTPUT_NOTE)}"
+            f"</em></div>")}, raw=True)
 
     def close(self):
         """Close the widget and cancel the session's background jobs (smoothers, ...)."""

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import html
+import time
 
 import bqplot as bq
 import ipywidgets as W
@@ -30,12 +31,18 @@ CELL = "padding:2px 18px 2px 0"
 #: Significant digits the coordinate boxes show (the probe keeps full precision).
 COORD_DIGITS = 4
 
+#: Least time (s) from one drawing to the next while the probe is dragged: drag events
+#: that arrive sooner are skipped, so a burst of them never delays the release's drawing.
+DRAG_SKETCH_INTERVAL = 0.05
+
 
 class ProbeView(View):
     """Training rows against one column, weighted at the probe, with every method's slice.
 
     Drag the black triangle along the x-axis to move the probe; click a row to put the
     probe's other coordinates at that row's values; edit any coordinate in the panel.
+    While the triangle is dragged only the neighbour weights and the local line follow it
+    (``sketch_probe``); the slices, band and readout table follow on release.
     """
 
     feature = t.Unicode(help="Column on the x-axis; the probe moves along it.")
@@ -43,6 +50,9 @@ class ProbeView(View):
     anchor_row = t.Int(-1, help="Row whose values the probe takes (-1: column medians).")
     readout = t.Dict(help="Per method: prediction, half_width and ess, as the readout shows.")
     shown_rows = t.Int(0, help="Rows drawn in the scatter (a subsample above 5,000).")
+    sketch_x = t.Float(None, allow_none=True,
+                       help="Where the dragged probe's weights and line are drawn (None: "
+                            "the figure shows probe_x).")
 
     def __init__(self, session, *, feature=None, **kwargs):
         super().__init__(session, **kwargs)
@@ -107,6 +117,7 @@ class ProbeView(View):
                                      marker="triangle-up", colors=[PROBE_COLOUR],
                                      default_size=260, enable_move=True, restrict_x=True,
                                      tooltip=bq.Tooltip(fields=["x"], formats=[".3g"]))
+        self.probe_mark.on_drag(self._on_probe_dragged)
         self.probe_mark.on_drag_end(self._on_probe_moved)
         self._x_axis = bq.Axis(scale=self._xs, label="")
         axes = [self._x_axis, bq.Axis(scale=self._ys, orientation="vertical",
@@ -130,6 +141,7 @@ class ProbeView(View):
                                         layout=W.Layout(width="220px"))
         self._medians_button.on_click(self._on_medians_clicked)
         self._toggles = W.VBox([])
+        self._toggles.add_class(CSS.legend)
         boxes = []
         for name, mark in [*self.slice_marks.items(), ("95% band", self.band_mark),
                            ("local line", self.line_mark)]:
@@ -158,10 +170,50 @@ class ProbeView(View):
             grid_template_columns="repeat(3, 310px)"))
 
     # -- front-end and trait handlers --------------------------------------------------
+    _sketched_at = -np.inf
+
+    def _on_probe_dragged(self, mark, event):
+        """A drag step of the probe marker: draw the cheap parts there (throttled)."""
+        if time.perf_counter() - self._sketched_at < DRAG_SKETCH_INTERVAL:
+            return
+        with self._shown_errors("dragging the probe"):
+            self.sketch_probe(float(event["point"]["x"]))
+        self._sketched_at = time.perf_counter()
+
     def _on_probe_moved(self, mark, event):
         """Drag end of the probe marker: move the probe along the column."""
         with self._shown_errors("moving the probe"):
+            before = list(self.probe_x)
             self.move_probe(float(event["point"]["x"]))
+            if self.sketch_x is not None and self.probe_x == before:
+                self._redraw()  # released where it started: the sketch goes
+        self._sketched_at = -np.inf
+
+    def sketch_probe(self, value):
+        """Draw the neighbour weights and the local line with the probe at ``value``.
+
+        ``value`` is in the shown column (clamped to the data), the other coordinates are
+        the probe's. From ``diagnostics.probe_sketch``; ``probe_x``, the slices, the band,
+        the coordinate boxes and the readout table stay as they are until the probe is
+        moved (``move_probe``, the release of a drag).
+        """
+        from hedgerow.diagnostics import local_line, neighbourhood_span
+
+        s = self._session
+        j = self._names.index(self.feature)
+        col = s.X_train[:, j]
+        x = list(self.probe_x)
+        x[j] = float(np.clip(value, col.min(), col.max()))
+        rep = s.probe_sketch(x)
+        size, opacity = marker_scaling(rep.weights.toarray().ravel()[self._rows])
+        lx, ly = local_line(rep, j, None, within=neighbourhood_span(rep, s.X_train, j),
+                            method=rep.methods[0].name)
+        with held(self.rows_mark, self.line_mark, self.point_mark):
+            self.rows_mark.size, self.rows_mark.opacities = size, opacity
+            self.line_mark.x, self.line_mark.y = lx, ly
+            self.point_mark.x = np.array([x[j]])
+            self.point_mark.y = np.array([rep.methods[0].prediction])
+        self.sketch_x = x[j]
 
     def _on_row_clicked(self, mark, event):
         """Click on a training row: pin the probe's coordinates to that row."""
@@ -268,6 +320,7 @@ class ProbeView(View):
             self.point_mark.y = np.array([rep.method("local linear forest").prediction])
             self.probe_mark.x = np.array([rep.x[j]])
             self.probe_mark.y = np.array([self._ys.min])
+        self.sketch_x = None
         self._syncing = True
         try:
             for box, v in zip(self._coord_boxes, rep.x, strict=True):

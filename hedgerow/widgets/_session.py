@@ -265,6 +265,14 @@ class ExploreSession(t.HasTraits):
         return self._cached(("probe", x.tobytes(), len(smoothers)), lambda: D.probe(
             self.penalised_model(), x, compare=smoothers))
 
+    def probe_sketch(self, x):
+        """Return ``diagnostics.probe_sketch`` at ``x``: the weights and the local line.
+
+        Not cached: drawn while the probe is dragged, each point once.
+        """
+        with _quiet():
+            return D.probe_sketch(self.penalised_model(), np.asarray(x, dtype=np.float64))
+
     def scene(self, x, feature, grid_size=80) -> ProbeScene:
         """Return the ``ProbeScene`` at ``x`` with ``feature`` on the x-axis."""
         x = np.asarray(x, dtype=np.float64)

@@ -41,6 +41,11 @@ class CSS:
     decision_table = "hedgerow-decision-table"
     surface = "hedgerow-surface"
     surface_cell = "hedgerow-surface-cell"
+    saved_output = "hedgerow-saved-output"
+    saved_note = "hedgerow-saved-note"
+    trees_slider = "hedgerow-trees-slider"
+    refit_cancel = "hedgerow-refit-cancel"
+    legend = "hedgerow-legend"
 
 
 def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):
@@ -85,3 +90,20 @@ def sequential_colour(share) -> str:
     light, dark = np.array([0xf2, 0xf6, 0xfb]), np.array([0x1f, 0x3d, 0x73])
     r, g, b = (light + share * (dark - light)).round().astype(int)
     return f"#{r:02x}{g:02x}{b:02x}"
+
+
+#: Rules the explorer's second output carries (see ``Explorer._ipython_display_``). In
+#: JupyterLab / Notebook 7 a widget output whose model is gone is the output element itself
+#: with the class ``jupyter-widgets`` and the manager's error as text; a live or loading
+#: one does not have that class (a live view's own elements do, one level down). Only
+#: that error state right before a saved note is hidden, and only then the note is shown.
+SAVED_NOTE_RULES = (
+    ".jp-OutputArea-child:has(.hedgerow-saved-note){display:none}"
+    ".jp-OutputArea-child:has(> .jp-OutputArea-output.jupyter-widgets)"
+    ":has(+ .jp-OutputArea-child .hedgerow-saved-note){display:none}"
+    ".jp-OutputArea-child:has(> .jp-OutputArea-output.jupyter-widgets)"
+    " + .jp-OutputArea-child:has(.hedgerow-saved-note){display:flex !important}"
+    ".jp-OutputArea-child:has(> .jp-OutputArea-output.jupyter-widgets)"
+    " + .jp-OutputArea-child .hedgerow-saved-note"
+    "{max-height:none !important;overflow:visible !important}"
+)

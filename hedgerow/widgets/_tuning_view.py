@@ -91,7 +91,9 @@ class TuningView(View):
             w.observe(lambda ch, key=key: self._on_setting_changed(key, ch["new"]), "value")
         self.progress = W.FloatProgress(value=0.0, min=0.0, max=1.0, description="refit",
                                         style=style)
+        self.trees_slider.add_class(CSS.trees_slider)
         self.cancel_button = W.Button(description="cancel refit", disabled=True)
+        self.cancel_button.add_class(CSS.refit_cancel)
         self.cancel_button.on_click(self._on_cancel_clicked)
         self.status_html = W.HTML()
         self.status_html.add_class(CSS.refit_status)

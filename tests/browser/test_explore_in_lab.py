@@ -107,7 +107,8 @@ def lab(tmp_path_factory):
                 raise RuntimeError("JupyterLab did not start: "
                                    + (base / "server.log").read_text()[-2000:]) from None
             time.sleep(0.3)
-    yield {"url": url, "token": token, "record": record, "log": base / "server.log"}
+    yield {"url": url, "token": token, "record": record, "log": base / "server.log",
+           "root": root}
     proc.terminate()
     try:
         proc.wait(timeout=15)
@@ -190,6 +191,13 @@ def _drag(page, handle, dx):
     return time.perf_counter()
 
 
+def _notes_on_screen(page):
+    """The saved-output notes drawn with a real size (a collapsed or hidden one is not)."""
+    return [n.inner_text() for n in page.locator(
+        ".hedgerow-saved-output, .hedgerow-saved-note").all()
+        if (n.bounding_box() or {}).get("height", 0) > 1]
+
+
 def _save_failure(page, name):
     ARTIFACTS.mkdir(exist_ok=True)
     page.screenshot(path=str(ARTIFACTS / f"{name}-failure.png"), full_page=True)
@@ -211,6 +219,7 @@ def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):
         decision = page.locator(".hedgerow-decision")
         decision.wait_for(state="visible", timeout=90_000)
         _wait_until(lambda: "decision:" in decision.inner_text(), 30, "the decision panel")
+        assert _notes_on_screen(page) == []  # live: the saved-output note stays hidden
         page.screenshot(path=str(ARTIFACTS / "explore-decision-on-open.png"))
         page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
         readout = page.locator(".hedgerow-probe-readout")
@@ -349,6 +358,77 @@ def test_every_tab_draws_its_figures_without_errors(lab, page):
         raise
 
 
+def test_cancelling_a_refit_from_the_page_puts_the_slider_back(lab, page):
+    """Runs after the drag test on the same page: a trees-slider refit, cancelled."""
+    try:
+        page.locator(".lm-TabBar-tabLabel", has_text="tuning").first.click()
+        readout = page.locator(".hedgerow-trees-slider .widget-readout").first
+        readout.wait_for(state="visible", timeout=10_000)
+        in_place = readout.inner_text().strip()
+        status = page.locator(".hedgerow-explorer .hedgerow-refit-status:visible").first
+        _wait_until(lambda: not status.inner_text().startswith(("waiting", "running")), 120,
+                    "no refit running before the test")
+        handle = page.locator(".hedgerow-trees-slider .noUi-handle").first
+        _drag(page, handle, 400)  # many more trees: a refit of some seconds
+        _wait_until(lambda: readout.inner_text().strip() != in_place, 10,
+                    "the slider to show the new number of trees")
+        asked = readout.inner_text().strip()
+        # clicked as soon as it is enabled: while the refit waits or runs
+        page.locator(".hedgerow-refit-cancel").first.click(timeout=10_000)
+        _wait_until(lambda: status.inner_text().startswith("cancelled"), 30,
+                    "the status to say cancelled")
+        _wait_until(lambda: readout.inner_text().strip() == in_place, 10,
+                    "the trees slider back at the forest in place")
+        assert asked != in_place
+        bar = page.locator(".hedgerow-explorer .widget-hprogress:visible", has=page.locator(
+            ".widget-label", has_text="refit")).first.locator(".progress-bar")
+        assert bar.evaluate("e => e.style.width") == "0%"  # emptied, not left full
+        assert "progress-bar-warning" in bar.get_attribute("class")
+        page.screenshot(path=str(ARTIFACTS / "explore-refit-cancelled.png"))
+    except BaseException:
+        _save_failure(page, "explore-refit-cancel")
+        raise
+
+
+def _rgb(hex_colour):
+    h = hex_colour.lstrip("#")
+    return "rgb({}, {}, {})".format(*(int(h[k:k + 2], 16) for k in (0, 2, 4)))
+
+
+def test_a_legend_method_switched_off_and_on_keeps_its_swatch(lab, page):
+    """Runs after the drag test on the same page: the probe figure's legend toggles."""
+    from hedgerow.widgets._style import colour_of
+
+    try:
+        page.locator(".lm-TabBar-tabLabel", has_text="probe").first.click()
+        name = "local linear forest"
+        row = page.locator(".hedgerow-legend .widget-hbox", has_text=name).first
+        row.wait_for(state="visible", timeout=10_000)
+        chip = row.locator(".widget-html span").first
+        box = row.locator("input[type=checkbox]").first
+        lines = page.locator(".hedgerow-probe-figure path.line:visible")
+        shown = lines.count()
+
+        def swatch():
+            b = chip.bounding_box()
+            colour = chip.evaluate("e => getComputedStyle(e).backgroundColor")
+            return b and b["width"] >= 8 and b["height"] >= 8 and colour
+
+        assert swatch() == _rgb(colour_of(name))
+        box.click()
+        _wait_until(lambda: lines.count() < shown, 10, f"the {name} line to hide")
+        assert swatch() == _rgb(colour_of(name))
+        box.click()
+        _wait_until(lambda: lines.count() == shown, 10, f"the {name} line to show again")
+        time.sleep(0.5)  # the row redrew: the swatch must still be there, full size
+        assert swatch() == _rgb(colour_of(name))
+        assert box.is_checked()
+        row.screenshot(path=str(ARTIFACTS / "explore-legend-entry.png"))
+    except BaseException:
+        _save_failure(page, "explore-legend")
+        raise
+
+
 @pytest.mark.skipif(importlib.util.find_spec("notebook") is None,
                     reason="Notebook 7 (the 'notebook' package) is not installed")
 def test_the_explorer_renders_in_notebook_7(lab, page):
@@ -380,10 +460,96 @@ def test_the_explorer_renders_in_notebook_7(lab, page):
         for name, row in rec["readout"].items():
             assert f"{row['prediction']:.4g}" in text, (name, text)
         assert pg.locator(".hedgerow-probe-figure path.dot").count() > 10
+        assert _notes_on_screen(pg) == []
         pg.screenshot(path=str(ARTIFACTS / "explore-notebook7.png"))
     except BaseException:
         pg.console_lines = []
         _save_failure(pg, "explore-notebook7")
+        raise
+    finally:
+        pg.close()
+
+
+SAVED_CELL = """\
+from hedgerow.datasets import load_orchard_demo
+from hedgerow.widgets import explore
+
+X, y = load_orchard_demo(200)
+explore(X, y, n_estimators=40, compare=False)
+"""
+
+
+def _saved_notebook(lab, name, *, trusted):
+    """Run a one-cell explorer notebook with nbclient (no widget state) and save it.
+
+    ``trusted``: saved through the server's contents API with trusted cells, as JupyterLab
+    saves a notebook the user ran (the server signs it); otherwise written as a file, as
+    a notebook received from someone else (no signature: opened untrusted).
+    """
+    import nbclient
+    import nbformat
+
+    book = nbformat.v4.new_notebook(metadata={"kernelspec": {
+        "name": "python3", "display_name": "Python 3", "language": "python"}})
+    book.cells = [nbformat.v4.new_code_cell(SAVED_CELL)]
+    nbclient.NotebookClient(book, timeout=300, store_widget_state=False).execute()
+    assert "widgets" not in book.metadata
+    if not trusted:
+        nbformat.write(book, lab["root"] / name)
+        return
+    for cell in book.cells:
+        cell.metadata["trusted"] = True
+    body = json.dumps({"type": "notebook", "format": "json", "content": book}).encode()
+    req = urllib.request.Request(f"{lab['url']}/api/contents/{name}?token={lab['token']}",
+                                 data=body, method="PUT",
+                                 headers={"Content-Type": "application/json"})
+    with urllib.request.urlopen(req, timeout=30) as answer:
+        assert answer.status in (200, 201)
+
+
+@pytest.mark.parametrize("trusted", [False, True], ids=["untrusted", "trusted"])
+def test_saved_output_without_widget_state_shows_the_fallback(lab, page, trusted):
+    """A saved explorer output opened without running: the note, not an error.
+
+    Untrusted (a notebook received as a file): the widget renderer is not a safe renderer,
+    so JupyterLab picks the bundle's text/html, the note. Trusted (saved by JupyterLab
+    itself): the widget renderer writes "Error displaying widget: model not found" whatever
+    the bundle holds; the explorer's second output hides that and shows the note.
+    """
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+
+    kind = "trusted" if trusted else "untrusted"
+    name = f"saved-explorer-{kind}.ipynb"
+    _saved_notebook(lab, name, trusted=trusted)
+    pg = page.context.new_page()
+    pg.console_lines = []
+    pg.on("console", lambda m: pg.console_lines.append(f"{m.type}: {m.text}"))
+    try:
+        pg.goto(f"{lab['url']}/lab/tree/{name}?token={lab['token']}", timeout=60_000)
+        _wait_for_kernel(pg)
+        # the notebook opened (not another one the workspace restored), and its cell is
+        # trusted exactly when it was saved through the server
+        panel_id, cell_trusted = pg.evaluate("""() => {
+          const w = window.jupyterapp.shell.currentWidget;
+          return [w.id, w.content.widgets[0].model.trusted];
+        }""")
+        assert cell_trusted is trusted
+        output = pg.locator(f"[id='{panel_id}'] .jp-Cell-outputArea").first
+        output.wait_for(state="attached", timeout=30_000)
+        # the widget manager gives up on a missing model after 2 s of looking
+        _wait_until(lambda: "Loading widget" not in output.inner_text(), 30,
+                    "the widget manager to finish restoring")
+        time.sleep(3)
+        pg.screenshot(path=str(ARTIFACTS / f"saved-output-{kind}.png"))
+        # what is on screen: the notes with a real size (a collapsed one has height 0)
+        # and the text of the outputs not hidden
+        notes = _notes_on_screen(output)
+        text = output.inner_text()
+        print(f"{name}: notes on screen {notes}, output text {text!r}")
+        assert notes == [SAVED_OUTPUT_NOTE]
+        assert "model not found" not in text and "Error displaying widget" not in text
+    except BaseException:
+        _save_failure(pg, f"saved-output-{kind}")
         raise
     finally:
         pg.close()

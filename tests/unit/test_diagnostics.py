@@ -327,3 +327,46 @@ def test_each_probe_row_has_the_effective_n_of_its_own_weights():
         own = kish_ess(s.neighbour_weights(x[None, :]).data)
         assert row.ess == pytest.approx(own, rel=1e-12)
         assert row.ess != pytest.approx(forest_n, rel=1e-6)  # not the forest's figure
+
+
+def test_probe_sketch_is_the_cheap_part_of_probe(data, llf):
+    # what the probe view draws while dragging: the same weights and local line as the
+    # full probe, without intervals, standard errors or comparison smoothers
+    from hedgerow.diagnostics import local_line, neighbourhood_span, probe_sketch
+
+    X, y = data
+    x = np.array([0.95, 0.5, 0.5, 0.5])
+    full, sketch = probe(llf, x), probe_sketch(llf, x)
+    np.testing.assert_array_equal(sketch.weights.toarray(), full.weights.toarray())
+    assert sketch.ess == full.ess and sketch.top_share == full.top_share
+    np.testing.assert_array_equal(sketch.neighbour_offset, full.neighbour_offset)
+    np.testing.assert_array_equal(sketch.slope_columns, full.slope_columns)
+    assert [m.name for m in sketch.methods] == ["local linear forest"]
+    mine, theirs = sketch.method("local linear forest"), full.method("local linear forest")
+    assert mine.prediction == pytest.approx(theirs.prediction, rel=1e-12)
+    np.testing.assert_allclose(mine.slopes, theirs.slopes, rtol=1e-12)
+    assert np.isnan(mine.lower) and np.isnan(mine.upper) and np.all(np.isnan(mine.slope_se))
+    for j in range(X.shape[1]):
+        span = neighbourhood_span(sketch, X, j)
+        assert span == neighbourhood_span(full, X, j)
+        np.testing.assert_allclose(local_line(sketch, j, None, within=span),
+                                   local_line(full, j, None, within=span), rtol=1e-12)
+    # an honest forest: its local average, no line
+    hon = HonestForestRegressor(n_estimators=40, random_state=0).fit(X, y)
+    avg = probe_sketch(hon, x).method("honest forest (same trees)")
+    w = hon.neighbour_weights(x[None, :]).toarray().ravel()
+    assert avg.prediction == pytest.approx(w @ y, rel=1e-10) and avg.slopes.size == 0
+    # outside the data: the same note as the full probe
+    far = np.array([1.5, 0.5, 0.5, 0.5])
+    assert probe_sketch(llf, far).outside == probe(llf, far).outside != ()
+
+
+def test_probe_sketch_bad_input(llf):
+    from hedgerow.diagnostics import probe_sketch
+
+    with pytest.raises(ValueError, match="4 values"):
+        probe_sketch(llf, np.array([0.5, 0.5]))
+    with pytest.raises(ValueError, match="finite"):
+        probe_sketch(llf, np.array([0.5, np.nan, 0.5, 0.5]))
+    with pytest.raises((ValueError, TypeError), match="model"):
+        probe_sketch(LocalLinearForestRegressor(), np.array([0.5, 0.5, 0.5, 0.5]))

@@ -647,3 +647,126 @@ def test_edges_marks_hold_only_drawable_points(app, session):
         assert len(mark.y) == np.isfinite(r).sum()
         assert np.isfinite(np.asarray(ev.mean_marks[name].y)).all()
     assert np.isfinite(np.asarray(ev.probe_rows_mark.y)).all()
+
+
+def test_display_bundle_carries_a_static_note_for_saved_outputs(app):
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+
+    bundle = app._repr_mimebundle_()
+    view = bundle["application/vnd.jupyter.widget-view+json"]
+    assert view["model_id"] == app.model_id  # the live widget is still referred to
+    assert bundle["text/plain"] == SAVED_OUTPUT_NOTE
+    assert SAVED_OUTPUT_NOTE in bundle["text/html"]
+    assert "hedgerow-saved-output" in bundle["text/html"]
+
+
+def test_saved_output_without_widget_state_exports_the_note(app):
+    """nbconvert skips the widget-view entry when the notebook holds no widget state."""
+    nbformat = pytest.importorskip("nbformat")
+    nbconvert = pytest.importorskip("nbconvert")
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+
+    book = nbformat.v4.new_notebook()
+    cell = nbformat.v4.new_code_cell("explore(X, y)")
+    cell.outputs = [nbformat.v4.new_output("display_data", data=app._repr_mimebundle_())]
+    book.cells = [cell]
+    page, _ = nbconvert.HTMLExporter().from_notebook_node(book)
+    assert SAVED_OUTPUT_NOTE in page
+    assert app.model_id not in page  # no widget view for a model that is not there
+
+
+def drag_step(view, x):
+    view._on_probe_dragged(view.probe_mark, {"event": "drag", "point": {"x": x, "y": 0.0},
+                                             "origin": {"x": 0.0, "y": 0.0}, "index": 0})
+
+
+def sketch_marks(session, view, x):
+    """What the drag path should draw at ``x``: from diagnostics.probe_sketch."""
+    j = session.feature_names.index(view.feature)
+    rep = D.probe_sketch(D.at_ridge_penalty(session.model, session.ridge_penalty), x)
+    size, _ = marker_scaling(rep.weights.toarray().ravel()[display_rows(len(session.y_train))])
+    line = D.local_line(rep, j, None, within=D.neighbourhood_span(rep, session.X_train, j))
+    return size, line
+
+
+def test_dragging_draws_weights_and_line_only_and_release_draws_the_table(
+        app, session, monkeypatch):
+    from hedgerow.widgets import _probe_view
+
+    monkeypatch.setattr(_probe_view, "DRAG_SKETCH_INTERVAL", 0.0)
+    view = app.probe_view
+    j = session.feature_names.index(view.feature)
+    col = session.X_train[:, j]
+    start, table, html_before = list(view.probe_x), dict(view.readout), view._readout_html.value
+    band_before = np.asarray(view.band_mark.y).copy()
+    scenes = []
+    real_scene = session.scene
+    monkeypatch.setattr(session, "scene", lambda *a, **k: scenes.append(a) or real_scene(*a, **k))
+    for q in (0.3, 0.6, 0.8):
+        target = float(np.quantile(col, q))
+        drag_step(view, target)
+        assert view.error == ""
+        x = list(start)
+        x[j] = target
+        size, (lx, ly) = sketch_marks(session, view, np.asarray(x))
+        np.testing.assert_allclose(view.rows_mark.size, size, rtol=1e-12)
+        np.testing.assert_allclose(view.line_mark.x, lx, rtol=1e-12)
+        np.testing.assert_allclose(view.line_mark.y, ly, rtol=1e-12)
+        assert view.sketch_x == pytest.approx(target)
+        # the table, the probe and the slices wait for the release
+        assert scenes == [] and view.probe_x == start
+        assert view.readout == table and view._readout_html.value == html_before
+        np.testing.assert_array_equal(view.band_mark.y, band_before)
+    drag(view, target)  # release
+    assert view.sketch_x is None and view.probe_x[j] == pytest.approx(target)
+    expected = D.probe_readout(direct_probe(session, view.probe_x))
+    for name, row in expected.iterrows():
+        assert view.readout[name]["prediction"] == pytest.approx(row["prediction"], rel=1e-9)
+        assert view.readout[name]["half_width"] == pytest.approx(row["half_width"], rel=1e-9)
+        assert f"{row['prediction']:.4g}" in view._readout_html.value
+    assert len(scenes) == 1
+
+
+def test_drag_steps_are_throttled_and_a_release_where_it_started_redraws(
+        app, session, monkeypatch):
+    from hedgerow.widgets import _probe_view
+
+    view = app.probe_view
+    j = session.feature_names.index(view.feature)
+    col = session.X_train[:, j]
+    start = list(view.probe_x)
+    full_size = np.asarray(view.rows_mark.size).copy()
+    monkeypatch.setattr(_probe_view, "DRAG_SKETCH_INTERVAL", 60.0)
+    first, second = float(np.quantile(col, 0.2)), float(np.quantile(col, 0.9))
+    drag_step(view, first)
+    assert view.sketch_x == pytest.approx(first)
+    drag_step(view, second)  # sooner than the interval: skipped
+    assert view.sketch_x == pytest.approx(first)
+    assert not np.allclose(view.rows_mark.size, full_size)
+    drag(view, start[j])  # released where it started: probe_x does not change
+    assert view.probe_x == start and view.sketch_x is None
+    np.testing.assert_allclose(view.rows_mark.size, full_size, rtol=1e-12)
+    drag_step(view, second)  # the release reset the throttle
+    assert view.sketch_x == pytest.approx(second)
+    drag(view, start[j])
+
+
+def test_displaying_the_explorer_adds_a_collapsed_note_for_trusted_saved_outputs(
+        app, monkeypatch):
+    import IPython.display
+
+    from hedgerow.widgets import SAVED_OUTPUT_NOTE
+    from hedgerow.widgets._style import SAVED_NOTE_RULES
+
+    shown = []
+    monkeypatch.setattr(IPython.display, "display",
+                        lambda *objs, **kw: shown.extend((o, kw) for o in objs))
+    app._ipython_display_()
+    (widget, kw1), (note, kw2) = shown
+    assert kw1 == kw2 == {"raw": True}
+    assert widget == app._repr_mimebundle_()  # the widget itself, with its own fallback
+    assert set(note) == {"text/html"}  # nothing for text-only front ends to print
+    page = note["text/html"]
+    assert SAVED_OUTPUT_NOTE in page and SAVED_NOTE_RULES in page
+    # collapsed by an inline style the sanitiser of untrusted outputs keeps
+    assert "class='hedgerow-saved-note' style='max-height:0;overflow:hidden'" in page
