@@ -124,13 +124,10 @@ def _reach_windows(X, bandwidth, kernel):
     bandwidth is the smallest share of the range (``order``), query ``order[p]`` needs
     only the sorted rows ``first[p]:last[p]``. None where that would keep most rows.
     """
-    n = X.shape[0]
-    h = np.asarray(bandwidth, dtype=np.float64)
-    if n < CV_WINDOW_FROM or not np.isfinite(h).any():
+    shares = _reach_shares(X, bandwidth, kernel)
+    if shares is None:
         return None
-    reach = _reach(kernel)
-    span = np.ptp(X, axis=0)
-    share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
+    h, reach, share = shares
     c = int(np.argmin(share))
     if 2.0 * reach * share[c] > 0.8:
         return None
@@ -145,6 +142,21 @@ def _reach_windows(X, bandwidth, kernel):
 # column), and the strip width in bandwidths of the first column (a share of the reach).
 _REACH_QUERIES = 64
 _STRIP_SHARE = 0.5
+
+
+def _reach_shares(X, bandwidth, kernel):
+    """Return ``(bandwidths, reach, share)`` for restricting sums to rows within reach.
+
+    ``share``: each column's bandwidth as a share of its range (inf where the bandwidth
+    is infinite or the column constant). None below :data:`CV_WINDOW_FROM` rows or when
+    no bandwidth is finite (every row reaches every row).
+    """
+    h = np.asarray(bandwidth, dtype=np.float64)
+    if X.shape[0] < CV_WINDOW_FROM or not np.isfinite(h).any():
+        return None
+    span = np.ptp(X, axis=0)
+    share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
+    return h, _reach(kernel), share
 
 
 def _reach(kernel):
@@ -170,12 +182,10 @@ def _reach_blocks(X, bandwidth, kernel):
     where the blocks would keep over 80% of all pairs.
     """
     n, d = X.shape
-    h = np.asarray(bandwidth, dtype=np.float64)
-    if n < CV_WINDOW_FROM or not np.isfinite(h).any():
+    shares = _reach_shares(X, bandwidth, kernel)
+    if shares is None:
         return None
-    reach = _reach(kernel)
-    span = np.ptp(X, axis=0)
-    share = np.where(np.isfinite(h) & (span > 0), h / np.where(span > 0, span, 1.0), np.inf)
+    h, reach, share = shares
     cols = np.argsort(share, kind="stable")[:2]
     cols = cols[np.isfinite(share[cols])]
     if not cols.size or 2.0 * reach * share[cols[0]] > 0.9:
