@@ -15,6 +15,7 @@ import ipywidgets as W
 import numpy as np
 import traitlets as t
 
+from hedgerow.diagnostics import has_little_bags
 from hedgerow.widgets._base import View, held, plain_figure, powers_of_ten
 from hedgerow.widgets._session import SURFACE_PENALTIES, SURFACE_RATES
 from hedgerow.widgets._style import (
@@ -41,6 +42,11 @@ SURFACE_MEASURES = {"out-of-bag RMSE": "oob_rmse", "mean interval width": "mean_
 #: Smallest penalty the log slider shows; 0 is shown at this end.
 SLIDER_MIN_EXP, SLIDER_MAX_EXP = -4, 2
 
+
+#: What the coverage readout says for a forest without little bags (no intervals).
+NO_BAGS_NOTE = ("<small>the coverage readout needs little bags: this forest has none (a "
+                "subsample rate above 0.5, or a tree count with no divisor from 2 to 32), so "
+                "it has no intervals to check</small>")
 
 class TuningView(View):
     """Ridge-penalty slider, out-of-bag readouts, refit controls and the coverage readout."""
@@ -143,6 +149,7 @@ class TuningView(View):
         self._redraw()
         self._on_refit_state()
         self._on_settings_changed()
+        self._show_coverage_availability()
 
     @staticmethod
     def _slider_value(lam):
@@ -210,6 +217,7 @@ class TuningView(View):
     def _on_model_changed(self, change):
         self._redraw()
         self._draw_surface()
+        self._show_coverage_availability()
         if self._session.refit_status not in ("waiting", "running"):
             self._show_forest_settings()
 
@@ -389,12 +397,29 @@ class TuningView(View):
         """Ask a running coverage readout to stop after its current replication."""
         self._session.cancel_jobs("coverage")
 
+    def _show_coverage_availability(self):
+        """Disable the coverage readout, saying why, for a forest without little bags."""
+        if self.coverage_status == "running":
+            return  # the run in progress finishes, and says what it found
+        if has_little_bags(self._session.model):
+            self.coverage_button.disabled = False
+            if self.coverage_html.value == NO_BAGS_NOTE:
+                self.coverage_html.value = "<small>not run yet</small>"
+        else:
+            self.coverage_button.disabled = True
+            self.coverage_html.value = NO_BAGS_NOTE
+
     def start_coverage(self):
         """Ask the session for the coverage readout of the current forest; return the job.
 
         Progress arrives after every replication; :meth:`cancel_coverage` (the stop
         button) ends the run after the current one and shows the replications done.
+        None, with the button disabled and the reason shown, for a forest without little
+        bags (its intervals need them).
         """
+        if not has_little_bags(self._session.model):
+            self._show_coverage_availability()
+            return None
         self.coverage_status, self.coverage_progress.bar_style = "running", "info"
         self.coverage_progress.value, self.coverage_button.disabled = 0.0, True
         self.coverage_cancel_button.disabled = False

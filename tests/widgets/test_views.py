@@ -770,3 +770,21 @@ def test_displaying_the_explorer_adds_a_collapsed_note_for_trusted_saved_outputs
     assert SAVED_OUTPUT_NOTE in page and SAVED_NOTE_RULES in page
     # collapsed by an inline style the sanitiser of untrusted outputs keeps
     assert "class='hedgerow-saved-note' style='max-height:0;overflow:hidden'" in page
+
+
+def test_coverage_readout_is_disabled_with_its_reason_for_a_forest_without_bags(data):
+    # subsample rate 0.7 leaves no little bags (each tree draws from a half-sample of its
+    # bag only at rates up to 0.5): no intervals, so no coverage to read; a clear note, not
+    # a failed run in the error area
+    from hedgerow.widgets._tuning_view import NO_BAGS_NOTE
+
+    X, y = data
+    app = explore(X, y, n_estimators=40, subsample_rate=0.7, compare=False)
+    try:
+        tv = app.tuning_view
+        assert app.session.model.trees_per_bag_ == 1
+        assert tv.coverage_button.disabled and tv.coverage_html.value == NO_BAGS_NOTE
+        assert tv.start_coverage() is None
+        assert tv.error == "" and app.session.latest_job("coverage") is None
+    finally:
+        app.close()
