@@ -385,9 +385,9 @@ def _specs(template, smoothers, baseline, others, random_state, n_jobs, view_pen
 
         smoothers = [NadarayaWatsonRegressor(), LocalLinearRegressor()]
     taken = {s[0] for s in specs}
+    smoothers = list(smoothers or ())  # once: a generator would be empty the second time
     smoother_labels = []
-    n_smoothers = len(list(smoothers or ()))
-    for i_m, m in enumerate(list(smoothers or ()) + list(others or ())):
+    for i_m, m in enumerate(smoothers + list(others or ())):
         if not hasattr(m, "fit") or not hasattr(m, "predict"):
             raise TypeError(f"The 'smoothers' and 'others' parameters must hold regressors "
                             f"with fit and predict. Got {type(m).__name__} instead.")
@@ -396,7 +396,7 @@ def _specs(template, smoothers, baseline, others, random_state, n_jobs, view_pen
             label, i = f"{method_label(m)} ({i})", i + 1
         taken.add(label)
         specs.append((label, clone(m), None))
-        if i_m < n_smoothers:
+        if i_m < len(smoothers):
             smoother_labels.append(label)
     return specs, smoother_labels
 

@@ -246,3 +246,6 @@ def test_kernel_smoothers_are_shown_but_do_not_change_the_sentence():
     assert r["upper_all"] < 0 and "The smoother does better" in with_sm.smoother_note
     assert without.smoother_note == ""
     assert with_sm.smoother_note in repr(with_sm)
+    # smoothers given as a generator are taken once, whole
+    gen = verdict(X, y, forest=_forest(), smoothers=(m for m in sm), progress=False)
+    assert list(gen.comparisons.index) == list(with_sm.comparisons.index)
