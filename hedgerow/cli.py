@@ -3,13 +3,14 @@
 ``hedgerow report DATA.csv --target COLUMN [--out FILE] [--features A B ...]
 [--feature COLUMN] [--seed N] [--trees N] [--no-compare] [--no-baseline] [--full]`` reads
 a CSV, fits a local linear forest and writes the self-contained HTML report of
-``hedgerow.report``. Above ``hedgerow.report.COMPARISON_ROWS`` rows the verdict and the
-kernel smoothers run on a seeded random subsample of that many rows (said in the report
-and on stderr) unless ``--full``. Above ``LARGE_TABLE_ROWS`` rows the forest grows
-``LARGE_TABLE_TREES`` trees unless ``--trees`` is given (said the same way): the report of
-a 300,000-row table then fits in minutes and in memory. Bad input gives one line on
-stderr and exit code 2; the report is written atomically, so an earlier file survives a
-failed run.
+``hedgerow.report``. With ``--treatment COLUMN`` it fits a treatment-effect forest
+instead (``--target`` is the outcome) and writes the effect report, its caution first.
+Above ``hedgerow.report.COMPARISON_ROWS`` rows the verdict and the kernel smoothers run on
+a seeded random subsample of that many rows (said in the report and on stderr) unless
+``--full``. Above ``LARGE_TABLE_ROWS`` rows the forest grows ``LARGE_TABLE_TREES`` trees
+unless ``--trees`` is given (said the same way): the report of a 300,000-row table then
+fits in minutes and in memory. Bad input gives one line on stderr and exit code 2; the
+report is written atomically, so an earlier file survives a failed run.
 """
 
 from __future__ import annotations
@@ -101,6 +102,11 @@ def _parser() -> argparse.ArgumentParser:
     rep.add_argument("--full", action="store_true",
                      help=f"run the verdict and the kernel smoothers on every row (default: "
                           f"above {COMPARISON_ROWS:,} rows they use a random {COMPARISON_ROWS:,})")
+    rep.add_argument("--treatment", metavar="COLUMN", default=None,
+                     help="write the effect report of a treatment-effect forest instead: "
+                          "COLUMN holds the treatment (0/1, or a continuous dose) and "
+                          "--target the outcome; --feature, --coverage-reps, --no-compare, "
+                          "--no-baseline and --full do not apply")
     rep.add_argument("--quiet", action="store_true", help="no progress bar")
     return parser
 
@@ -109,8 +115,12 @@ def _columns_text(columns) -> str:
     return ", ".join(repr(str(c)) for c in columns)
 
 
-def read_table(path: Path, target: str, features=None, feature=None):
-    """Return ``(X, y)`` read from the CSV at ``path``, or raise ``InputError``."""
+def read_table(path: Path, target: str, features=None, feature=None, treatment=None):
+    """Return ``(X, y)`` read from the CSV at ``path``, or raise ``InputError``.
+
+    With ``treatment`` (a column name) return ``(X, y, w)``: that column is the treatment,
+    left out of the default features and refused among them.
+    """
     import pandas as pd
 
     from hedgerow.report import MIN_ROWS
@@ -141,8 +151,18 @@ def read_table(path: Path, target: str, features=None, feature=None):
     if target not in available:
         raise InputError(f"target column {target!r} not found in '{path}'; available "
                          f"columns: {_columns_text(available)}")
+    if treatment is not None:
+        if treatment not in available:
+            raise InputError(f"--treatment column {treatment!r} not found in '{path}'; "
+                             f"available columns: {_columns_text(available)}")
+        if treatment == target:
+            raise InputError(f"--treatment column {treatment!r} is also the target; the "
+                             f"target is the outcome the treatment acts on")
+        if features is not None and treatment in features:
+            raise InputError(f"the treatment column {treatment!r} cannot also be a feature "
+                             f"(--features)")
     if features is None:
-        features = [c for c in available if c != target]
+        features = [c for c in available if c not in (target, treatment)]
     else:
         missing = [c for c in features if c not in available]
         if missing:
@@ -162,7 +182,7 @@ def read_table(path: Path, target: str, features=None, feature=None):
                          f"columns: {_columns_text(features)}")
     if frame.shape[0] == 0:
         raise InputError(f"data file '{path}' has a header but no data rows")
-    used = [target, *features]
+    used = [target, *features] + ([treatment] if treatment is not None else [])
     bad = [c for c in used if not pd.api.types.is_numeric_dtype(frame[c])
            or pd.api.types.is_bool_dtype(frame[c])]
     if bad:
@@ -192,6 +212,13 @@ def read_table(path: Path, target: str, features=None, feature=None):
     if y.nunique() == 1:
         raise InputError(f"the target column {target!r} is constant (every row is "
                          f"{y.iloc[0]!r}): nothing to smooth; no report written")
+    if treatment is not None:
+        w = frame[treatment].astype("float64")
+        if w.nunique() == 1:
+            raise InputError(f"the treatment column {treatment!r} is constant (every row is "
+                             f"{w.iloc[0]!r}, a single arm): no effect can be estimated; no "
+                             f"report written")
+        return X, y, w
     return X, y
 
 
@@ -205,6 +232,8 @@ def _report(args) -> int:
     parent = out.parent if str(out.parent) else Path(".")
     if not parent.is_dir():
         raise InputError(f"--out folder '{parent}' does not exist")
+    if args.treatment is not None:
+        return _effect_report(args, data, out)
     X, y = read_table(data, args.target, args.features, args.feature)
 
     from hedgerow import LocalLinearForestRegressor
@@ -238,16 +267,63 @@ def _report(args) -> int:
             path = write_html(report, out)
         except OSError as exc:  # the writer's message names --out and the earlier file
             raise InputError(str(exc.strerror or exc)) from None
+    _print_warnings(caught)
+    for note in report.notes:
+        print(f"{PROG}: note: {note}", file=sys.stderr)
+    print(f"wrote {path}")
+    print(f"verdict: {report.verdict.conclusion}")
+    return EXIT_OK
+
+
+def _print_warnings(caught):
     seen = set()
     for w in caught:
         text = f"{w.category.__name__}: {str(w.message).splitlines()[0]}"
         if text not in seen:
             seen.add(text)
             print(f"{PROG}: warning: {text}", file=sys.stderr)
-    for note in report.notes:
-        print(f"{PROG}: note: {note}", file=sys.stderr)
+
+
+def _effect_report(args, data, out) -> int:
+    """``report --treatment``: the effect report of a treatment-effect forest."""
+    from hedgerow.report import build_effect_report, write_html
+
+    unused = [flag for flag, on in (("--feature", args.feature is not None),
+                                    ("--coverage-reps", args.coverage_reps > 0),
+                                    ("--no-compare", args.no_compare),
+                                    ("--no-baseline", args.no_baseline),
+                                    ("--full", args.full)) if on]
+    if unused:
+        raise InputError(f"{', '.join(unused)} do{'es' if len(unused) == 1 else ''} not "
+                         f"apply with --treatment (the effect report)")
+    X, y, w = read_table(data, args.target, args.features, None, treatment=args.treatment)
+
+    from hedgerow import TreatmentEffectForest
+
+    params = {"random_state": args.seed}
+    if args.trees is not None:
+        params["n_estimators"] = args.trees
+    elif len(y) > LARGE_TABLE_ROWS:
+        params["n_estimators"] = LARGE_TABLE_TREES
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            report = build_effect_report(X, y, w, model=TreatmentEffectForest(**params),
+                                         title=args.title, progress=not args.quiet,
+                                         random_state=args.seed)
+        except (ValueError, TypeError) as exc:
+            raise InputError(str(exc).splitlines()[0]) from None
+        try:
+            path = write_html(report, out)
+        except OSError as exc:
+            raise InputError(str(exc.strerror or exc)) from None
+    _print_warnings(caught)
+    a = report.averages["all"]
+    lo, hi = a.interval(report.level)
     print(f"wrote {path}")
-    print(f"verdict: {report.verdict.conclusion}")
+    print(f"average effect: {a.estimate:.4g} ({100 * report.level:g}% interval {lo:.4g} "
+          f"to {hi:.4g}, {a.method})")
+    print(f"caution: {report.cautions[0]}")
     return EXIT_OK
 
 

@@ -15,7 +15,9 @@ would still only show state, not recompute it.
 The package formats what the diagnostics functions return; it computes no statistics.
 Its modules: ``_content`` (value objects, sections, cautions), ``_inputs`` (checks before
 any fit), ``_build`` (the steps and their progress, writing), ``_figures`` (matplotlib),
-``_html`` (the page), ``_numbers`` (the one number formatter).
+``_html`` (the page), ``_numbers`` (the one number formatter); ``_effect`` and
+``_effect_html`` the effect report of a ``TreatmentEffectForest`` (``build_effect_report``,
+``save_effect_html``), its caution first and last.
 """
 
 from __future__ import annotations
@@ -32,8 +34,16 @@ from hedgerow.report._content import (
     Report,
     Settings,
 )
+from hedgerow.report._effect import (
+    EFFECT_REPORT_CAUTIONS,
+    EFFECT_SECTIONS,
+    EffectReport,
+    build_effect_report,
+    save_effect_html,
+)
 from hedgerow.report._inputs import data_fingerprint
 
 __all__ = ["DataSummary", "Report", "Settings", "build_report", "save_html", "write_html",
            "data_fingerprint", "MIN_ROWS", "COMPARISON_ROWS", "SECTIONS", "REPORT_COLOURS",
-           "CAUTION_KERNEL", "CAUTIONS_BASE"]
+           "CAUTION_KERNEL", "CAUTIONS_BASE", "EffectReport", "build_effect_report",
+           "save_effect_html", "EFFECT_SECTIONS", "EFFECT_REPORT_CAUTIONS"]

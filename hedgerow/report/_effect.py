@@ -1,0 +1,219 @@
+"""The effect report: one self-contained page on a treatment-effect forest.
+
+``build_effect_report(X, y, treatment, ...)`` fits (or takes) a ``TreatmentEffectForest``
+and gathers, from the estimator's own methods and ``hedgerow.diagnostics``, the numbers a
+reviewer of an effect reading needs: the doubly robust average effect overall, in the edge
+band and in the interior; the overlap of the two arms; the effect at the probe with and
+without the local linear correction; and the cautions. ``EffectReport.to_html()`` renders
+the page (same style, security policy and number formatter as the regression report).
+
+The caution leads the page and closes it: an effect reading assumes unconfoundedness,
+which nothing here checks, and overlap; it is decision support, not advice.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from hedgerow import diagnostics as D
+from hedgerow._progress import progress_bar
+from hedgerow.report._content import DataSummary
+from hedgerow.report._inputs import check_flag, check_report_data, data_fingerprint, probe_input
+
+__all__ = ["EffectReport", "EFFECT_SECTIONS", "build_effect_report", "save_effect_html",
+           "EFFECT_REPORT_CAUTIONS"]
+
+#: Section ids of the effect page, in order.
+EFFECT_SECTIONS = ("average", "overlap", "probe", "data", "settings", "cautions")
+
+#: Cautions of every effect report, after ``EFFECT_CAUTION`` itself.
+EFFECT_REPORT_CAUTIONS = (
+    "Overlap is checked only as far as the propensity model sees: a propensity near 0 or "
+    "1 means few comparable units in the other arm, and the effect there rests on "
+    "extrapolation by the forest.",
+    "The effect at the probe and its interval are for units like the probe's neighbours; "
+    "they do not say what happens to a unit outside the data.",
+    "Intervals come from little bags of the forest's trees and measure how much the "
+    "estimate varies; they do not include the centring models' errors beyond what the "
+    "out-of-bag centring absorbs, nor any confounding.",
+)
+
+_STEPS = ("fit", "average effect", "overlap", "probe")
+
+
+@dataclass(frozen=True)
+class EffectReport:
+    """Everything an effect page shows, computed once; ``to_html()`` renders it.
+
+    Attributes
+    ----------
+    title : page title. data : ``DataSummary`` of (X, y). treatment : ``"binary"`` or
+    ``"continuous"``. averages : part -> ``AverageEffect`` (``all``, ``edge band``,
+    ``interior``; the edge band is rows with edge depth below ``D.EDGE_BAND``).
+    overlap : propensity summary by arm (dict). probe : column -> value of the probe.
+    at_probe : method -> dict(effect, lower, upper, std). slopes : column -> local slope
+    of the effect at the probe. settings : estimator parameters. cautions : sentences,
+    ``EFFECT_CAUTION`` first. model : the fitted forest. level : interval level.
+    """
+
+    title: str
+    data: DataSummary
+    treatment: str
+    averages: Mapping
+    overlap: Mapping
+    probe: Mapping
+    at_probe: Mapping
+    slopes: Mapping
+    settings: Mapping
+    cautions: tuple
+    level: float
+    created: str
+    version: str
+    model: object = field(repr=False)
+
+    @property
+    def sections(self) -> tuple:
+        """Return the ids of the sections the page shows, in order."""
+        return EFFECT_SECTIONS
+
+    def to_html(self) -> str:
+        """Return the report as one self-contained HTML document."""
+        from hedgerow.report._effect_html import render_effect
+
+        return render_effect(self)
+
+
+def _check_treatment_column(treatment, n):
+    from hedgerow.estimators._effect_forest import _check_treatment
+
+    return _check_treatment(treatment, n)
+
+
+def _resolve_effect_model(model, Xa, ya, w, random_state):
+    from sklearn.base import clone
+    from sklearn.exceptions import NotFittedError
+    from sklearn.utils.validation import check_is_fitted
+
+    from hedgerow.estimators import TreatmentEffectForest
+
+    if model is None:
+        return TreatmentEffectForest(random_state=random_state).fit(Xa, ya, w)
+    if not isinstance(model, TreatmentEffectForest):
+        raise TypeError(f"The 'model' parameter must be a TreatmentEffectForest or None. "
+                        f"Got {type(model).__name__} instead.")
+    try:
+        check_is_fitted(model)
+    except NotFittedError:
+        return clone(model).fit(Xa, ya, w)
+    if model.X_train_.shape != Xa.shape or not np.array_equal(model.X_train_, Xa):
+        raise ValueError("The 'model' parameter must be fitted on this X (or be unfitted): "
+                         "its training rows differ from the rows given.")
+    return model
+
+
+def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, level=0.95,
+                        progress=True, random_state=0) -> EffectReport:
+    """Return the :class:`EffectReport` of a treatment-effect forest on ``(X, y, treatment)``.
+
+    Parameters
+    ----------
+    X : DataFrame or 2-d array of numbers. y : the outcome, one value per row.
+    treatment : 0/1 per row (binary) or a continuous dose.
+    model : None (fit a ``TreatmentEffectForest`` with default settings and
+        ``random_state``), one fitted on these rows, or an unfitted one (a clone is
+        fitted; the object passed stays unfitted).
+    probe : the probe point: None (column medians), a sequence of d values, a Series or a
+        dict column -> value (other columns at their medians).
+    title : page title (default "hedgerow effect report: <target>").
+    level : interval level of the averages and of the effect at the probe.
+    progress : show a progress bar over the steps.
+
+    Caution: decision support, not advice. The reading assumes unconfoundedness (no
+    diagnostic here checks it) and overlap; defer to the study design and domain review.
+    """
+    from hedgerow import __version__
+    from hedgerow._validation import check_level
+    from hedgerow.estimators._effect_forest import EFFECT_CAUTION
+
+    progress = check_flag("progress", progress)
+    level = check_level(level)
+    if title is not None and not isinstance(title, str):
+        raise TypeError(f"The 'title' parameter must be a string or None. Got {title!r} "
+                        f"instead.")
+    Xa, ya, columns, target, stand_in = check_report_data(X, y)
+    w, binary = _check_treatment_column(treatment, Xa.shape[0])
+    anchor = D.probe_anchor(Xa)
+    x = anchor if probe is None else D.check_probe_point(
+        stand_in, probe_input(probe, columns, anchor))[0]
+    bar = progress_bar(len(_STEPS), "effect report", enabled=progress)
+    try:
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message="X does not have valid feature names")
+            bar.set_postfix_str("fit")
+            model = _resolve_effect_model(model, Xa, ya, w, random_state)
+            bar.update(1)
+            bar.set_postfix_str("average effect")
+            depth = D.edge_depth(Xa)[0]
+            edge = depth < D.EDGE_BAND
+            averages = {"all": model.average_effect()}
+            for part, mask in (("edge band", edge), ("interior", ~edge)):
+                if mask.sum() >= 2:
+                    averages[part] = model.average_effect(mask)
+            bar.update(1)
+            bar.set_postfix_str("overlap")
+            ov = model.overlap()
+            overlap = _overlap_summary(ov, model)
+            bar.update(1)
+            bar.set_postfix_str("probe")
+            q = x.reshape(1, -1)
+            at_probe = {}
+            for name, corrected in (("corrected forest", True), ("uncorrected forest", False)):
+                tau, std = model.predict_effect(q, return_std=True, corrected=corrected)
+                lo, hi = model.effect_interval(q, level, corrected=corrected)
+                at_probe[name] = {"effect": float(tau[0]), "std": float(std[0]),
+                                  "lower": float(lo[0]), "upper": float(hi[0])}
+            slopes = dict(zip(columns, map(float, model.local_slopes(q)[0]), strict=True))
+            bar.update(1)
+    finally:
+        bar.close()
+    data = DataSummary(n_rows=int(Xa.shape[0]), n_columns=int(Xa.shape[1]),
+                       columns=columns, target=target, fingerprint=data_fingerprint(Xa, ya))
+    return EffectReport(
+        title=title if title is not None else f"hedgerow effect report: {target}",
+        data=data, treatment="binary" if binary else "continuous", averages=averages,
+        overlap=overlap, probe={c: float(v) for c, v in zip(columns, x, strict=True)},
+        at_probe=at_probe, slopes=slopes, settings=model.get_params(),
+        cautions=(EFFECT_CAUTION,) + EFFECT_REPORT_CAUTIONS, level=level,
+        created=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        version=__version__, model=model,
+    )
+
+
+def _overlap_summary(ov, model) -> dict:
+    """Return the propensity's range and quartiles by arm and the flagged count."""
+    e = ov["propensity"]
+    out = {"n_flagged": int(ov["flagged"].sum()), "n": int(e.shape[0]), "arms": {}}
+    groups = ov.get("by_arm") or {"all rows": e}
+    for arm, values in groups.items():
+        label = {0: "untreated", 1: "treated"}.get(arm, arm)
+        q = np.quantile(values, [0.0, 0.25, 0.5, 0.75, 1.0]) if values.size else [np.nan] * 5
+        out["arms"][label] = {"n": int(values.size), "min": float(q[0]), "q1": float(q[1]),
+                              "median": float(q[2]), "q3": float(q[3]), "max": float(q[4])}
+    return out
+
+
+def save_effect_html(path, X, y, treatment, **kwargs):
+    """Build the effect report and write it to ``path`` atomically; return the path.
+
+    Parameters are those of :func:`build_effect_report`. A failure at any point leaves an
+    earlier file at ``path`` as it was.
+    """
+    from hedgerow.report._build import _check_path, write_html
+
+    path = _check_path(path)
+    return write_html(build_effect_report(X, y, treatment, **kwargs), path)

@@ -1,0 +1,111 @@
+"""The effect report as one HTML page (same style and policy as ``_html``): no script,
+nothing fetched, every text escaped, the caution first and last."""
+
+from __future__ import annotations
+
+from hedgerow import diagnostics as D
+from hedgerow.report._html import _CSP, _CSS, _e, _kv_table, _table
+from hedgerow.report._numbers import number
+
+__all__ = ["render_effect"]
+
+_HEADINGS = {
+    "average": "Average effect", "overlap": "Overlap of the arms", "probe": "At the probe",
+    "data": "Data", "settings": "Settings", "cautions": "Cautions",
+}
+
+
+def _section(sid, body) -> str:
+    return f'<section id="{sid}"><h2>{_e(_HEADINGS[sid])}</h2>{body}</section>'
+
+
+def _pct(level) -> str:
+    return f"{number(100 * level, 3)}%"
+
+
+def _average_html(r) -> str:
+    rows = []
+    for part, a in r.averages.items():
+        lo, hi = a.interval(r.level)
+        rows.append([_e(part), number(a.n), number(a.estimate), number(a.std_error),
+                     f"{number(lo)} to {number(hi)}"])
+    method = r.averages["all"].method
+    return (f"<p>The average effect of the treatment on <code>{_e(r.data.target)}</code> "
+            f"({_e(method)}), with its standard error and {_pct(r.level)} normal interval; "
+            f"overall, in the edge band (rows with edge depth below "
+            f"{number(D.EDGE_BAND, 2)} in some column) and in the interior.</p>"
+            + _table(["rows", "n", "average effect", "standard error",
+                      f"{_pct(r.level)} interval"], rows, "hr-average"))
+
+
+def _overlap_html(r) -> str:
+    o = r.overlap
+    rows = [[_e(arm), number(s["n"]), number(s["min"]), number(s["q1"]), number(s["median"]),
+             number(s["q3"]), number(s["max"])] for arm, s in o["arms"].items()]
+    flagged = (f"{number(o['n_flagged'])} of {number(o['n'])} rows have a propensity within "
+               f"0.05 of 0 or 1 (weak overlap)." if r.treatment == "binary" else
+               "Continuous treatment: the spread of the treatment's centred values stands "
+               "in for overlap; no rows are flagged.")
+    return ("<p>The estimated propensity e(x) (out-of-bag centring forest) by arm. Where "
+            "the arms' ranges do not meet, units of one arm have no comparable units in the "
+            f"other.</p><p class='hr-note'>{_e(flagged)}</p>"
+            + _table(["arm", "rows", "min", "lower quartile", "median", "upper quartile",
+                      "max"], rows, "hr-overlap"))
+
+
+def _probe_html(r) -> str:
+    rows = [[_e(name), number(v["effect"]), number(v["std"]), number(v["lower"]),
+             number(v["upper"])] for name, v in r.at_probe.items()]
+    out = [f"<p>The effect at the probe with its {_pct(r.level)} interval: the local linear "
+           "corrected forest and the same trees without the correction.</p>",
+           _table(["method", "effect", "standard error", "lower", "upper"], rows, "hr-probe"),
+           "<h3>Local slopes of the effect at the probe</h3><p>Change of the effect per unit "
+           "of each column, from the local linear correction.</p>",
+           _table(["column", "probe", "slope of the effect"],
+                  [[_e(c), number(r.probe[c]), number(s)] for c, s in r.slopes.items()])]
+    return "".join(out)
+
+
+def _data_html(r) -> str:
+    d = r.data
+    return _kv_table([
+        ("rows", number(d.n_rows)), ("columns", number(d.n_columns)),
+        ("outcome", _e(d.target)), ("treatment", _e(r.treatment)),
+        ("column names", ", ".join(f"<code>{_e(c)}</code>" for c in d.columns)),
+        ("data fingerprint", f"<code>{_e(d.fingerprint)}</code>"),
+    ])
+
+
+def _settings_html(r) -> str:
+    return _table(["parameter", "value"],
+                  [[_e(k), _e(v)] for k, v in sorted(r.settings.items())])
+
+
+def _cautions_html(r) -> str:
+    return ('<ul class="hr-cautions">' + "".join(f"<li>{_e(c)}</li>" for c in r.cautions)
+            + "</ul>")
+
+
+_BODIES = {"average": _average_html, "overlap": _overlap_html, "probe": _probe_html,
+           "data": _data_html, "settings": _settings_html, "cautions": _cautions_html}
+
+
+def render_effect(r) -> str:
+    """Return the :class:`EffectReport` ``r`` as one self-contained HTML document."""
+    nav = "".join(f'<li><a href="#{s}">{_e(_HEADINGS[s])}</a></li>' for s in r.sections)
+    body = "".join(_section(s, _BODIES[s](r)) for s in r.sections)
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        f'<meta http-equiv="Content-Security-Policy" content="{_CSP}">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f'<meta name="generator" content="hedgerow {_e(r.version)}">'
+        f"<title>{_e(r.title)}</title><style>{_CSS}</style></head>\n<body><main>"
+        f"<header><h1>{_e(r.title)}</h1><p class='hr-meta'>{_e(r.data.n_rows)} rows, "
+        f"{_e(r.data.n_columns)} columns, outcome <code>{_e(r.data.target)}</code>, "
+        f"{_e(r.treatment)} treatment; data fingerprint <code>{_e(r.data.fingerprint)}"
+        f"</code>; made {_e(r.created)} by hedgerow {_e(r.version)}. A static page: it "
+        f"opens offline and computes nothing.</p>"
+        f'<p class="hr-conclusion" id="effect-caution">{_e(r.cautions[0])}</p>'
+        f"<nav aria-label='sections'><ol>{nav}</ol></nav></header>"
+        f"{body}</main></body></html>\n"
+    )
