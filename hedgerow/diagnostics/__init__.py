@@ -8,6 +8,9 @@
   coverage and the difference at the probe, each with a one-line reading.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
+- ``effect_probe``, ``overlap_profile``, ``effect_verdict``: a treatment-effect forest's
+  effect at a point, the overlap of its arms and a held-out R-loss verdict (each with the
+  effect caution).
 - ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
   as much as their standard errors say?
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
@@ -17,6 +20,19 @@
 from hedgerow.diagnostics._coverage import CoverageReport, coverage_readout
 from hedgerow.diagnostics._decision import CAUTIONS, CAUTIONS_LINK, DecisionPanel, decision_panel
 from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
+from hedgerow.diagnostics._effect import (
+    EFFECT_DECISIONS,
+    EFFECT_FOLD_TREES,
+    EFFECT_METHODS,
+    EffectProbe,
+    EffectVerdict,
+    OverlapProfile,
+    effect_probe,
+    effect_verdict,
+    neighbourhood_difference,
+    overlap_profile,
+    r_loss,
+)
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
@@ -58,6 +74,9 @@ from hedgerow.diagnostics._verdict import (
 )
 
 __all__ = [
+    "EFFECT_DECISIONS", "EFFECT_FOLD_TREES", "EFFECT_METHODS", "EffectProbe",
+    "EffectVerdict", "OverlapProfile", "effect_probe", "effect_verdict",
+    "neighbourhood_difference", "overlap_profile", "r_loss",
     "CAUTIONS",
     "CAUTIONS_LINK",
     "DecisionPanel",

@@ -1,0 +1,147 @@
+"""Effect diagnostics: probe, overlap and the held-out R-loss verdict (plain functions)."""
+
+import numpy as np
+import pytest
+
+from hedgerow import TreatmentEffectForest
+from hedgerow import diagnostics as D
+from hedgerow._progress import RunControl
+from hedgerow.datasets import load_trial_demo
+from hedgerow.estimators._effect_forest import EFFECT_CAUTION
+
+
+@pytest.fixture(scope="module")
+def trial():
+    X, y, w, tau = load_trial_demo(700, random_state=2)
+    m = TreatmentEffectForest(n_estimators=256, random_state=0, n_jobs=1).fit(X, y, w)
+    return X, y, w, m
+
+
+def test_neighbourhood_difference_with_equal_weights_is_the_two_sample_formula():
+    # the usual unpooled two-sample standard error sqrt(s1^2/n1 + s0^2/n0) (common
+    # practice); statsmodels' CompareMeans with usevar="unequal" gives the same numbers
+    from statsmodels.stats.weightstats import CompareMeans, DescrStatsW
+
+    rng = np.random.default_rng(0)
+    w = (rng.random(300) < 0.4).astype(float)
+    y = 1.0 + 0.7 * w + rng.normal(size=300)
+    est, se, ess = D.neighbourhood_difference(np.full(300, 1 / 300), w, y)
+    cm = CompareMeans(DescrStatsW(y[w == 1]), DescrStatsW(y[w == 0]))
+    assert est == pytest.approx(y[w == 1].mean() - y[w == 0].mean(), rel=1e-12)
+    assert se == pytest.approx(cm.std_meandiff_separatevar, rel=1e-12)
+    assert ess == pytest.approx(300)
+
+
+def test_neighbourhood_difference_is_the_weighted_means(trial):
+    X, y, w, m = trial
+    p = D.effect_probe(m, [0.5, 0.0, 0.0])
+    a = p.weights
+    t = w == 1
+    direct = np.sum(a[t] * y[t]) / a[t].sum() - np.sum(a[~t] * y[~t]) / a[~t].sum()
+    assert p.methods.loc["neighbourhood difference", "effect"] == pytest.approx(direct,
+                                                                                rel=1e-12)
+    assert a.sum() == pytest.approx(1.0) and p.ess == pytest.approx(D.kish_ess(a))
+
+
+def test_probe_methods_are_the_estimators_own(trial):
+    X, y, w, m = trial
+    q = np.array([[-0.8, 0.2, 0.1]])
+    p = D.effect_probe(m, q[0], feature=0)
+    assert list(p.methods.index) == list(D.EFFECT_METHODS)
+    for name, corrected in (("corrected forest", True), ("uncorrected forest", False)):
+        tau, std = m.predict_effect(q, return_std=True, corrected=corrected)
+        lo, hi = m.effect_interval(q, 0.95, corrected=corrected)
+        row = p.methods.loc[name]
+        assert (row["effect"], row["std"], row["lower"], row["upper"]) == (
+            tau[0], std[0], lo[0], hi[0])
+    # the local line passes through the corrected effect at the probe with its slope
+    assert np.allclose(np.diff(p.line_effect) / np.diff(p.line_x), p.slopes[0])
+    at = np.interp(q[0, 0], p.line_x, p.line_effect)
+    assert at == pytest.approx(p.methods.loc["corrected forest", "effect"])
+    assert EFFECT_CAUTION in repr(p) and EFFECT_CAUTION in p._repr_html_()
+
+
+def test_weak_overlap_is_flagged_in_the_neighbourhood_and_overall():
+    # invented design: the treatment follows x0 steeply, so units at high x0 are
+    # almost all treated
+    rng = np.random.default_rng(5)
+    X = rng.uniform(-1, 1, size=(600, 2))
+    e = 1 / (1 + np.exp(-9 * X[:, 0]))
+    w = (rng.random(600) < e).astype(float)
+    y = X[:, 1] + w + rng.normal(scale=0.5, size=600)
+    m = TreatmentEffectForest(n_estimators=256, random_state=0, n_jobs=1).fit(X, y, w)
+    edge = D.effect_probe(m, [0.95, 0.0])
+    middle = D.effect_probe(m, [0.0, 0.0])
+    assert edge.weak_overlap and edge.weak_share > middle.weak_share
+    assert "Weak overlap here" in edge.overlap_note()
+    ov = D.overlap_profile(m)
+    assert ov.flagged.sum() == m.overlap()["flagged"].sum() > 0
+    assert "Weak overlap on" in ov.reading
+    assert ov.counts["treated"].sum() == int(w.sum())
+    assert ov.counts["untreated"].sum() == int((w == 0).sum())
+
+
+def test_randomised_trial_has_no_weak_overlap(trial):
+    ov = D.overlap_profile(trial[3], bins=10)
+    assert ov.flagged.sum() == 0 and "holds on every row" in ov.reading
+    assert ov.to_frame().shape == (10, 4)
+
+
+def test_r_loss_matches_a_direct_computation(trial):
+    X, y, w, m = trial
+    tau = m.oob_effect()
+    ok = np.isfinite(tau)
+    direct = ((y - m.outcome_fit_) - tau * (w - m.propensity_)) ** 2
+    assert np.allclose(D.r_loss(m.y_centred_, m.w_centred_, tau)[ok], direct[ok])
+
+
+def test_verdict_pairs_rows_and_refits_nothing_it_scores(trial):
+    X, y, w, m = trial
+    v = D.effect_verdict(X, y, w, model=m, folds=4, fold_trees=64, progress=False)
+    assert v.complete and v.fold_trees == 64
+    assert len(v.losses) == X.shape[0]  # every row scored once, held out
+    # the gain is the paired ratio of the same rows' losses
+    g, lo, hi = D.paired_relative_gain(v.losses["uncorrected"], v.losses["corrected"])
+    row = v.comparisons.loc["uncorrected forest (same trees)"]
+    assert (row["gain_all"], row["lower_all"], row["upper_all"]) == (g, lo, hi)
+    # held out: fold k's effects come from a forest fitted without fold k
+    fold = D._heldout.fold_assignment(X.shape[0], 4, 0)
+    k0 = fold == 0
+    f = TreatmentEffectForest(**{**m.get_params(), "n_estimators": 64}).fit(
+        X[~k0], y[~k0], w[~k0], outcome_model=m.outcome_fit_[~k0],
+        propensity_model=m.propensity_[~k0])
+    expect = D.r_loss(m.y_centred_[k0], m.w_centred_[k0], f.predict_effect(X[k0]))
+    assert np.allclose(v.losses["corrected"].to_numpy()[k0], expect)
+    assert v.decision in D.EFFECT_DECISIONS and EFFECT_CAUTION in repr(v)
+
+
+def test_verdict_sees_a_varying_effect_against_a_constant_one():
+    X, y, w, tau = load_trial_demo(1000, random_state=7)
+    v = D.effect_verdict(X, y, w, model=TreatmentEffectForest(
+        n_estimators=128, random_state=0, n_jobs=1).fit(X, y, w), folds=3, progress=False)
+    assert v.comparisons.loc["constant effect", "lower_all"] > 0
+    assert "the effect varies" in v.conclusion
+
+
+def test_verdict_cancelled_is_marked_incomplete(trial):
+    X, y, w, m = trial
+    ctl = RunControl()
+    ctl.cancel()
+    v = D.effect_verdict(X, y, w, model=m, folds=3, fold_trees=32, progress=ctl)
+    assert not v.complete and v.conclusion.startswith("Incomplete")
+
+
+def test_bad_input_names_the_parameter(trial):
+    X, y, w, m = trial
+    with pytest.raises(TypeError, match="'model'"):
+        D.effect_probe(object(), [0, 0, 0])
+    with pytest.raises(ValueError, match="'margin'"):
+        D.effect_probe(m, [0, 0, 0], margin=0.7)
+    with pytest.raises(ValueError, match="'bins'"):
+        D.overlap_profile(m, bins=1)
+    with pytest.raises(ValueError, match="'folds'"):
+        D.effect_verdict(X, y, w, model=m, folds=1)
+    with pytest.raises(ValueError, match="'model'"):
+        D.effect_verdict(X, y, 1 - w, model=m)
+    with pytest.raises(ValueError, match="treatment"):
+        D.effect_verdict(X, y, w[:-1])
