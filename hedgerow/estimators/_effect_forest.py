@@ -35,6 +35,7 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
+from hedgerow.estimators._effect_solve import solve_effects
 from hedgerow.estimators._forest import HonestForestRegressor, _ForestBase
 from hedgerow.forest import RULE_EFFECT_GRADIENT
 from hedgerow.inference import (
@@ -270,66 +271,31 @@ class TreatmentEffectForest(BaseEstimator):
         return self
 
     # -- the local solve -----------------------------------------------------------------
-    def _solve_one(self, leaf_ids, usable, xq, lam, corrected):
-        """Return (tau, slopes of tau in X units, per-tree influence psi (B,))."""
-        f = self.forest_
-        B = leaf_ids.shape[0]
-        starts = f.leaf_ptr[leaf_ids]
-        sizes = f.leaf_ptr[leaf_ids + 1] - starts
-        keep = (sizes > 0) if usable is None else (usable & (sizes > 0))
-        psi = np.full(B, np.nan)
-        nk = int(keep.sum())
-        d = xq.shape[0]
-        if nk == 0:
-            return np.nan, np.full(d, np.nan), psi
-        st, sz = starts[keep], sizes[keep]
-        tree_of = np.repeat(np.arange(nk), sz)
-        offs = np.arange(sz.sum()) - np.repeat(np.cumsum(sz) - sz, sz)
-        rows = f.leaf_rows[np.repeat(st, sz) + offs]
-        a = self.sample_weight_[rows] / (np.repeat(sz, sz) * nk)  # alpha_i per entry
-        wt = self.w_centred_[rows]
-        yt = self.y_centred_[rows]
-        if corrected:
-            dx = (self.X_train_[rows] - xq) / self.x_scale_
-            Zm = np.column_stack([np.ones_like(wt), wt, wt[:, None] * dx, dx])
-        else:
-            Zm = np.column_stack([np.ones_like(wt), wt])
-        k = Zm.shape[1]
-        Za = Zm * a[:, None]
-        M = Za.T @ Zm
-        rhs = Za.T @ yt
-        if corrected:
-            # penalty relative to each slope column's own local second moment, so the
-            # shrinkage does not depend on how wide the neighbourhood is
-            diag = np.diag(M)[2:].copy()
-            M[2:, 2:] += lam * np.diag(np.maximum(diag, 1e-300))
-        M += 1e-12 * np.trace(M) / k * np.eye(k)
-        theta = np.linalg.solve(M, rhs)
-        resid = yt - Zm @ theta
-        g = np.linalg.solve(M, (Za * resid[:, None]).T)[1]  # influence per entry, summed
-        # per tree: the sum over its leaf of alpha-weighted influence, times nk (a tree's
-        # own estimate of the correction term); the forest averages them
-        per_tree = np.bincount(tree_of, weights=g, minlength=nk) * nk
-        psi[keep] = theta[1] + per_tree - per_tree.mean()
-        slopes = (theta[2:2 + d] / self.x_scale_) if corrected else np.full(d, np.nan)
-        return theta[1], slopes, psi
-
     def _solve(self, X, lam, corrected, oob=False):
+        """Return (tau (m,), slopes of tau in X units (m, d), per-tree influence psi (m, B)).
+
+        One compiled pass per query over its leaves' fill rows
+        (``hedgerow.estimators._effect_solve.solve_effects``; ``solve_effects_loop`` is
+        the numpy reference the tests compare it with).
+        """
         check_is_fitted(self)
         if oob:
             X = self.X_train_
-            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
             usable = ~self.forest_.inbag(np.arange(X.shape[0]))
         else:
-            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
             usable = None
-        m = X.shape[0]
-        tau = np.empty(m)
-        slopes = np.empty((m, X.shape[1]))
-        psi = np.empty((m, leaves.shape[1]))
-        for q in range(m):
-            u = None if usable is None else usable[q]
-            tau[q], slopes[q], psi[q] = self._solve_one(leaves[q], u, X[q], lam, corrected)
+        leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+        d = X.shape[1]
+        cols = np.arange(d) if corrected else np.arange(0)
+        theta, psi = solve_effects(
+            self.forest_, leaves, usable, self.X_train_, X, self.w_centred_,
+            self.y_centred_, self.sample_weight_, self.x_scale_, cols, (), lam,
+            n_jobs=self._n_threads(),
+        )
+        tau = theta[:, 1]
+        slopes = np.full((X.shape[0], d), np.nan)
+        if corrected:
+            slopes[:, cols] = theta[:, 2:2 + cols.size] / self.x_scale_[cols]
         return tau, slopes, psi
 
     def _penalty(self, ridge_penalty):
