@@ -21,11 +21,13 @@ diagnostic here checks it) and overlap; defer to the study design and domain rev
 from __future__ import annotations
 
 import copy
+import warnings
 from numbers import Integral, Real
 
 import numpy as np
 from sklearn.base import BaseEstimator
-from sklearn.utils._param_validation import Interval
+from sklearn.linear_model import Lasso, LassoCV
+from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted
 
 from hedgerow._validation import (
@@ -35,7 +37,7 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
-from hedgerow.estimators._effect_solve import solve_effects
+from hedgerow.estimators._effect_solve import effect_penalty_path, solve_effects
 from hedgerow.estimators._forest import HonestForestRegressor, _ForestBase
 from hedgerow.forest import RULE_EFFECT_GRADIENT
 from hedgerow.inference import (
@@ -59,6 +61,13 @@ EFFECT_CAUTION = (
 #: Interval methods available for effects (the regression forest's names where they
 #: apply; the bias-aware ones are not built for effects yet).
 EFFECT_INTERVAL_METHODS = ("clt",)
+
+#: Penalties ``ridge_penalty="auto"`` chooses from, by out-of-bag R-loss.
+EFFECT_RIDGE_GRID = (0.01, 0.1, 1.0, 10.0)
+
+#: Out-of-bag rows (a seeded subsample) on which ``ridge_penalty="auto"`` compares the
+#: R-loss of the grid: a speed bound (the choice is among four values).
+RLOSS_ROWS = 500
 
 #: A propensity below this or above 1 minus this is flagged as weak overlap.
 OVERLAP_MARGIN = 0.05
@@ -139,10 +148,17 @@ class TreatmentEffectForest(BaseEstimator):
     ----------
     n_estimators, subsample_rate, trees_per_bag, honest, min_samples_leaf, max_features,
     max_depth, random_state, n_jobs : as for ``HonestForestRegressor``.
-    ridge_penalty : float >= 0
+    ridge_penalty : "auto" or float >= 0
         Penalty on the correction slopes, relative to each slope column's local second
         moment (0.1 shrinks a lone slope by about a tenth); changeable without refit
-        (``with_ridge_penalty``).
+        (``with_ridge_penalty``). "auto" (default): the value of ``EFFECT_RIDGE_GRID``
+        with the lowest out-of-bag R-loss sum (y~ - tau(x) w~)^2 (Nie & Wager 2021) on
+        up to ``RLOSS_ROWS`` training rows; the choice is ``ridge_penalty_``.
+    correction_features : "auto", None or list of column indices
+        Columns of the local correction. "auto" (default): those a lasso of the centred
+        outcome on w~ and w~ x (the linear R-learner, Nie & Wager 2021) keeps at the
+        one-standard-error penalty; none kept means no correction. None: every column.
+        The columns used are ``correction_features_``.
     nuisance_estimators : int or None
         Trees of each centring forest (default: a quarter of ``n_estimators``, at least
         40; single-tree bags on half-samples, so each row is out-of-bag for about half).
@@ -150,7 +166,8 @@ class TreatmentEffectForest(BaseEstimator):
 
     _parameter_constraints: dict = {
         **_ForestBase._parameter_constraints,
-        "ridge_penalty": [Interval(Real, 0.0, None, closed="left")],
+        "ridge_penalty": [StrOptions({"auto"}), Interval(Real, 0.0, None, closed="left")],
+        "correction_features": [None, StrOptions({"auto"}), "array-like"],
         "nuisance_estimators": [None, Interval(Integral, 2, None, closed="left")],
     }
 
@@ -164,7 +181,8 @@ class TreatmentEffectForest(BaseEstimator):
         min_samples_leaf=5,
         max_features=None,
         max_depth=None,
-        ridge_penalty=0.1,
+        ridge_penalty="auto",
+        correction_features="auto",
         nuisance_estimators=None,
         random_state=None,
         n_jobs=None,
@@ -177,6 +195,7 @@ class TreatmentEffectForest(BaseEstimator):
         self.max_features = max_features
         self.max_depth = max_depth
         self.ridge_penalty = ridge_penalty
+        self.correction_features = correction_features
         self.nuisance_estimators = nuisance_estimators
         self.random_state = random_state
         self.n_jobs = n_jobs
@@ -250,7 +269,11 @@ class TreatmentEffectForest(BaseEstimator):
             yt = y - m
             wt = w - e
             Z = wt[:, None]
+            cols = self._choose_columns(X, yt, wt, n)
             forest, l, mtry, s = self._grow(X, yt, rule=RULE_EFFECT_GRADIENT, Z=Z)
+            scale = X.std(axis=0)
+            x_scale = np.where(scale > 0, scale, 1.0)
+            lam, path = self._choose_penalty(forest, X, yt, wt, sw, x_scale, cols, int(seeds[2]))
         self.forest_ = forest
         self.X_train_ = X
         self.y_train_ = y
@@ -264,14 +287,67 @@ class TreatmentEffectForest(BaseEstimator):
         self.trees_per_bag_ = l
         self.max_features_ = mtry
         self.subsample_size_ = s
-        centre = X.mean(axis=0)
-        scale = X.std(axis=0)
-        self.x_centre_ = centre
-        self.x_scale_ = np.where(scale > 0, scale, 1.0)
+        self.x_centre_ = X.mean(axis=0)
+        self.x_scale_ = x_scale
+        self.correction_features_ = cols
+        self.ridge_penalty_ = lam
+        self.rloss_path_ = path  # penalty -> out-of-bag R-loss ("auto" only)
         return self
 
+    def _choose_columns(self, X, yt, wt, n):
+        """Return the correction columns (``correction_features``; see the class doc)."""
+        d = X.shape[1]
+        cf = self.correction_features
+        if cf is None:
+            return np.arange(d)
+        if not (isinstance(cf, str) and cf == "auto"):
+            cols = np.asarray(cf).ravel()
+            if cols.dtype.kind not in "iu" or np.any((cols < 0) | (cols >= d)) or (
+                    np.unique(cols).size != cols.size):
+                raise ValueError(
+                    f"The 'correction_features' parameter must be 'auto', None or distinct "
+                    f"column indices in [0, {d}). Got {cf!r} instead.")
+            return np.sort(cols.astype(np.int64))
+        Xs = (X - X.mean(axis=0)) / np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+        A = np.column_stack([wt, wt[:, None] * Xs])
+        sd = float(np.std(yt))
+        target = (yt - yt.mean()) / (sd if sd > 0 else 1.0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            cv = LassoCV(cv=min(5, n), random_state=0).fit(A, target)
+            mse = cv.mse_path_.mean(axis=1)
+            se = cv.mse_path_.std(axis=1, ddof=1) / np.sqrt(cv.mse_path_.shape[1])
+            best = int(np.argmin(mse))
+            # one-standard-error rule (Hastie, Tibshirani & Friedman 2009, Sec. 7.10):
+            # the largest penalty within one s.e. of the minimum (alphas_ descend)
+            alpha = cv.alphas_[int(np.flatnonzero(mse <= mse[best] + se[best])[0])]
+            coef = Lasso(alpha=alpha).fit(A, target).coef_[1:]
+        return np.flatnonzero(np.abs(coef) > 1e-10).astype(np.int64)
+
+    def _choose_penalty(self, forest, X, yt, wt, sw, x_scale, cols, seed):
+        """Return (penalty, {penalty: out-of-bag R-loss}): the given float, or the choice."""
+        lam = self.ridge_penalty
+        if not (isinstance(lam, str) and lam == "auto"):
+            return float(lam), {}
+        if cols.size == 0:
+            return float(EFFECT_RIDGE_GRID[1]), {}  # nothing to penalise
+        n = X.shape[0]
+        rows = np.arange(n)
+        if n > RLOSS_ROWS:
+            rows = np.sort(np.random.default_rng(seed).choice(n, RLOSS_ROWS, replace=False))
+        leaves = forest.apply(X[rows], n_jobs=self._n_threads())
+        usable = ~forest.inbag(rows)
+        tau = effect_penalty_path(forest, leaves, usable, X, X[rows], wt, yt, sw, x_scale,
+                                  cols, (), np.asarray(EFFECT_RIDGE_GRID)[:, None],
+                                  n_jobs=self._n_threads())
+        ok = np.all(np.isfinite(tau), axis=1)
+        r = yt[rows][ok, None] - tau[ok] * wt[rows][ok, None]
+        loss = np.sum(sw[rows][ok, None] * r ** 2, axis=0)
+        path = dict(zip(EFFECT_RIDGE_GRID, loss.tolist(), strict=True))
+        return float(EFFECT_RIDGE_GRID[int(np.argmin(loss))]), path
+
     # -- the local solve -----------------------------------------------------------------
-    def _solve(self, X, lam, corrected, oob=False):
+    def _solve(self, X, lam, corrected, oob=False, cols=None):
         """Return (tau (m,), slopes of tau in X units (m, d), per-tree influence psi (m, B)).
 
         One compiled pass per query over its leaves' fill rows
@@ -286,20 +362,32 @@ class TreatmentEffectForest(BaseEstimator):
             usable = None
         leaves = self.forest_.apply(X, n_jobs=self._n_threads())
         d = X.shape[1]
-        cols = np.arange(d) if corrected else np.arange(0)
+        if not corrected:
+            cols = np.arange(0)
+        elif cols is None:
+            cols = self._correction_columns()
         theta, psi = solve_effects(
             self.forest_, leaves, usable, self.X_train_, X, self.w_centred_,
             self.y_centred_, self.sample_weight_, self.x_scale_, cols, (), lam,
             n_jobs=self._n_threads(),
         )
         tau = theta[:, 1]
-        slopes = np.full((X.shape[0], d), np.nan)
+        # the local line is held flat along columns outside the correction
+        slopes = np.full((X.shape[0], d), 0.0 if corrected else np.nan)
         if corrected:
             slopes[:, cols] = theta[:, 2:2 + cols.size] / self.x_scale_[cols]
         return tau, slopes, psi
 
+    def _correction_columns(self):
+        return self.correction_features_
+
     def _penalty(self, ridge_penalty):
-        lam = self.ridge_penalty if ridge_penalty is None else ridge_penalty
+        lam = ridge_penalty
+        if lam is None:
+            check_is_fitted(self)
+            lam = self.ridge_penalty
+            if isinstance(lam, str) and lam == "auto":
+                lam = self.ridge_penalty_
         if isinstance(lam, bool) or not isinstance(lam, Real) or not (
                 np.isfinite(lam) and lam >= 0):
             raise ValueError(f"The 'ridge_penalty' parameter must be a finite float >= 0. "

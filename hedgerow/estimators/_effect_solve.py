@@ -26,7 +26,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 from numba import njit
 
-__all__ = ["effect_design_size", "solve_effects", "solve_effects_loop"]
+__all__ = ["effect_design_size", "effect_penalty_path", "solve_effects", "solve_effects_loop"]
 
 # Jitter added to the Gram matrix's diagonal, relative to its mean diagonal entry: keeps
 # a rank-deficient neighbourhood (a constant column in every leaf) solvable.
@@ -181,6 +181,62 @@ def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt,
             out_psi[q, t] = theta[1] + g[t] - gmean
 
 
+@njit(cache=True, nogil=True, error_model="numpy")
+def _path_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt, sw, lin, sq,
+                scale, penalties, out_tau):
+    # the Gram matrix once per query, then one solve per row of penalties
+    m, B = leaves.shape
+    k = penalties.shape[1]
+    z = np.empty(k)
+    M = np.empty((k, k))
+    A = np.empty((k, k))
+    rhs = np.empty(k)
+    for q in range(m):
+        nk = 0
+        for t in range(B):
+            if has_usable and not usable[q, t]:
+                continue
+            leaf = leaves[q, t]
+            if leaf_ptr[leaf + 1] > leaf_ptr[leaf]:
+                nk += 1
+        if nk == 0:
+            out_tau[q, :] = np.nan
+            continue
+        M[:, :] = 0.0
+        rhs[:] = 0.0
+        xq = Q[q]
+        for t in range(B):
+            if has_usable and not usable[q, t]:
+                continue
+            leaf = leaves[q, t]
+            a0, a1 = leaf_ptr[leaf], leaf_ptr[leaf + 1]
+            if a1 == a0:
+                continue
+            base = 1.0 / ((a1 - a0) * nk)
+            for s in range(a0, a1):
+                i = leaf_rows[s]
+                a = sw[i] * base
+                _design_row(z, X[i], xq, wt[i], lin, sq, scale)
+                for r in range(k):
+                    ar = a * z[r]
+                    rhs[r] += ar * yt[i]
+                    for c in range(r, k):
+                        M[r, c] += ar * z[c]
+        for r in range(k):
+            for c in range(r):
+                M[r, c] = M[c, r]
+        for j in range(penalties.shape[0]):
+            A[:, :] = M
+            for r in range(2, k):
+                A[r, r] += penalties[j, r] * max(M[r, r], 1e-300)
+            tr = 0.0
+            for r in range(k):
+                tr += A[r, r]
+            for r in range(k):
+                A[r, r] += _JITTER * tr / k
+            out_tau[q, j] = _solve_in_place(A, rhs)[1]
+
+
 def _blocks(m: int, n_jobs: int):
     step = max(_MIN_BLOCK, -(-m // max(1, n_jobs)))
     step = min(step, 1024) if n_jobs > 1 else max(m, 1)
@@ -239,6 +295,46 @@ def solve_effects(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squar
         with ThreadPoolExecutor(max_workers=n_jobs) as pool:
             list(pool.map(run, pieces))
     return theta, psi
+
+
+def effect_penalty_path(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squared,
+                        penalties, n_jobs=1):
+    """Return tau (m, L) at the queries for each of L penalties (floats or (L, k) rows).
+
+    The same solve as ``solve_effects`` (tau only), with each query's Gram matrix
+    accumulated once and re-solved per penalty.
+    """
+    lin, sq = _as_index(linear), _as_index(squared)
+    k = effect_design_size(lin.size, sq.size)
+    pen = np.asarray(penalties, dtype=np.float64)
+    pen = np.ascontiguousarray(np.broadcast_to(pen.reshape(pen.shape[0], -1),
+                                               (pen.shape[0], k)))
+    leaves = np.ascontiguousarray(leaves)
+    m = leaves.shape[0]
+    out = np.empty((m, pen.shape[0]))
+    has_usable = usable is not None
+    u = (np.ascontiguousarray(usable, dtype=np.bool_) if has_usable
+         else np.zeros((0, 0), dtype=np.bool_))
+    X = np.ascontiguousarray(X, dtype=np.float64)
+    Q = np.ascontiguousarray(Q, dtype=np.float64)
+    rest = (np.ascontiguousarray(wt, dtype=np.float64),
+            np.ascontiguousarray(yt, dtype=np.float64),
+            np.ascontiguousarray(sw, dtype=np.float64), lin, sq,
+            np.ascontiguousarray(scale, dtype=np.float64), pen)
+
+    def run(ab):
+        a, b = ab
+        _path_block(leaves[a:b], u[a:b] if has_usable else u, has_usable, forest.leaf_ptr,
+                    forest.leaf_rows, X, Q[a:b], *rest, out[a:b])
+
+    pieces = _blocks(m, n_jobs)
+    if n_jobs <= 1 or len(pieces) <= 1:
+        for p in pieces:
+            run(p)
+    else:
+        with ThreadPoolExecutor(max_workers=n_jobs) as pool:
+            list(pool.map(run, pieces))
+    return out
 
 
 def solve_effects_loop(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squared,
