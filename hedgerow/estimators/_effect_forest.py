@@ -38,16 +38,23 @@ from hedgerow._validation import (
     validate_params,
 )
 from hedgerow.estimators._effect_solve import effect_penalty_path, solve_effects
-from hedgerow.estimators._forest import HonestForestRegressor, _ForestBase
+from hedgerow.estimators._forest import (
+    _MAX_SQUARED,
+    BIAS_CORRECTION_PENALTY,
+    HonestForestRegressor,
+    IntervalParts,
+    _ForestBase,
+)
 from hedgerow.forest import RULE_EFFECT_GRADIENT
 from hedgerow.inference import (
+    forest_monte_carlo_variance,
     little_bags_variance,
     normal_interval,
     satterthwaite_df,
-    student_interval_half_width,
 )
 
-__all__ = ["EFFECT_CAUTION", "EFFECT_INTERVAL_METHODS", "AverageEffect",
+__all__ = ["DEFAULT_EFFECT_INTERVAL", "EFFECT_CAUTION", "EFFECT_INTERVAL_METHODS",
+           "AverageEffect",
            "TreatmentEffectForest"]
 
 #: The caution every effect reading carries.
@@ -58,9 +65,12 @@ EFFECT_CAUTION = (
     "domain review."
 )
 
-#: Interval methods available for effects (the regression forest's names where they
-#: apply; the bias-aware ones are not built for effects yet).
-EFFECT_INTERVAL_METHODS = ("clt",)
+#: Interval methods available for effects (the regression forest's names and meanings;
+#: the curvature bound is not built for effects).
+EFFECT_INTERVAL_METHODS = ("bias_corrected", "clt")
+
+#: The default effect interval (see DEVELOPERS.md, "The treatment-effect forest").
+DEFAULT_EFFECT_INTERVAL = "bias_corrected"
 
 #: Penalties ``ridge_penalty="auto"`` chooses from, by out-of-bag R-loss.
 EFFECT_RIDGE_GRID = (0.01, 0.1, 1.0, 10.0)
@@ -417,31 +427,62 @@ class TreatmentEffectForest(BaseEstimator):
         tau, _, psi = self._solve(None, lam, corrected, oob=True)
         return (tau, self._std(psi)) if return_std else tau
 
-    def effect_interval(self, X, level=0.95, method="clt", *, corrected=True,
-                        ridge_penalty=None):
+    def effect_interval(self, X, level=0.95, method=DEFAULT_EFFECT_INTERVAL, *,
+                        corrected=True, ridge_penalty=None):
         """Return ``(lower, upper)`` of tau(x) at ``level``.
 
-        ``method="clt"``: the interval from little bags centred on the estimate (ignores
-        the estimate's bias), with the Student-t quantile at the Satterthwaite degrees of
-        freedom of the little-bags variance (few bags make the standard error noisy).
-        The regression forest's bias-aware methods are not built for effects yet and are
-        refused by name.
+        Methods (as the regression forests' ``predict_interval``; see
+        ``effect_interval_parts`` for what each is made of):
+
+        - "bias_corrected" (default): robust bias correction (Calonico, Cattaneo & Farrell
+          2018): centred on a local quadratic of the effect (the correction columns and
+          the squares of their differences from x, penalty
+          ``BIAS_CORRECTION_PENALTY``) under the same forest weights, studentised by
+          that estimator's own little-bags variance plus the finite forest's Monte
+          Carlo variance, Student-t quantile at the Satterthwaite degrees of freedom.
+          ``corrected`` and ``ridge_penalty`` do not enter it.
+        - "clt": the normal interval from little bags centred on the estimate (ignores
+          its bias).
+        - "bias_bound" is not built for effects and is refused by name.
+
+        Caution: decision support, not advice; assumes unconfoundedness (not checked
+        here) and overlap; defer to the study design and to domain review.
         """
         level = check_level(level)
-        if method not in EFFECT_INTERVAL_METHODS:
+        return self.effect_interval_parts(X, method, corrected=corrected,
+                                          ridge_penalty=ridge_penalty).interval(level)
+
+    def effect_interval_parts(self, X, method=DEFAULT_EFFECT_INTERVAL, *, corrected=True,
+                              ridge_penalty=None) -> IntervalParts:
+        """Return the ``IntervalParts`` (centre, std, bias bound, df) of an effect interval."""
+        if not isinstance(method, str) or method not in EFFECT_INTERVAL_METHODS:
             raise ValueError(
                 f"The 'method' parameter must be one of {list(EFFECT_INTERVAL_METHODS)} for "
-                f"effects (the bias-aware methods are not built for effects yet). Got "
-                f"{method!r} instead."
+                f"effects ('bias_bound' is not built for effects). Got {method!r} instead."
             )
         lam = self._penalty(ridge_penalty)
         X = check_predict_data(self, X)
-        tau, _, psi = self._solve(X, lam, corrected)
         self._require_bags()
+        if method == "clt":
+            tau, _, psi = self._solve(X, lam, corrected)
+            std = self._std(psi)
+            return IntervalParts(method, tau, std, np.zeros_like(tau), 0.0)
+        cols = self.correction_features_
+        if cols.size == 0:
+            cols = np.arange(X.shape[1])
+        cols = cols[:_MAX_SQUARED]
+        leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+        theta, psi = solve_effects(
+            self.forest_, leaves, None, self.X_train_, X, self.w_centred_, self.y_centred_,
+            self.sample_weight_, self.x_scale_, cols, cols,
+            BIAS_CORRECTION_PENALTY, n_jobs=self._n_threads(),
+        )
         lb = little_bags_variance(psi, self.trees_per_bag_)
-        df = satterthwaite_df(lb.variance, lb.tau, lb.n_bags)
-        h = student_interval_half_width(lb.std, df, level)
-        return tau - h, tau + h
+        var = lb.variance + forest_monte_carlo_variance(psi, self.trees_per_bag_)
+        df = satterthwaite_df(var, lb.tau, lb.n_bags)
+        centre = theta[:, 1]
+        return IntervalParts(method, centre, np.sqrt(var), np.zeros_like(centre), 0.0,
+                             df=df)
 
     def local_slopes(self, X, *, ridge_penalty=None):
         """Return the (m, d) slopes of tau in the units of X from the local correction."""
