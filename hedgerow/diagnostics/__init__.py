@@ -17,6 +17,7 @@
 from hedgerow.diagnostics._coverage import CoverageReport, coverage_readout
 from hedgerow.diagnostics._decision import CAUTIONS, CAUTIONS_LINK, DecisionPanel, decision_panel
 from hedgerow.diagnostics._edges import DEPTH_BANDS, EdgeProfile, edges
+from hedgerow.diagnostics._effect_coverage import EffectCoverageReport, effect_coverage_readout
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
@@ -58,6 +59,8 @@ from hedgerow.diagnostics._verdict import (
 )
 
 __all__ = [
+    "EffectCoverageReport",
+    "effect_coverage_readout",
     "CAUTIONS",
     "CAUTIONS_LINK",
     "DecisionPanel",
