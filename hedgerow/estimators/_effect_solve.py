@@ -102,27 +102,41 @@ def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt,
                   sq, scale, penalty, out_theta, out_psi):
     m, B = leaves.shape
     k = out_theta.shape[1]
-    z = np.empty(k)
     M = np.empty((k, k))
     rhs = np.empty(k)
     e1 = np.zeros(k)
     e1[1] = 1.0
     g = np.empty(B)
+    # the query's design rows, weights and outcomes, gathered once in the first pass
+    # and read in order by the second (the leaves' rows are scattered in memory)
+    cap = 1024
+    Zb = np.empty((cap, k))
+    ab = np.empty(cap)
+    yb = np.empty(cap)
     for q in range(m):
         nk = 0
+        total = 0
         for t in range(B):
             if has_usable and not usable[q, t]:
                 continue
             leaf = leaves[q, t]
-            if leaf_ptr[leaf + 1] > leaf_ptr[leaf]:
+            size = leaf_ptr[leaf + 1] - leaf_ptr[leaf]
+            if size > 0:
                 nk += 1
+                total += size
         if nk == 0:
             out_theta[q, :] = np.nan
             out_psi[q, :] = np.nan
             continue
+        if total > cap:
+            cap = 2 * total
+            Zb = np.empty((cap, k))
+            ab = np.empty(cap)
+            yb = np.empty(cap)
         M[:, :] = 0.0
         rhs[:] = 0.0
         xq = Q[q]
+        pos = 0
         for t in range(B):
             if has_usable and not usable[q, t]:
                 continue
@@ -134,7 +148,11 @@ def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt,
             for s in range(a0, a1):
                 i = leaf_rows[s]
                 a = sw[i] * base
+                z = Zb[pos]
                 _design_row(z, X[i], xq, wt[i], lin, sq, scale)
+                ab[pos] = a
+                yb[pos] = yt[i]
+                pos += 1
                 for r in range(k):
                     ar = a * z[r]
                     rhs[r] += ar * yt[i]
@@ -155,25 +173,24 @@ def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt,
         cvec = _solve_in_place(M, e1)  # M is symmetric: row 1 of its inverse
         out_theta[q, :] = theta
         gsum = 0.0
+        pos = 0
         for t in range(B):
             g[t] = np.nan
             if has_usable and not usable[q, t]:
                 continue
             leaf = leaves[q, t]
-            a0, a1 = leaf_ptr[leaf], leaf_ptr[leaf + 1]
-            if a1 == a0:
+            size = leaf_ptr[leaf + 1] - leaf_ptr[leaf]
+            if size == 0:
                 continue
-            base = 1.0 / ((a1 - a0) * nk)
             acc = 0.0
-            for s in range(a0, a1):
-                i = leaf_rows[s]
-                _design_row(z, X[i], xq, wt[i], lin, sq, scale)
+            for _ in range(size):
                 fit = 0.0
                 cz = 0.0
                 for r in range(k):
-                    fit += z[r] * theta[r]
-                    cz += cvec[r] * z[r]
-                acc += sw[i] * base * cz * (yt[i] - fit)
+                    fit += Zb[pos, r] * theta[r]
+                    cz += cvec[r] * Zb[pos, r]
+                acc += ab[pos] * cz * (yb[pos] - fit)
+                pos += 1
             g[t] = acc * nk
             gsum += g[t]
         gmean = gsum / nk
