@@ -99,7 +99,7 @@ def _design_row(z, xi, q, wt, lin, sq, scale):
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt, sw, lin,
-                  sq, scale, penalty, out_theta, out_psi):
+                  sq, scale, penalty, out_theta, out_psi, want_S, out_S):
     m, B = leaves.shape
     k = out_theta.shape[1]
     M = np.empty((k, k))
@@ -174,6 +174,9 @@ def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt,
         out_theta[q, :] = theta
         gsum = 0.0
         pos = 0
+        p = lin.shape[0] + sq.shape[0]
+        if want_S:
+            out_S[q, :, :] = 0.0
         for t in range(B):
             g[t] = np.nan
             if has_usable and not usable[q, t]:
@@ -190,6 +193,12 @@ def _effect_block(leaves, usable, has_usable, leaf_ptr, leaf_rows, X, Q, wt, yt,
                     fit += Zb[pos, r] * theta[r]
                     cz += cvec[r] * Zb[pos, r]
                 acc += ab[pos] * cz * (yb[pos] - fit)
+                if want_S:
+                    # equivalent-kernel weight of tau times w~ u u' (the bias moment)
+                    lw = ab[pos] * cz * Zb[pos, 1]
+                    for r in range(lin.shape[0]):
+                        for c in range(lin.shape[0]):
+                            out_S[q, r, c] += lw * Zb[pos, 2 + p + r] * Zb[pos, 2 + p + c]
                 pos += 1
             g[t] = acc * nk
             gsum += g[t]
@@ -265,7 +274,7 @@ def _as_index(cols):
 
 
 def solve_effects(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squared,
-                  penalty, n_jobs=1):
+                  penalty, n_jobs=1, bias_moment=False):
     """Return (theta (m, k), psi (m, B)) of the effect forest's local solve at queries Q.
 
     Parameters
@@ -278,6 +287,10 @@ def solve_effects(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squar
     penalty : float or (k,) ridge penalties, relative to each column's local second
         moment (entries 0 and 1, the intercept and tau, are ignored).
     n_jobs : threads over blocks of queries.
+
+    bias_moment : also return S (m, p, p) = sum_i l_i w~_i u_i u_i' over the linear
+        features, l_i the equivalent-kernel weight of tau (its bias is 1/2 tr(H S) for a
+        truth tau with Hessian H, to leading order).
 
     theta[:, 1] is tau(x); rows with no usable non-empty leaf are NaN throughout.
     """
@@ -293,6 +306,7 @@ def solve_effects(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squar
          else np.zeros((0, 0), dtype=np.bool_))
     X = np.ascontiguousarray(X, dtype=np.float64)
     Q = np.ascontiguousarray(Q, dtype=np.float64)
+    S = np.zeros((m, lin.size, lin.size) if bias_moment else (0, 0, 0))
     args = (forest.leaf_ptr, forest.leaf_rows, X)
     rest = (np.ascontiguousarray(wt, dtype=np.float64),
             np.ascontiguousarray(yt, dtype=np.float64),
@@ -302,7 +316,8 @@ def solve_effects(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squar
     def run(ab):
         a, b = ab
         _effect_block(leaves[a:b], u[a:b] if has_usable else u, has_usable, *args, Q[a:b],
-                      *rest, theta[a:b], psi[a:b])
+                      *rest, theta[a:b], psi[a:b], bias_moment,
+                      S[a:b] if bias_moment else S)
 
     pieces = _blocks(m, n_jobs)
     if n_jobs <= 1 or len(pieces) <= 1:
@@ -311,7 +326,7 @@ def solve_effects(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squar
     else:
         with ThreadPoolExecutor(max_workers=n_jobs) as pool:
             list(pool.map(run, pieces))
-    return theta, psi
+    return (theta, psi, S) if bias_moment else (theta, psi)
 
 
 def effect_penalty_path(forest, leaves, usable, X, Q, wt, yt, sw, scale, linear, squared,

@@ -24,7 +24,7 @@ def test_known_effect_readout_columns_and_split(fitted):
     rep = effect_coverage_readout(f, X, y, w, truth=trial_effect_truth, reps=12,
                                   n_eval=60, random_state=1)
     fr = rep.to_frame()
-    assert list(fr["interval"].unique()) == ["bias_corrected", "clt"]
+    assert list(fr["interval"].unique()) == ["bias_corrected", "bias_bound", "clt"]
     assert set(fr["part"]) == {"all", "edge", "interior"}
     row = fr[(fr["interval"] == "bias_corrected") & (fr["part"] == "all")].iloc[0]
     print(fr[["interval", "part", "coverage", "lower", "upper", "mean_width", "rms_bias",

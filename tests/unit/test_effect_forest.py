@@ -157,8 +157,21 @@ def test_ridge_penalty_without_refit_and_overlap():
     parts = f.effect_interval_parts(X[:5])
     assert parts.method == "bias_corrected" and np.all(parts.df >= 1)
     assert not np.allclose(parts.centre, tau)  # the local quadratic, not the estimate
-    with pytest.raises(ValueError, match="'method'.*bias_corrected.*Got 'bias_bound'"):
-        f.effect_interval(X[:5], method="bias_bound")
+    with pytest.raises(ValueError, match="'method'.*bias_corrected.*Got 'nope'"):
+        f.effect_interval(X[:5], method="nope")
+    # bias-aware interval (Armstrong & Kolesar 2018): with M = 0 it is the normal
+    # interval exactly; with the rule-of-thumb M of this curved effect it is wider
+    b0 = f.effect_interval(X[:5], 0.9, method="bias_bound", curvature_bound=0.0)
+    np.testing.assert_allclose(b0, (clo, chi), rtol=0, atol=1e-12)
+    bb = f.effect_interval_parts(X[:5], method="bias_bound")
+    assert bb.curvature_bound == f.rule_of_thumb_effect_curvature() > 0
+    assert np.all(bb.bias_bound > 0)
+    blo, bhi = bb.interval(0.9)
+    assert np.all(bhi - blo > chi - clo)
+    with pytest.raises(ValueError, match="'curvature_bound'.*'bias_bound' only"):
+        f.effect_interval(X[:5], curvature_bound=1.0)
+    with pytest.raises(ValueError, match="'curvature_bound'"):
+        f.effect_interval(X[:5], method="bias_bound", curvature_bound=-1.0)
 
 
 def test_bad_input_clear_errors_and_state_kept():
