@@ -258,3 +258,29 @@ def test_compiled_solve_equals_numpy_loop(oob, squared, sw):
         theta1, _ = solve_effects(*args, 0.1)
         got = f.oob_effect() if oob else f.predict_effect(Q)
         np.testing.assert_allclose(got[:80], theta1[:, 1], rtol=0, atol=1e-12)
+
+
+def test_bias_moment_equals_dense_equivalent_kernel():
+    # S(x) = sum_i l_i w~_i u_i u_i' with l = alpha * (row 1 of M^-1) z: the compiled
+    # pass against the dense forest weights (neighbour_weights) and a direct solve.
+    from hedgerow.estimators._effect_solve import solve_effects
+
+    X, y, w, _ = load_trial_demo(400, random_state=6)
+    f = TreatmentEffectForest(n_estimators=60, random_state=0, ridge_penalty=0.1,
+                              correction_features=None).fit(X, y, w)
+    Q = np.random.default_rng(3).uniform(-1, 1, (6, 3))
+    cols = np.arange(3)
+    _, _, S = solve_effects(f.forest_, f.forest_.apply(Q), None, f.X_train_, Q,
+                            f.w_centred_, f.y_centred_, f.sample_weight_, f.x_scale_,
+                            cols, (), 0.1, bias_moment=True)
+    W = f.neighbour_weights(Q).toarray()
+    for q in range(Q.shape[0]):
+        U = (f.X_train_ - Q[q]) / f.x_scale_
+        wt = f.w_centred_
+        Z = np.column_stack([np.ones_like(wt), wt, wt[:, None] * U, U])
+        M = (Z * W[q][:, None]).T @ Z
+        M[2:, 2:] += np.diag(0.1 * np.diag(M)[2:])
+        M += 1e-12 * np.trace(M) / M.shape[0] * np.eye(M.shape[0])
+        lw = W[q] * (Z @ np.linalg.inv(M)[1])
+        dense = (U * (lw * wt)[:, None]).T @ U
+        np.testing.assert_allclose(S[q], dense, rtol=1e-8, atol=1e-10)
