@@ -191,6 +191,9 @@ def test_bad_input_clear_errors_and_state_kept():
     e[0] = 1.0
     with pytest.raises(ValueError, match="'propensity_model'.*exactly 0 or 1"):
         f.fit(X, y, w, propensity_model=e)
+    with pytest.raises(ValueError, match="'correction_features'.*column indices in \\[0, 3\\)"):
+        f.set_params(correction_features=[5]).fit(X, y, w)
+    f.set_params(correction_features="auto")
     assert f.forest_ is forest
     np.testing.assert_array_equal(f.predict_effect(X[:10]), before)
 
