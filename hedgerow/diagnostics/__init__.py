@@ -33,6 +33,7 @@ from hedgerow.diagnostics._effect import (
     overlap_profile,
     r_loss,
 )
+from hedgerow.diagnostics._effect_coverage import EffectCoverageReport, effect_coverage_readout
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
@@ -77,6 +78,8 @@ __all__ = [
     "EFFECT_DECISIONS", "EFFECT_FOLD_TREES", "EFFECT_METHODS", "EffectProbe",
     "EffectVerdict", "OverlapProfile", "effect_probe", "effect_verdict",
     "neighbourhood_difference", "overlap_profile", "r_loss",
+    "EffectCoverageReport",
+    "effect_coverage_readout",
     "CAUTIONS",
     "CAUTIONS_LINK",
     "DecisionPanel",

@@ -21,11 +21,13 @@ diagnostic here checks it) and overlap; defer to the study design and domain rev
 from __future__ import annotations
 
 import copy
+import warnings
 from numbers import Integral, Real
 
 import numpy as np
 from sklearn.base import BaseEstimator
-from sklearn.utils._param_validation import Interval
+from sklearn.linear_model import Lasso, LassoCV
+from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted
 
 from hedgerow._validation import (
@@ -35,16 +37,25 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
-from hedgerow.estimators._forest import HonestForestRegressor, _ForestBase
+from hedgerow.estimators._effect_solve import effect_penalty_path, solve_effects
+from hedgerow.estimators._forest import (
+    _MAX_SQUARED,
+    BIAS_CORRECTION_PENALTY,
+    HonestForestRegressor,
+    IntervalParts,
+    _ForestBase,
+    check_curvature_bound,
+)
 from hedgerow.forest import RULE_EFFECT_GRADIENT
 from hedgerow.inference import (
+    forest_monte_carlo_variance,
     little_bags_variance,
     normal_interval,
     satterthwaite_df,
-    student_interval_half_width,
 )
 
-__all__ = ["EFFECT_CAUTION", "EFFECT_INTERVAL_METHODS", "AverageEffect",
+__all__ = ["DEFAULT_EFFECT_INTERVAL", "EFFECT_CAUTION", "EFFECT_INTERVAL_METHODS",
+           "AverageEffect",
            "TreatmentEffectForest"]
 
 #: The caution every effect reading carries.
@@ -55,9 +66,18 @@ EFFECT_CAUTION = (
     "domain review."
 )
 
-#: Interval methods available for effects (the regression forest's names where they
-#: apply; the bias-aware ones are not built for effects yet).
-EFFECT_INTERVAL_METHODS = ("clt",)
+#: Interval methods available for effects (the regression forest's names and meanings).
+EFFECT_INTERVAL_METHODS = ("bias_corrected", "bias_bound", "clt")
+
+#: The default effect interval (see DEVELOPERS.md, "The treatment-effect forest").
+DEFAULT_EFFECT_INTERVAL = "bias_corrected"
+
+#: Penalties ``ridge_penalty="auto"`` chooses from, by out-of-bag R-loss.
+EFFECT_RIDGE_GRID = (0.01, 0.1, 1.0, 10.0)
+
+#: Out-of-bag rows (a seeded subsample) on which ``ridge_penalty="auto"`` compares the
+#: R-loss of the grid: a speed bound (the choice is among four values).
+RLOSS_ROWS = 500
 
 #: A propensity below this or above 1 minus this is flagged as weak overlap.
 OVERLAP_MARGIN = 0.05
@@ -138,10 +158,17 @@ class TreatmentEffectForest(BaseEstimator):
     ----------
     n_estimators, subsample_rate, trees_per_bag, honest, min_samples_leaf, max_features,
     max_depth, random_state, n_jobs : as for ``HonestForestRegressor``.
-    ridge_penalty : float >= 0
+    ridge_penalty : "auto" or float >= 0
         Penalty on the correction slopes, relative to each slope column's local second
         moment (0.1 shrinks a lone slope by about a tenth); changeable without refit
-        (``with_ridge_penalty``).
+        (``with_ridge_penalty``). "auto" (default): the value of ``EFFECT_RIDGE_GRID``
+        with the lowest out-of-bag R-loss sum (y~ - tau(x) w~)^2 (Nie & Wager 2021) on
+        up to ``RLOSS_ROWS`` training rows; the choice is ``ridge_penalty_``.
+    correction_features : "auto", None or list of column indices
+        Columns of the local correction. "auto" (default): those a lasso of the centred
+        outcome on w~ and w~ x (the linear R-learner, Nie & Wager 2021) keeps at the
+        one-standard-error penalty; none kept means no correction. None: every column.
+        The columns used are ``correction_features_``.
     nuisance_estimators : int or None
         Trees of each centring forest (default: a quarter of ``n_estimators``, at least
         40; single-tree bags on half-samples, so each row is out-of-bag for about half).
@@ -149,7 +176,8 @@ class TreatmentEffectForest(BaseEstimator):
 
     _parameter_constraints: dict = {
         **_ForestBase._parameter_constraints,
-        "ridge_penalty": [Interval(Real, 0.0, None, closed="left")],
+        "ridge_penalty": [StrOptions({"auto"}), Interval(Real, 0.0, None, closed="left")],
+        "correction_features": [None, StrOptions({"auto"}), "array-like"],
         "nuisance_estimators": [None, Interval(Integral, 2, None, closed="left")],
     }
 
@@ -163,7 +191,8 @@ class TreatmentEffectForest(BaseEstimator):
         min_samples_leaf=5,
         max_features=None,
         max_depth=None,
-        ridge_penalty=0.1,
+        ridge_penalty="auto",
+        correction_features="auto",
         nuisance_estimators=None,
         random_state=None,
         n_jobs=None,
@@ -176,6 +205,7 @@ class TreatmentEffectForest(BaseEstimator):
         self.max_features = max_features
         self.max_depth = max_depth
         self.ridge_penalty = ridge_penalty
+        self.correction_features = correction_features
         self.nuisance_estimators = nuisance_estimators
         self.random_state = random_state
         self.n_jobs = n_jobs
@@ -249,7 +279,11 @@ class TreatmentEffectForest(BaseEstimator):
             yt = y - m
             wt = w - e
             Z = wt[:, None]
+            cols = self._choose_columns(X, yt, wt, n)
             forest, l, mtry, s = self._grow(X, yt, rule=RULE_EFFECT_GRADIENT, Z=Z)
+            scale = X.std(axis=0)
+            x_scale = np.where(scale > 0, scale, 1.0)
+            lam, path = self._choose_penalty(forest, X, yt, wt, sw, x_scale, cols, int(seeds[2]))
         self.forest_ = forest
         self.X_train_ = X
         self.y_train_ = y
@@ -263,77 +297,108 @@ class TreatmentEffectForest(BaseEstimator):
         self.trees_per_bag_ = l
         self.max_features_ = mtry
         self.subsample_size_ = s
-        centre = X.mean(axis=0)
-        scale = X.std(axis=0)
-        self.x_centre_ = centre
-        self.x_scale_ = np.where(scale > 0, scale, 1.0)
+        self.x_centre_ = X.mean(axis=0)
+        self.x_scale_ = x_scale
+        self.correction_features_ = cols
+        self.ridge_penalty_ = lam
+        self.rloss_path_ = path  # penalty -> out-of-bag R-loss ("auto" only)
         return self
 
-    # -- the local solve -----------------------------------------------------------------
-    def _solve_one(self, leaf_ids, usable, xq, lam, corrected):
-        """Return (tau, slopes of tau in X units, per-tree influence psi (B,))."""
-        f = self.forest_
-        B = leaf_ids.shape[0]
-        starts = f.leaf_ptr[leaf_ids]
-        sizes = f.leaf_ptr[leaf_ids + 1] - starts
-        keep = (sizes > 0) if usable is None else (usable & (sizes > 0))
-        psi = np.full(B, np.nan)
-        nk = int(keep.sum())
-        d = xq.shape[0]
-        if nk == 0:
-            return np.nan, np.full(d, np.nan), psi
-        st, sz = starts[keep], sizes[keep]
-        tree_of = np.repeat(np.arange(nk), sz)
-        offs = np.arange(sz.sum()) - np.repeat(np.cumsum(sz) - sz, sz)
-        rows = f.leaf_rows[np.repeat(st, sz) + offs]
-        a = self.sample_weight_[rows] / (np.repeat(sz, sz) * nk)  # alpha_i per entry
-        wt = self.w_centred_[rows]
-        yt = self.y_centred_[rows]
-        if corrected:
-            dx = (self.X_train_[rows] - xq) / self.x_scale_
-            Zm = np.column_stack([np.ones_like(wt), wt, wt[:, None] * dx, dx])
-        else:
-            Zm = np.column_stack([np.ones_like(wt), wt])
-        k = Zm.shape[1]
-        Za = Zm * a[:, None]
-        M = Za.T @ Zm
-        rhs = Za.T @ yt
-        if corrected:
-            # penalty relative to each slope column's own local second moment, so the
-            # shrinkage does not depend on how wide the neighbourhood is
-            diag = np.diag(M)[2:].copy()
-            M[2:, 2:] += lam * np.diag(np.maximum(diag, 1e-300))
-        M += 1e-12 * np.trace(M) / k * np.eye(k)
-        theta = np.linalg.solve(M, rhs)
-        resid = yt - Zm @ theta
-        g = np.linalg.solve(M, (Za * resid[:, None]).T)[1]  # influence per entry, summed
-        # per tree: the sum over its leaf of alpha-weighted influence, times nk (a tree's
-        # own estimate of the correction term); the forest averages them
-        per_tree = np.bincount(tree_of, weights=g, minlength=nk) * nk
-        psi[keep] = theta[1] + per_tree - per_tree.mean()
-        slopes = (theta[2:2 + d] / self.x_scale_) if corrected else np.full(d, np.nan)
-        return theta[1], slopes, psi
+    def _choose_columns(self, X, yt, wt, n):
+        """Return the correction columns (``correction_features``; see the class doc)."""
+        d = X.shape[1]
+        cf = self.correction_features
+        if cf is None:
+            return np.arange(d)
+        if not (isinstance(cf, str) and cf == "auto"):
+            cols = np.asarray(cf).ravel()
+            if cols.dtype.kind not in "iu" or np.any((cols < 0) | (cols >= d)) or (
+                    np.unique(cols).size != cols.size):
+                raise ValueError(
+                    f"The 'correction_features' parameter must be 'auto', None or distinct "
+                    f"column indices in [0, {d}). Got {cf!r} instead.")
+            return np.sort(cols.astype(np.int64))
+        Xs = (X - X.mean(axis=0)) / np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
+        A = np.column_stack([wt, wt[:, None] * Xs])
+        sd = float(np.std(yt))
+        target = (yt - yt.mean()) / (sd if sd > 0 else 1.0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            # 40 penalties on the path (the default 100 doubled the screen's time)
+            cv = LassoCV(cv=min(5, n), alphas=40, random_state=0).fit(A, target)
+            mse = cv.mse_path_.mean(axis=1)
+            se = cv.mse_path_.std(axis=1, ddof=1) / np.sqrt(cv.mse_path_.shape[1])
+            best = int(np.argmin(mse))
+            # one-standard-error rule (Hastie, Tibshirani & Friedman 2009, Sec. 7.10):
+            # the largest penalty within one s.e. of the minimum (alphas_ descend)
+            alpha = cv.alphas_[int(np.flatnonzero(mse <= mse[best] + se[best])[0])]
+            coef = Lasso(alpha=alpha).fit(A, target).coef_[1:]
+        return np.flatnonzero(np.abs(coef) > 1e-10).astype(np.int64)
 
-    def _solve(self, X, lam, corrected, oob=False):
+    def _choose_penalty(self, forest, X, yt, wt, sw, x_scale, cols, seed):
+        """Return (penalty, {penalty: out-of-bag R-loss}): the given float, or the choice."""
+        lam = self.ridge_penalty
+        if not (isinstance(lam, str) and lam == "auto"):
+            return float(lam), {}
+        if cols.size == 0:
+            return float(EFFECT_RIDGE_GRID[1]), {}  # nothing to penalise
+        n = X.shape[0]
+        rows = np.arange(n)
+        if n > RLOSS_ROWS:
+            rows = np.sort(np.random.default_rng(seed).choice(n, RLOSS_ROWS, replace=False))
+        leaves = forest.apply(X[rows], n_jobs=self._n_threads())
+        usable = ~forest.inbag(rows)
+        tau = effect_penalty_path(forest, leaves, usable, X, X[rows], wt, yt, sw, x_scale,
+                                  cols, (), np.asarray(EFFECT_RIDGE_GRID)[:, None],
+                                  n_jobs=self._n_threads())
+        ok = np.all(np.isfinite(tau), axis=1)
+        r = yt[rows][ok, None] - tau[ok] * wt[rows][ok, None]
+        loss = np.sum(sw[rows][ok, None] * r ** 2, axis=0)
+        path = dict(zip(EFFECT_RIDGE_GRID, loss.tolist(), strict=True))
+        return float(EFFECT_RIDGE_GRID[int(np.argmin(loss))]), path
+
+    # -- the local solve -----------------------------------------------------------------
+    def _solve(self, X, lam, corrected, oob=False, cols=None):
+        """Return (tau (m,), slopes of tau in X units (m, d), per-tree influence psi (m, B)).
+
+        One compiled pass per query over its leaves' fill rows
+        (``hedgerow.estimators._effect_solve.solve_effects``; ``solve_effects_loop`` is
+        the numpy reference the tests compare it with).
+        """
         check_is_fitted(self)
         if oob:
             X = self.X_train_
-            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
             usable = ~self.forest_.inbag(np.arange(X.shape[0]))
         else:
-            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
             usable = None
-        m = X.shape[0]
-        tau = np.empty(m)
-        slopes = np.empty((m, X.shape[1]))
-        psi = np.empty((m, leaves.shape[1]))
-        for q in range(m):
-            u = None if usable is None else usable[q]
-            tau[q], slopes[q], psi[q] = self._solve_one(leaves[q], u, X[q], lam, corrected)
+        leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+        d = X.shape[1]
+        if not corrected:
+            cols = np.arange(0)
+        elif cols is None:
+            cols = self._correction_columns()
+        theta, psi = solve_effects(
+            self.forest_, leaves, usable, self.X_train_, X, self.w_centred_,
+            self.y_centred_, self.sample_weight_, self.x_scale_, cols, (), lam,
+            n_jobs=self._n_threads(),
+        )
+        tau = theta[:, 1]
+        # the local line is held flat along columns outside the correction
+        slopes = np.full((X.shape[0], d), 0.0 if corrected else np.nan)
+        if corrected:
+            slopes[:, cols] = theta[:, 2:2 + cols.size] / self.x_scale_[cols]
         return tau, slopes, psi
 
+    def _correction_columns(self):
+        return self.correction_features_
+
     def _penalty(self, ridge_penalty):
-        lam = self.ridge_penalty if ridge_penalty is None else ridge_penalty
+        lam = ridge_penalty
+        if lam is None:
+            check_is_fitted(self)
+            lam = self.ridge_penalty
+            if isinstance(lam, str) and lam == "auto":
+                lam = self.ridge_penalty_
         if isinstance(lam, bool) or not isinstance(lam, Real) or not (
                 np.isfinite(lam) and lam >= 0):
             raise ValueError(f"The 'ridge_penalty' parameter must be a finite float >= 0. "
@@ -363,31 +428,121 @@ class TreatmentEffectForest(BaseEstimator):
         tau, _, psi = self._solve(None, lam, corrected, oob=True)
         return (tau, self._std(psi)) if return_std else tau
 
-    def effect_interval(self, X, level=0.95, method="clt", *, corrected=True,
-                        ridge_penalty=None):
+    def effect_interval(self, X, level=0.95, method=DEFAULT_EFFECT_INTERVAL, *,
+                        corrected=True, ridge_penalty=None, curvature_bound=None):
         """Return ``(lower, upper)`` of tau(x) at ``level``.
 
-        ``method="clt"``: the interval from little bags centred on the estimate (ignores
-        the estimate's bias), with the Student-t quantile at the Satterthwaite degrees of
-        freedom of the little-bags variance (few bags make the standard error noisy).
-        The regression forest's bias-aware methods are not built for effects yet and are
-        refused by name.
+        Methods (as the regression forests' ``predict_interval``; see
+        ``effect_interval_parts`` for what each is made of):
+
+        - "bias_corrected" (default): robust bias correction (Calonico, Cattaneo & Farrell
+          2018): centred on a local quadratic of the effect (the correction columns and
+          the squares of their differences from x, penalty
+          ``BIAS_CORRECTION_PENALTY``) under the same forest weights, studentised by
+          that estimator's own little-bags variance plus the finite forest's Monte
+          Carlo variance, Student-t quantile at the Satterthwaite degrees of freedom.
+          ``corrected`` and ``ridge_penalty`` do not enter it.
+        - "clt": the normal interval from little bags centred on the estimate (ignores
+          its bias).
+        - "bias_bound": centred on the corrected effect, half-width ``cv(b / se) * se``
+          (Armstrong & Kolesar 2018, 2020) with se the little-bags sd and
+          b = M/2 * ||sum_i l_i w~_i u_i u_i'||_* from the effect's equivalent kernel l;
+          M (``curvature_bound``, standardised units of the correction columns) by
+          default the largest Hessian norm of a global quartic effect fitted by least
+          squares to the centred outcome (``rule_of_thumb_effect_curvature``).
+          ``curvature_bound=0`` gives the "clt" interval exactly.
+
+        Caution: decision support, not advice; assumes unconfoundedness (not checked
+        here) and overlap; defer to the study design and to domain review.
         """
         level = check_level(level)
-        if method not in EFFECT_INTERVAL_METHODS:
+        return self.effect_interval_parts(X, method, corrected=corrected,
+                                          ridge_penalty=ridge_penalty,
+                                          curvature_bound=curvature_bound).interval(level)
+
+    def effect_interval_parts(self, X, method=DEFAULT_EFFECT_INTERVAL, *, corrected=True,
+                              ridge_penalty=None, curvature_bound=None) -> IntervalParts:
+        """Return the ``IntervalParts`` (centre, std, bias bound, df) of an effect interval."""
+        if not isinstance(method, str) or method not in EFFECT_INTERVAL_METHODS:
             raise ValueError(
                 f"The 'method' parameter must be one of {list(EFFECT_INTERVAL_METHODS)} for "
-                f"effects (the bias-aware methods are not built for effects yet). Got "
-                f"{method!r} instead."
+                f"effects. Got {method!r} instead."
             )
+        M = check_curvature_bound(curvature_bound)
+        if M is not None and method != "bias_bound":
+            raise ValueError(
+                f"The 'curvature_bound' parameter applies to method='bias_bound' only. "
+                f"Got curvature_bound={curvature_bound!r} with method={method!r} instead.")
         lam = self._penalty(ridge_penalty)
         X = check_predict_data(self, X)
-        tau, _, psi = self._solve(X, lam, corrected)
         self._require_bags()
+        if method == "bias_bound":
+            cols = self.correction_features_ if corrected else np.arange(0)
+            leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+            theta, psi, S = solve_effects(
+                self.forest_, leaves, None, self.X_train_, X, self.w_centred_,
+                self.y_centred_, self.sample_weight_, self.x_scale_, cols, (), lam,
+                n_jobs=self._n_threads(), bias_moment=True,
+            )
+            if M is None:
+                M = self.rule_of_thumb_effect_curvature()
+            tau = theta[:, 1]
+            nuc = (np.abs(np.linalg.eigvalsh(S)).sum(axis=1) if cols.size
+                   else np.zeros(tau.shape[0]))
+            bound = np.where(np.isfinite(tau), 0.5 * M * nuc, np.nan)
+            return IntervalParts(method, tau, self._std(psi), bound, float(M))
+        if method == "clt":
+            tau, _, psi = self._solve(X, lam, corrected)
+            std = self._std(psi)
+            return IntervalParts(method, tau, std, np.zeros_like(tau), 0.0)
+        cols = self.correction_features_
+        if cols.size == 0:
+            cols = np.arange(X.shape[1])
+        cols = cols[:_MAX_SQUARED]
+        leaves = self.forest_.apply(X, n_jobs=self._n_threads())
+        theta, psi = solve_effects(
+            self.forest_, leaves, None, self.X_train_, X, self.w_centred_, self.y_centred_,
+            self.sample_weight_, self.x_scale_, cols, cols,
+            BIAS_CORRECTION_PENALTY, n_jobs=self._n_threads(),
+        )
         lb = little_bags_variance(psi, self.trees_per_bag_)
-        df = satterthwaite_df(lb.variance, lb.tau, lb.n_bags)
-        h = student_interval_half_width(lb.std, df, level)
-        return tau - h, tau + h
+        var = lb.variance + forest_monte_carlo_variance(psi, self.trees_per_bag_)
+        df = satterthwaite_df(var, lb.tau, lb.n_bags)
+        centre = theta[:, 1]
+        return IntervalParts(method, centre, np.sqrt(var), np.zeros_like(centre), 0.0,
+                             df=df)
+
+    def rule_of_thumb_effect_curvature(self) -> float:
+        """Return M of ``method="bias_bound"``: a global quartic effect's largest curvature.
+
+        tau(x) = poly(u) with u the standardised correction columns (each to the fourth
+        power, pairwise products for at most six columns), fitted with a quartic baseline
+        by least squares to y~ = poly_b(u) + w~ poly(u); M is the largest Hessian spectral
+        norm of poly over the training rows (Armstrong & Kolesar 2020, Sec. 4, rule of
+        thumb, value from memory; applied here to the effect). 0 without correction
+        columns.
+        """
+        check_is_fitted(self)
+        cols = self.correction_features_
+        if cols.size == 0:
+            return 0.0
+        U = (self.X_train_[:, cols] - self.x_centre_[cols]) / self.x_scale_[cols]
+        n, k = U.shape
+        iu, ju = np.triu_indices(k, 1)
+        if k > 6:
+            iu, ju = iu[:0], ju[:0]
+        basis = np.hstack([np.ones((n, 1)), U, U ** 2, U ** 3, U ** 4, U[:, iu] * U[:, ju]])
+        design = np.hstack([basis, self.w_centred_[:, None] * basis])
+        coef, *_ = np.linalg.lstsq(design, self.y_centred_, rcond=None)
+        c = coef[basis.shape[1]:]
+        c2, c3, c4 = c[1 + k:1 + 2 * k], c[1 + 2 * k:1 + 3 * k], c[1 + 3 * k:1 + 4 * k]
+        H = np.zeros((n, k, k))
+        diag = np.arange(k)
+        H[:, diag, diag] = 2 * c2 + 6 * c3 * U + 12 * c4 * U ** 2
+        if iu.size:
+            H[:, iu, ju] = c[1 + 4 * k:]
+            H[:, ju, iu] = c[1 + 4 * k:]
+        return float(np.max(np.abs(np.linalg.eigvalsh(H)).max(axis=1)))
 
     def local_slopes(self, X, *, ridge_penalty=None):
         """Return the (m, d) slopes of tau in the units of X from the local correction."""
