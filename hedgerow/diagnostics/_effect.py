@@ -15,6 +15,7 @@ they assume unconfoundedness (no diagnostic here checks it) and overlap.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -61,6 +62,12 @@ def _require_effect_model(model):
                         f"{type(model).__name__} instead.")
     check_is_fitted(model)
     return model
+
+
+def _column_names(model):
+    from hedgerow._validation import column_names
+
+    return column_names(model)
 
 
 def _check_level(level):
@@ -216,10 +223,8 @@ def effect_probe(model, x, *, feature=0, level=0.95, margin=None) -> EffectProbe
     e = model.propensity_
     weak = (e < margin) | (e > 1 - margin) if model.binary_treatment_ else np.zeros_like(has)
     top = np.sort(a)[::-1][:10].sum()
-    from hedgerow._validation import column_names
-
     return EffectProbe(
-        x=np.asarray(q, dtype=np.float64)[0].copy(), columns=tuple(column_names(model)),
+        x=np.asarray(q, dtype=np.float64)[0].copy(), columns=tuple(_column_names(model)),
         feature=j, level=level, methods=methods, weights=a, ess=kish_ess(a),
         top_share=float(top), slopes=slopes, line_x=line_x, line_effect=line,
         weak_share=float(a[weak].sum()),
@@ -369,7 +374,7 @@ def effect_verdict(X, y, treatment, *, model=None, folds=5, fold_trees=EFFECT_FO
     from sklearn.base import clone
 
     from hedgerow._progress import RunCancelled, progress_bar
-    from hedgerow.estimators import TreatmentEffectForest
+    from hedgerow.estimators import FewBagsWarning, TreatmentEffectForest
 
     level = _check_level(level)
     if isinstance(folds, bool) or not isinstance(folds, int | np.integer) or folds < 2:
@@ -409,10 +414,12 @@ def effect_verdict(X, y, treatment, *, model=None, folds=5, fold_trees=EFFECT_FO
         for k in range(int(folds)):
             test = fold == k
             tr = ~test
-            f = clone(template).fit(Xa[tr], model.y_train_[tr], model.treatment_[tr],
-                                    model.sample_weight_[tr],
-                                    outcome_model=model.outcome_fit_[tr],
-                                    propensity_model=model.propensity_[tr])
+            with warnings.catch_warnings():  # the verdict uses no interval
+                warnings.simplefilter("ignore", FewBagsWarning)
+                f = clone(template).fit(Xa[tr], model.y_train_[tr], model.treatment_[tr],
+                                        model.sample_weight_[tr],
+                                        outcome_model=model.outcome_fit_[tr],
+                                        propensity_model=model.propensity_[tr])
             tau["corrected"][test] = f.predict_effect(Xa[test])
             tau["uncorrected"][test] = f.predict_effect(Xa[test], corrected=False)
             tau["constant"][test] = f.average_effect().estimate

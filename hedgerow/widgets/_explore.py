@@ -144,9 +144,16 @@ class Explorer(W.Tab):
             self.selected_index = TAB_TITLES.index(tab)
 
 
-def explore(X, y, *, model=None, feature=None, compare=True, refit_delay=0.5, snapshot=None,
-            allow_data_mismatch=False, **forest_params) -> Explorer:
+def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, refit_delay=0.5,
+            snapshot=None, allow_data_mismatch=False, **forest_params) -> Explorer:
     """Return an ``Explorer``: probe, neighbour weights, edges, tuning and verdict views.
+
+    With ``treatment`` (0/1 or a continuous dose per row) return an ``EffectExplorer``
+    instead: the effect probe, overlap and effect verdict of a ``TreatmentEffectForest``
+    (``model``: one fitted on (X, y, treatment), or None to fit one with
+    ``forest_params``; ``feature`` the effect line's column). Every effect tab carries
+    the effect caution: decision support, not advice; unconfoundedness is assumed and
+    checked by nothing here; overlap is shown, not guaranteed.
 
     Parameters
     ----------
@@ -164,6 +171,9 @@ def explore(X, y, *, model=None, feature=None, compare=True, refit_delay=0.5, sn
     allow_data_mismatch : with ``snapshot``, proceed (with a warning) when (X, y) differ
         from the snapshot's data fingerprint instead of raising.
     """
+    if treatment is not None:
+        return _effect_explorer(X, y, treatment, model=model, feature=feature,
+                                snapshot=snapshot, compare=compare, **forest_params)
     if snapshot is None:
         session = ExploreSession(X, y, model=model, compare=compare, refit_delay=refit_delay,
                                  **forest_params)
@@ -197,3 +207,19 @@ def explore(X, y, *, model=None, feature=None, compare=True, refit_delay=0.5, sn
     explorer = Explorer(session, feature=feature)
     explorer.apply_view_state(shown=view["shown"], tab=view["tab"])
     return explorer
+
+
+def _effect_explorer(X, y, treatment, *, model, feature, snapshot, compare, **forest_params):
+    from hedgerow.widgets._effect_session import EffectSession
+    from hedgerow.widgets._effect_views import EffectExplorer
+
+    if snapshot is not None:
+        raise ValueError("The 'snapshot' parameter is not supported with 'treatment' (the "
+                         "effect explorer keeps no snapshots yet).")
+    if compare is not True:
+        raise ValueError("The 'compare' parameter does not apply with 'treatment' (the "
+                         "effect explorer compares its own methods).")
+    session = EffectSession(X, y, treatment, model=model, **forest_params)
+    if feature is not None:
+        session.feature = feature
+    return EffectExplorer(session)

@@ -1,0 +1,147 @@
+"""The state behind the effect explorer: one fitted effect forest, a probe, a column.
+
+Plain Python (traitlets, no widgets): tests drive it without a browser. Every number it
+holds comes from ``hedgerow.diagnostics`` (``effect_probe``, ``overlap_profile``,
+``effect_verdict``) or the estimator's own methods.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import numpy as np
+import traitlets as t
+
+from hedgerow import diagnostics as D
+from hedgerow._progress import RunControl
+
+__all__ = ["EffectSession"]
+
+
+class EffectSession(t.HasTraits):
+    """A fitted ``TreatmentEffectForest`` on (X, y, treatment) and what the views show.
+
+    ``probe`` (d,) and ``feature`` (column index) drive the probe view;
+    ``verdict_status`` is ``"not run"``, ``"running"``, ``"done"``, ``"cancelled"`` or
+    ``"failed"``, with ``verdict_progress`` (folds done, folds) while it runs.
+    """
+
+    probe = t.Any()
+    feature = t.Int(0)
+    verdict_status = t.Unicode("not run")
+    verdict_progress = t.Tuple((0, 0))
+    verdict_message = t.Unicode("")
+
+    def __init__(self, X, y, treatment, *, model=None, verdict_folds=5,
+                 verdict_fold_trees=D.EFFECT_FOLD_TREES, random_state=0, **forest_params):
+        super().__init__()
+        from hedgerow.estimators import TreatmentEffectForest
+
+        if model is None:
+            params = {"n_estimators": 256, "random_state": random_state, **forest_params}
+            model = TreatmentEffectForest(**params).fit(X, y, treatment)
+        elif forest_params:
+            raise ValueError(f"Pass forest settings or a fitted 'model', not both. Got "
+                             f"model and {sorted(forest_params)}.")
+        D._effect._require_effect_model(model)
+        from hedgerow._validation import check_predict_data
+
+        Xc = np.asarray(check_predict_data(model, X), dtype=np.float64)
+        if Xc.shape != model.X_train_.shape or not np.array_equal(Xc, model.X_train_) or \
+                not np.array_equal(np.asarray(treatment, dtype=np.float64).ravel(),
+                                   model.treatment_):
+            raise ValueError("The 'model' parameter must be fitted on these X and treatment "
+                             "(or pass model=None to fit one).")
+        self.model = model
+        self.X, self.y, self.treatment = X, y, treatment
+        self.columns = tuple(D._effect._column_names(model))
+        self.verdict_folds = verdict_folds
+        self.verdict_fold_trees = verdict_fold_trees
+        self.random_state = random_state
+        self._verdict = None
+        self._control = None
+        self._thread = None
+        self._oob = None
+        self.probe = D.probe_anchor(model.X_train_)
+
+    # -- the probe ---------------------------------------------------------------------------
+    @t.validate("probe")
+    def _check_probe(self, proposal):
+        return D.check_probe_point(self.model, proposal["value"])[0].copy()
+
+    @t.validate("feature")
+    def _check_feature(self, proposal):
+        return D.resolve_feature(self.model, proposal["value"])
+
+    def set_probe_value(self, column, value):
+        """Set one column of the probe (name or index) to ``value``."""
+        j = D.resolve_feature(self.model, column)
+        x = np.array(self.probe, dtype=np.float64)
+        x[j] = float(value)
+        self.probe = x
+
+    def probe_report(self, level=0.95):
+        """Return ``effect_probe`` at the current probe and column."""
+        return D.effect_probe(self.model, self.probe, feature=self.feature, level=level)
+
+    def oob_effects(self):
+        """Return the training rows' out-of-bag effects (computed once)."""
+        if self._oob is None:
+            self._oob = self.model.oob_effect()
+        return self._oob
+
+    def overlap(self):
+        """Return ``overlap_profile`` of the model."""
+        return D.overlap_profile(self.model)
+
+    # -- the verdict -------------------------------------------------------------------------
+    @property
+    def verdict(self):
+        """The last finished ``EffectVerdict`` (None before one is run)."""
+        return self._verdict
+
+    def run_verdict(self, progress=None):
+        """Compute the effect verdict here and now (blocking); return it."""
+        self.verdict_status = "running"
+        try:
+            v = D.effect_verdict(self.model.X_train_, self.model.y_train_,
+                                 self.model.treatment_, model=self.model,
+                                 folds=self.verdict_folds, fold_trees=self.verdict_fold_trees,
+                                 random_state=self.random_state,
+                                 progress=False if progress is None else progress)
+        except Exception as exc:
+            self.verdict_message = f"{type(exc).__name__}: {exc}"
+            self.verdict_status = "failed"
+            raise
+        self._verdict = v
+        self.verdict_status = "done" if v.complete else "cancelled"
+        return v
+
+    def start_verdict(self):
+        """Run the verdict in a background thread (progress in ``verdict_progress``)."""
+        if self.verdict_status == "running":
+            return self._thread
+        self.verdict_progress = (0, int(self.verdict_folds))
+
+        def on_update(done, total):
+            self.verdict_progress = (int(done), int(total or 0))
+
+        self._control = RunControl(on_update)
+
+        def work():
+            try:
+                self.run_verdict(self._control)
+            except Exception:  # shown through verdict_status / verdict_message
+                pass
+
+        self._thread = threading.Thread(target=work, daemon=True, name="effect-verdict")
+        self._thread.start()
+        return self._thread
+
+    def cancel_verdict(self):
+        """Ask a running verdict to stop after its current fold."""
+        if self._control is not None:
+            self._control.cancel()
+
+    def close(self):
+        self.cancel_verdict()
