@@ -29,6 +29,7 @@ from hedgerow.diagnostics._effect import (
     OverlapProfile,
     effect_probe,
     effect_verdict,
+    interval_method,
     neighbourhood_difference,
     overlap_profile,
     r_loss,
@@ -77,7 +78,7 @@ from hedgerow.diagnostics._verdict import (
 __all__ = [
     "EFFECT_DECISIONS", "EFFECT_FOLD_TREES", "EFFECT_METHODS", "EffectProbe",
     "EffectVerdict", "OverlapProfile", "effect_probe", "effect_verdict",
-    "neighbourhood_difference", "overlap_profile", "r_loss",
+    "neighbourhood_difference", "overlap_profile", "r_loss", "interval_method",
     "EffectCoverageReport",
     "effect_coverage_readout",
     "CAUTIONS",

@@ -28,6 +28,7 @@ from hedgerow.diagnostics._verdict import EDGE_BAND, paired_relative_gain
 
 __all__ = ["EffectProbe", "OverlapProfile", "EffectVerdict", "effect_probe",
            "overlap_profile", "effect_verdict", "neighbourhood_difference", "r_loss",
+           "interval_method",
            "EFFECT_METHODS", "EFFECT_FOLD_TREES", "EFFECT_DECISIONS"]
 
 #: The methods of the effect probe, in the order shown.
@@ -130,7 +131,8 @@ class EffectProbe(ReportMixin):
     ----------
     x : (d,) the probe. columns : column names. feature : index of the line's column.
     level : interval level. methods : DataFrame indexed by method (``EFFECT_METHODS``)
-    with effect, std, lower, upper. weights : (n,) forest weights of the training rows
+    with effect, std, lower, upper and interval (the method of each row's interval).
+    weights : (n,) forest weights of the training rows
     (sum 1). ess : Kish's effective n of the weights. top_share : weight of the heaviest
     ten rows. slopes : (d,) local slopes of the effect. line_x, line_effect : the local
     effect line along ``feature`` across the neighbourhood's span in that column.
@@ -185,8 +187,25 @@ class EffectProbe(ReportMixin):
                 f"{self.methods.to_string()}\n{self.overlap_note()}\nCaution: {self.caution}")
 
 
-def effect_probe(model, x, *, feature=0, level=0.95, margin=None) -> EffectProbe:
+def interval_method(method, corrected) -> str:
+    """Return the effect-interval method a row of an effect readout uses.
+
+    ``method`` None is the estimator's default. The robust bias-corrected interval is
+    one interval of the effect whatever the correction (it is centred on its own local
+    quadratic), so the uncorrected forest's row shows its own "clt" interval instead:
+    two identical intervals would read as agreement where there is none.
+    """
+    from hedgerow.estimators._effect_forest import DEFAULT_EFFECT_INTERVAL
+
+    how = DEFAULT_EFFECT_INTERVAL if method is None else method
+    return "clt" if (how == "bias_corrected" and not corrected) else how
+
+
+def effect_probe(model, x, *, feature=0, level=0.95, margin=None, method=None) -> EffectProbe:
     """Return the :class:`EffectProbe` of a fitted ``TreatmentEffectForest`` at ``x``.
+
+    ``method``: the interval method (default the estimator's; see ``interval_method`` for
+    the uncorrected row). The difference in means has the normal interval.
 
     ``feature``: column (index or name) of the local effect line. ``margin``: a propensity
     within this of 0 or 1 counts as weak overlap (default the estimator's 0.05).
@@ -204,15 +223,17 @@ def effect_probe(model, x, *, feature=0, level=0.95, margin=None) -> EffectProbe
     a = np.asarray(model.neighbour_weights(q).toarray()).ravel()
     rows = []
     for name, corrected in (("corrected forest", True), ("uncorrected forest", False)):
+        how = interval_method(method, corrected)
         tau, std = model.predict_effect(q, return_std=True, corrected=corrected)
-        lo, hi = model.effect_interval(q, level, corrected=corrected)
-        rows.append((name, float(tau[0]), float(std[0]), float(lo[0]), float(hi[0])))
+        lo, hi = model.effect_interval(q, level, how, corrected=corrected)
+        rows.append((name, float(tau[0]), float(std[0]), float(lo[0]), float(hi[0]), how))
     est, se, _ = neighbourhood_difference(
         a, model.treatment_, model.y_train_, binary=model.binary_treatment_,
         w_centred=model.w_centred_, y_centred=model.y_centred_)
     z = norm.ppf(0.5 + level / 2)
-    rows.append(("neighbourhood difference", est, se, est - z * se, est + z * se))
-    methods = pd.DataFrame(rows, columns=["method", "effect", "std", "lower", "upper"])
+    rows.append(("neighbourhood difference", est, se, est - z * se, est + z * se, "normal"))
+    methods = pd.DataFrame(rows, columns=["method", "effect", "std", "lower", "upper",
+                                          "interval"])
     methods = methods.set_index("method")
     slopes = np.asarray(model.local_slopes(q)[0], dtype=np.float64)
     has = a > 0

@@ -173,10 +173,12 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
             q = x.reshape(1, -1)
             at_probe = {}
             for name, corrected in (("corrected forest", True), ("uncorrected forest", False)):
+                how = D.interval_method(None, corrected)
                 tau, std = model.predict_effect(q, return_std=True, corrected=corrected)
-                lo, hi = model.effect_interval(q, level, corrected=corrected)
+                lo, hi = model.effect_interval(q, level, how, corrected=corrected)
                 at_probe[name] = {"effect": float(tau[0]), "std": float(std[0]),
-                                  "lower": float(lo[0]), "upper": float(hi[0])}
+                                  "lower": float(lo[0]), "upper": float(hi[0]),
+                                  "interval": how}
             slopes = dict(zip(columns, map(float, model.local_slopes(q)[0]), strict=True))
             bar.update(1)
     finally:

@@ -55,10 +55,14 @@ def _overlap_html(r) -> str:
 
 def _probe_html(r) -> str:
     rows = [[_e(name), number(v["effect"]), number(v["std"]), number(v["lower"]),
-             number(v["upper"])] for name, v in r.at_probe.items()]
+             number(v["upper"]), _e(v["interval"].replace("_", " "))]
+            for name, v in r.at_probe.items()]
     out = [f"<p>The effect at the probe with its {_pct(r.level)} interval: the local linear "
-           "corrected forest and the same trees without the correction.</p>",
-           _table(["method", "effect", "standard error", "lower", "upper"], rows, "hr-probe"),
+           "corrected forest and the same trees without the correction. The default "
+           "interval (bias corrected) is centred on its own local quadratic of the effect "
+           "whatever the correction, so the uncorrected row shows its clt interval.</p>",
+           _table(["method", "effect", "standard error", "lower", "upper", "interval"],
+                  rows, "hr-probe"),
            "<h3>Local slopes of the effect at the probe</h3><p>Change of the effect per unit "
            "of each column, from the local linear correction.</p>",
            _table(["column", "probe", "slope of the effect"],

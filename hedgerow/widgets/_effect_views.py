@@ -141,7 +141,8 @@ class EffectProbeView(_EffectView):
         lvl = f"{100 * p.level:g}%"
         rows = "".join(
             f"<tr><td>{html.escape(name)}</td><td>{fmt(r['effect'])}</td>"
-            f"<td>{fmt(r['std'])}</td><td>{fmt(r['lower'])} to {fmt(r['upper'])}</td></tr>"
+            f"<td>{fmt(r['std'])}</td><td>{fmt(r['lower'])} to {fmt(r['upper'])} "
+            f"<small>({html.escape(r['interval'].replace('_', ' '))})</small></td></tr>"
             for name, r in p.methods.iterrows())
         self.readout_html.value = (
             f"<table class='hedgerow-effect-readout'><tr><th>method</th><th>effect</th>"

@@ -21,10 +21,11 @@ CELL_TIMEOUT_S = 300
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 
-def test_the_four_guides_are_there():
+def test_the_five_guides_are_there():
     assert [p.name for p in GUIDES] == [
         "01-quickstart.ipynb", "02-is-a-smooth-correction-warranted.ipynb",
-        "03-tuning-by-eye.ipynb", "04-reviewing-a-model.ipynb"]
+        "03-tuning-by-eye.ipynb", "04-reviewing-a-model.ipynb",
+        "05-does-the-effect-vary.ipynb"]
 
 
 @pytest.mark.parametrize("path", sorted(NOTEBOOKS.glob("*.ipynb")), ids=lambda p: p.name)

@@ -50,8 +50,10 @@ def test_probe_methods_are_the_estimators_own(trial):
     assert list(p.methods.index) == list(D.EFFECT_METHODS)
     for name, corrected in (("corrected forest", True), ("uncorrected forest", False)):
         tau, std = m.predict_effect(q, return_std=True, corrected=corrected)
-        lo, hi = m.effect_interval(q, 0.95, corrected=corrected)
+        how = D.interval_method(None, corrected)
+        lo, hi = m.effect_interval(q, 0.95, how, corrected=corrected)
         row = p.methods.loc[name]
+        assert row["interval"] == how
         assert (row["effect"], row["std"], row["lower"], row["upper"]) == (
             tau[0], std[0], lo[0], hi[0])
     # the local line passes through the corrected effect at the probe with its slope
@@ -145,3 +147,14 @@ def test_bad_input_names_the_parameter(trial):
         D.effect_verdict(X, y, 1 - w, model=m)
     with pytest.raises(ValueError, match="treatment"):
         D.effect_verdict(X, y, w[:-1])
+
+
+def test_the_uncorrected_row_gets_its_own_interval(trial):
+    # the default (bias-corrected) interval does not depend on the correction; the
+    # uncorrected row must not repeat it as if the two agreed
+    assert D.interval_method(None, True) == "bias_corrected"
+    assert D.interval_method(None, False) == "clt"
+    assert D.interval_method("bias_bound", False) == "bias_bound"
+    p = D.effect_probe(trial[3], [0.9, 0.0, 0.0])
+    c, u = p.methods.loc["corrected forest"], p.methods.loc["uncorrected forest"]
+    assert (c["lower"], c["upper"]) != (u["lower"], u["upper"])

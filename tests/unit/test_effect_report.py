@@ -65,7 +65,8 @@ def test_effect_at_the_probe_is_predict_effect_with_and_without_the_correction(t
     q = np.array([[0.9, 0.0, 0.0]])
     for name, corrected in (("corrected forest", True), ("uncorrected forest", False)):
         tau, std = model.predict_effect(q, return_std=True, corrected=corrected)
-        lo, hi = model.effect_interval(q, 0.95, corrected=corrected)
+        lo, hi = model.effect_interval(q, 0.95, D.interval_method(None, corrected),
+                                       corrected=corrected)
         got = report.at_probe[name]
         assert got["effect"] == tau[0] and got["std"] == std[0]
         assert (got["lower"], got["upper"]) == (lo[0], hi[0])
