@@ -7,8 +7,8 @@ growth of the peak over the pre-fit memory, relative to the pickled size, is ass
 RSS and not tracemalloc: the growth kernels allocate through numba's runtime, which
 tracemalloc does not see.
 
-Bound (``PEAK_GROWTH_BOUND``): measured 2.12-2.13 (four runs) at this size (50,000 x 10, 100 trees in
-4 bags of 25, two threads; pickle 19.1 MB, of which 4.0 MB are the training columns).
+Bound (``PEAK_GROWTH_BOUND``): measured 2.12-2.13 (four runs) at this size (50,000 x 10,
+100 trees in 4 bags of 25, two threads; pickle 19.1 MB, 4.0 MB of it the training columns).
 Per-thread scratch (presorted lists of two trees, a bag's sorted positions, ~13 MB here)
 and the column-major copy and presort of the data (6 MB) do not shrink with the forest,
 so at this size they weigh more than at a million rows (DEVELOPERS.md, "The forest
