@@ -115,7 +115,8 @@ def _gib(kib_or_bytes: float, unit: str) -> float:
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", type=int, nargs="+", default=[100_000, 300_000])
+    ap.add_argument("--sizes", type=int, nargs="*", default=[100_000, 300_000],
+                    help="row counts (none with --million: 1M alone)")
     ap.add_argument("--million", action="store_true", help="add n = 1,000,000")
     ap.add_argument("--only", nargs="+", choices=MODELS, default=list(MODELS))
     ap.add_argument("--seed", type=int, default=1)

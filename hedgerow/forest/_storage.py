@@ -568,23 +568,25 @@ class ForestArrays:
 
     def leaf_means(self, y: np.ndarray) -> np.ndarray:
         """Return the mean of ``y`` over the fill rows of every leaf (NaN for empty leaves)."""
-        sizes = np.diff(self.leaf_ptr)
-        sums = np.zeros(sizes.shape[0])
-        starts = self.leaf_ptr[:-1]
-        # in blocks of whole leaves, so that y at the leaf rows is never gathered for the
-        # whole forest at once (8 bytes per stored row); each leaf's sum is one reduceat
-        # segment either way, so the bits do not depend on the blocks
-        L = sizes.shape[0]
+        ptr = self.leaf_ptr
+        L = ptr.shape[0] - 1
+        out = np.empty(L)
+        # in blocks of whole leaves, so that neither y at the leaf rows (8 bytes per stored
+        # row) nor the per-leaf temporaries exist for the whole forest at once; each
+        # leaf's sum is one reduceat segment either way, so the bits do not depend on
+        # the blocks
         lo = 0
         while lo < L:
-            hi = int(np.searchsorted(starts, starts[lo] + _LEAF_MEAN_BLOCK, side="left"))
+            hi = int(np.searchsorted(ptr, ptr[lo] + _LEAF_MEAN_BLOCK, side="left"))
             hi = min(L, max(hi, lo + 1))
-            a, b = int(starts[lo]), int(self.leaf_ptr[hi])
-            block = sizes[lo:hi] > 0
+            sizes = np.diff(ptr[lo:hi + 1])
+            starts = ptr[lo:hi]
+            nonempty = sizes > 0
+            sums = np.zeros(hi - lo)
+            a, b = int(ptr[lo]), int(ptr[hi])
             if b > a:
-                sums[lo:hi][block] = np.add.reduceat(y[self.leaf_rows[a:b]],
-                                                     starts[lo:hi][block] - a)
+                sums[nonempty] = np.add.reduceat(y[self.leaf_rows[a:b]], starts[nonempty] - a)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[lo:hi] = np.where(nonempty, sums / np.maximum(sizes, 1), np.nan)
             lo = hi
-        nonempty = sizes > 0
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return np.where(nonempty, sums / np.maximum(sizes, 1), np.nan)
+        return out
