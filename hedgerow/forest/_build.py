@@ -393,13 +393,16 @@ def grow_forest(
             while pending:
                 finished, pending = wait(pending, timeout=0.2, return_when="FIRST_COMPLETED")
                 for f in finished:
-                    i = futures[f]
+                    # a finished future holds its chunk's node arrays: let it go once
+                    # they are appended, or every tree's nodes would be held twice
+                    i = futures.pop(f)
                     part = f.result()
                     check_chunks([part], [ranges[i]])
                     assembly.add(ranges[i][0], part)
                     done_trees += ranges[i][1] - ranges[i][0]
                 if finished and progress is not None:
                     progress(done_trees)
+                finished = f = part = None
         except BaseException:
             for f in futures:
                 f.cancel()
