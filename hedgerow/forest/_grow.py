@@ -137,33 +137,60 @@ def presort(X):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _local_lists(global_order, sample_rows, grow_mask, fill_mask, XT):
-    """Per-feature sorted local ids and values of the grow rows and of the fill rows.
+def bag_order(global_order, pool):
+    """Return, per column, the positions in ``pool`` of its rows sorted by that column.
 
-    One sweep of the presorted order per feature fills both roles' lists; ``XT`` is the
-    (d, n) transposed training matrix, so each feature's values are contiguous.
+    ``pool`` (P,) int32 holds distinct training rows (a little bag's half-sample). The
+    result is ``global_order`` with the rows outside the pool left out, each row given as
+    its position in ``pool``: the same relative order, so lists built from it equal those
+    built from ``global_order``. Computed once per bag; each tree of the bag then sweeps
+    P instead of n entries per column.
     """
     d, n = global_order.shape
-    s = sample_rows.shape[0]
-    n_g = 0
-    n_f = 0
-    for i in range(s):
-        n_g += grow_mask[i]
-        n_f += fill_mask[i]
-    g_local = np.full(n, -1, dtype=np.int64)
-    f_local = np.full(n, -1, dtype=np.int64)
+    P = pool.shape[0]
+    pos = np.full(n, -1, dtype=np.int32)
+    for i in range(P):
+        pos[pool[i]] = i
+    out = np.empty((d, P), dtype=np.int32)
+    for j in range(d):
+        c = 0
+        for t in range(n):
+            p = pos[global_order[j, t]]
+            if p >= 0:
+                out[j, c] = p
+                c += 1
+    return out
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _local_lists(pool_order, pool, tree_pos, honest, XT):
+    """Per-feature sorted local ids and values of the grow rows and of the fill rows.
+
+    ``tree_pos`` are the tree's rows as positions in ``pool`` (global rows
+    ``pool[tree_pos]``), in draw order; an honest tree's first ``s // 2`` grow, the rest
+    fill, a classical tree's rows do both. One sweep of the pool's presorted order
+    (``bag_order``) per feature fills both roles' lists; ``XT`` is the (d, n) transposed
+    training matrix.
+    """
+    d, P = pool_order.shape
+    s = tree_pos.shape[0]
+    n_g = s // 2 if honest else s
+    n_f = s - n_g if honest else s
+    g_local = np.full(P, -1, dtype=np.int64)
+    f_local = np.full(P, -1, dtype=np.int64)
     g_rows = np.empty(n_g, dtype=np.int64)
     f_rows = np.empty(n_f, dtype=np.int64)
     cg = 0
     cf = 0
     for i in range(s):
-        r = sample_rows[i]
-        if grow_mask[i]:
-            g_local[r] = cg
+        pp = tree_pos[i]
+        r = pool[pp]
+        if not honest or i < n_g:
+            g_local[pp] = cg
             g_rows[cg] = r
             cg += 1
-        if fill_mask[i]:
-            f_local[r] = cf
+        if not honest or i >= n_g:
+            f_local[pp] = cf
             f_rows[cf] = r
             cf += 1
     g_order = np.empty((d, n_g), dtype=np.int32)
@@ -174,17 +201,17 @@ def _local_lists(global_order, sample_rows, grow_mask, fill_mask, XT):
         xj = XT[j]
         a = 0
         b = 0
-        for t in range(n):
-            g = global_order[j, t]
-            lg = g_local[g]
-            lf = f_local[g]
+        for t in range(P):
+            pp = pool_order[j, t]
+            lg = g_local[pp]
+            lf = f_local[pp]
             if lg >= 0:
                 g_order[j, a] = lg
-                g_vals[j, a] = xj[g]
+                g_vals[j, a] = xj[pool[pp]]
                 a += 1
             if lf >= 0:
                 f_order[j, b] = lf
-                f_vals[j, b] = xj[g]
+                f_vals[j, b] = xj[pool[pp]]
                 b += 1
     return g_rows, g_order, g_vals, f_rows, f_order, f_vals
 
@@ -219,10 +246,12 @@ def grow_tree(
     XT,
     y,
     Z,
-    global_order,
-    sample_rows,
-    grow_mask,
-    fill_mask,
+    tol,
+    pool_order,
+    pool,
+    tree_pos,
+    honest,
+    leaf_rows,
     min_samples_leaf,
     max_features,
     max_depth,
@@ -230,7 +259,7 @@ def grow_tree(
     ridge_penalty,
     seed,
 ):
-    """Return the flat arrays of one tree grown on ``sample_rows``.
+    """Return the flat node arrays of one tree grown on the rows ``pool[tree_pos]``.
 
     Parameters
     ----------
@@ -238,26 +267,30 @@ def grow_tree(
         standardised
         correction columns (used by the ridge-residual rule; the effect-gradient rule
         reads the centred treatment from column 0).
-    global_order : (d, n) int32 from ``presort(X)``.
-    sample_rows : (s,) int64 global row ids of the tree's subsample.
-    grow_mask, fill_mask : (s,) bool roles of the subsample rows (may overlap).
+    tol : (d,) tie distances, ``tie_tolerances(XT, presort(X))``.
+    pool_order : (d, P) int32 from ``bag_order(presort(X), pool)`` (or ``presort(X)``
+        itself with ``pool = arange(n)``).
+    pool : (P,) int32 training rows the tree draws from (its bag's half-sample).
+    tree_pos : (s,) int32 the tree's rows as positions in ``pool``, in draw order.
+    honest : the first ``s // 2`` rows place splits and the rest fill leaves; otherwise
+        every row does both.
+    leaf_rows : (n_fill,) int32, written: the global fill-row ids of each leaf, CSR by
+        leaf id (every fill row lands in exactly one leaf).
     min_samples_leaf, max_features, max_depth (-1 for none), rule, ridge_penalty.
     seed : seeds this thread's generator, so the tree depends on the seed alone.
 
     Returns
     -------
     feature (int32, -1 at leaves), threshold (float64), left, right (int32, child node
-    ids; at a leaf ``left`` holds the leaf id), leaf_ptr (int64), leaf_rows (int32, global
-    fill-row ids of each leaf, CSR by leaf id).
+    ids; at a leaf ``left`` holds the leaf id), leaf_ptr (int64, into ``leaf_rows``).
 
     Grow rows and fill rows are kept in separate per-feature sorted lists, so a node's
     role counts are segment lengths and the scans have no role branches.
     """
     np.random.seed(seed)  # noqa: NPY002 (numba: per-thread legacy generator)
     d = XT.shape[0]
-    tol = tie_tolerances(XT, global_order)
     g_rows, g_order, g_vals, f_rows, f_order, f_vals = _local_lists(
-        global_order, sample_rows, grow_mask, fill_mask, XT
+        pool_order, pool, tree_pos, honest, XT
     )
     n_grow = g_rows.shape[0]
     n_fill = f_rows.shape[0]
@@ -277,7 +310,6 @@ def grow_tree(
     left = np.full(max_nodes, -1, dtype=np.int32)
     right = np.full(max_nodes, -1, dtype=np.int32)
     leaf_ptr = np.zeros(max_leaves + 1, dtype=np.int64)
-    leaf_rows = np.empty(n_fill, dtype=np.int32)
 
     resp = np.zeros(n_grow)
     g_left = np.zeros(n_grow, dtype=np.int64)
@@ -447,5 +479,4 @@ def grow_tree(
         left[:n_nodes].copy(),
         right[:n_nodes].copy(),
         leaf_ptr[: n_leaves + 1].copy(),
-        leaf_rows[:n_leaf_rows].copy(),
     )

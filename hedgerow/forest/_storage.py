@@ -3,9 +3,16 @@
 A forest of B trees is a handful of flat arrays: the nodes of all trees concatenated
 (``feature``, ``threshold``, ``left``, ``right`` with per-tree offsets ``node_start``), and
 the honest (fill) rows of every leaf as one CSR structure (``leaf_ptr``, ``leaf_rows``,
-leaves numbered globally with per-tree offsets ``leaf_start``). The rows each tree drew
-(its whole subsample) are kept as CSR too (``sample_ptr``, ``sample_rows``) for out-of-bag
-work.
+leaves numbered globally with per-tree offsets ``leaf_start``). What each tree drew is
+kept per little bag, for out-of-bag work: each bag's rows once, ascending, as CSR
+(``bag_ptr``, ``bag_rows``; a bag's half-sample, or a single tree's rows for bags of
+one), and, only when the trees of a bag draw part of its rows, a packed bit mask per tree
+over its bag's rows (``tree_draws``, (B, bytes) uint8, most significant bit first; (0, 0)
+when every tree draws all of its bag's rows). ``sample_ptr`` / ``sample_rows`` (the rows
+of every tree, CSR) and ``inbag`` are computed from them on demand.
+
+Layout history (``LAYOUT``, kept in pickles): 1, every tree's drawn rows as CSR
+(``sample_ptr``, ``sample_rows``), converted on load; 2, per bag as above.
 
 Forest weights of a query x: alpha_i(x) = (1 / B_x) * sum over usable trees t of
 1{i in L_t(x)} / |L_t(x)|, with L_t(x) the fill rows of x's leaf in tree t and B_x the
@@ -15,7 +22,7 @@ number of usable trees (for out-of-bag queries, the trees that did not draw the 
 from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from functools import cached_property
 
 import numpy as np
@@ -183,19 +190,77 @@ def _place_rows(indptr, indices, data, dest, out_indptr, out_indices, out_data):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _inbag_chunk(rows, sample_ptr, sample_rows, n):
+def _drawn(tree_draws, t, k):
+    """Whether tree ``t`` drew position ``k`` of its bag's rows (packed, MSB first)."""
+    return (tree_draws[t, k >> 3] >> (7 - (k & 7))) & 1
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _inbag_chunk(rows, bag_ptr, bag_rows, tree_draws, trees_per_bag, n):
     """(len(rows), B) bool: did tree t draw training row rows[i]."""
-    B = sample_ptr.shape[0] - 1
+    G = bag_ptr.shape[0] - 1
+    l = trees_per_bag
+    masked = tree_draws.shape[0] > 0
     pos = np.full(n, -1, dtype=np.int64)
     for i in range(rows.shape[0]):
         pos[rows[i]] = i
-    out = np.zeros((rows.shape[0], B), dtype=np.bool_)
-    for t in range(B):
-        for p in range(sample_ptr[t], sample_ptr[t + 1]):
-            i = pos[sample_rows[p]]
-            if i >= 0:
-                out[i, t] = True
+    out = np.zeros((rows.shape[0], G * l), dtype=np.bool_)
+    for g in range(G):
+        a = bag_ptr[g]
+        for p in range(a, bag_ptr[g + 1]):
+            i = pos[bag_rows[p]]
+            if i < 0:
+                continue
+            for j in range(l):
+                t = g * l + j
+                if not masked or _drawn(tree_draws, t, p - a):
+                    out[i, t] = True
     return out
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _bag_inbag_chunk(rows, bag_ptr, bag_rows, n):
+    """(len(rows), G) bool: is training row rows[i] among bag g's rows."""
+    G = bag_ptr.shape[0] - 1
+    pos = np.full(n, -1, dtype=np.int64)
+    for i in range(rows.shape[0]):
+        pos[rows[i]] = i
+    out = np.zeros((rows.shape[0], G), dtype=np.bool_)
+    for g in range(G):
+        for p in range(bag_ptr[g], bag_ptr[g + 1]):
+            i = pos[bag_rows[p]]
+            if i >= 0:
+                out[i, g] = True
+    return out
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _tree_rows_csr(bag_ptr, bag_rows, tree_draws, trees_per_bag):
+    """(ptr, rows): every tree's drawn rows, ascending, as CSR (the layout-1 view)."""
+    G = bag_ptr.shape[0] - 1
+    l = trees_per_bag
+    masked = tree_draws.shape[0] > 0
+    ptr = np.zeros(G * l + 1, dtype=np.int64)
+    total = 0
+    for g in range(G):
+        for j in range(l):
+            t = g * l + j
+            c = 0
+            for p in range(bag_ptr[g], bag_ptr[g + 1]):
+                if not masked or _drawn(tree_draws, t, p - bag_ptr[g]):
+                    c += 1
+            total += c
+            ptr[t + 1] = total
+    rows = np.empty(total, dtype=np.int32)
+    q = 0
+    for g in range(G):
+        for j in range(l):
+            t = g * l + j
+            for p in range(bag_ptr[g], bag_ptr[g + 1]):
+                if not masked or _drawn(tree_draws, t, p - bag_ptr[g]):
+                    rows[q] = bag_rows[p]
+                    q += 1
+    return ptr, rows
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -244,6 +309,38 @@ def _gather_chunk(leaves, usable, leaf_ptr, leaf_means):
     return out, n_used
 
 
+#: Stored leaf rows per block of ``leaf_means`` (about 8 MB of gathered y).
+_LEAF_MEAN_BLOCK = 1 << 20
+
+
+def _from_layout_1(state: dict) -> dict:
+    """Return layout-2 state from a layout-1 one (every tree's rows as CSR).
+
+    A bag's rows become the union of its trees' rows, and the per-tree masks are kept
+    only if some tree of a bag drew fewer rows than that union: ``inbag`` is unchanged.
+    """
+    ptr = np.asarray(state.pop("sample_ptr"), dtype=np.int64)
+    rows = np.asarray(state.pop("sample_rows"))
+    l = int(state["trees_per_bag"])
+    B = ptr.shape[0] - 1
+    tree_sets = [np.unique(rows[ptr[t]:ptr[t + 1]]) for t in range(B)]
+    bags = [np.unique(np.concatenate(tree_sets[g * l:(g + 1) * l])) for g in range(B // l)]
+    whole = all(tree_sets[t].shape[0] == bags[t // l].shape[0] for t in range(B))
+    width = -(-max((b.shape[0] for b in bags), default=0) // 8)
+    masks = np.zeros((0, 0) if whole else (B, width), dtype=np.uint8)
+    if not whole:
+        for t in range(B):
+            bag = bags[t // l]
+            bits = np.zeros(width * 8, dtype=np.bool_)
+            bits[np.searchsorted(bag, tree_sets[t])] = True
+            masks[t] = np.packbits(bits)
+    sizes = np.array([b.shape[0] for b in bags], dtype=np.int64)
+    state["bag_ptr"] = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    state["bag_rows"] = (np.concatenate(bags) if bags else np.zeros(0)).astype(np.int32)
+    state["tree_draws"] = masks
+    return state
+
+
 #: From this many queries on, weights are built with the queries grouped by leaf.
 _GROUP_QUERIES = 256
 
@@ -277,10 +374,14 @@ class ForestArrays:
     leaf_ptr: np.ndarray
     leaf_rows: np.ndarray
     leaf_start: np.ndarray
-    sample_ptr: np.ndarray
-    sample_rows: np.ndarray
+    bag_ptr: np.ndarray
+    bag_rows: np.ndarray
+    tree_draws: np.ndarray
     n_train: int
     trees_per_bag: int
+
+    #: storage layout written into pickles (see the module docstring)
+    LAYOUT = 2
 
     @property
     def n_trees(self) -> int:
@@ -292,9 +393,76 @@ class ForestArrays:
             getattr(self, f).nbytes
             for f in (
                 "feature", "threshold", "left", "right", "node_start", "leaf_ptr",
-                "leaf_rows", "leaf_start", "sample_ptr", "sample_rows",
+                "leaf_rows", "leaf_start", "bag_ptr", "bag_rows", "tree_draws",
             )
         )
+
+    @property
+    def n_bags(self) -> int:
+        return self.bag_ptr.shape[0] - 1
+
+    @property
+    def trees_draw_whole_bag(self) -> bool:
+        """True when every tree drew all its bag's rows (in-bag is then per bag)."""
+        return self.tree_draws.shape[0] == 0
+
+    @property
+    def sample_ptr(self) -> np.ndarray:
+        """Per-tree offsets into ``sample_rows`` (computed on demand)."""
+        return _tree_rows_csr(self.bag_ptr, self.bag_rows, self.tree_draws,
+                              self.trees_per_bag)[0]
+
+    @property
+    def sample_rows(self) -> np.ndarray:
+        """Every tree's drawn rows, ascending, CSR by ``sample_ptr`` (computed on demand;
+        for many trees ask once and keep it, or use ``tree_rows``)."""
+        return _tree_rows_csr(self.bag_ptr, self.bag_rows, self.tree_draws,
+                              self.trees_per_bag)[1]
+
+    def tree_rows(self, t: int) -> np.ndarray:
+        """Return the training rows tree ``t`` drew (int32, ascending)."""
+        g = t // self.trees_per_bag
+        rows = self.bag_rows[self.bag_ptr[g]:self.bag_ptr[g + 1]]
+        if self.trees_draw_whole_bag:
+            return rows.copy()
+        bits = np.unpackbits(self.tree_draws[t], count=rows.shape[0]).astype(np.bool_)
+        return rows[bits]
+
+    def bag_inbag(self, rows: np.ndarray) -> np.ndarray:
+        """Return the (len(rows), G) bool matrix: True where bag g holds training row i.
+
+        When ``trees_draw_whole_bag`` this is ``inbag`` with one column per bag instead of
+        per tree (B / G times smaller): tree t drew row i iff bag ``t // trees_per_bag``
+        holds it. Otherwise a tree drew only part of its bag's rows; use ``inbag``.
+        """
+        return _bag_inbag_chunk(np.asarray(rows, dtype=np.int64), self.bag_ptr,
+                                self.bag_rows, self.n_train)
+
+    # -- pickling: the layout is recorded, older layouts are converted on load ------------
+    def __getstate__(self):
+        names = [f.name for f in fields(self)]
+        state = {k: self.__dict__[k] for k in names}  # cached properties are dropped
+        state["layout"] = self.LAYOUT
+        return state
+
+    def __setstate__(self, state):
+        state = dict(state)
+        layout = state.pop("layout", 1 if "sample_rows" in state else None)
+        if layout == 1:
+            state = _from_layout_1(state)
+        elif layout != self.LAYOUT:
+            raise ValueError(
+                f"This forest was saved with storage layout {layout!r}; this version of "
+                f"hedgerow reads layouts 1 and {self.LAYOUT} (a newer hedgerow wrote it, or "
+                f"the file is not a hedgerow forest). Load it with the hedgerow that saved "
+                f"it, or refit."
+            )
+        names = {f.name for f in fields(self)}
+        missing = sorted(names - set(state))
+        if missing:
+            raise ValueError(f"A saved forest (layout {layout}) lacks the arrays {missing}; "
+                             f"the file is damaged or not a hedgerow forest. Refit.")
+        self.__dict__.update({k: state[k] for k in names})
 
     def apply(self, X: np.ndarray, n_jobs: int = 1) -> np.ndarray:
         """Return the (m, B) int32 matrix of global leaf ids of every query in every tree."""
@@ -320,9 +488,8 @@ class ForestArrays:
 
     def inbag(self, rows: np.ndarray) -> np.ndarray:
         """Return the (len(rows), B) bool matrix: True where tree t drew training row i."""
-        return _inbag_chunk(
-            np.asarray(rows, dtype=np.int64), self.sample_ptr, self.sample_rows, self.n_train
-        )
+        return _inbag_chunk(np.asarray(rows, dtype=np.int64), self.bag_ptr, self.bag_rows,
+                            self.tree_draws, self.trees_per_bag, self.n_train)
 
     def weights(self, leaves: np.ndarray, usable: np.ndarray | None = None, n_jobs: int = 1):
         """Return (CSR weights m × n_train, number of usable trees per query).
@@ -401,10 +568,25 @@ class ForestArrays:
 
     def leaf_means(self, y: np.ndarray) -> np.ndarray:
         """Return the mean of ``y`` over the fill rows of every leaf (NaN for empty leaves)."""
-        sizes = np.diff(self.leaf_ptr)
-        sums = np.zeros(sizes.shape[0])
-        nonempty = sizes > 0
-        if self.leaf_rows.size:
-            sums[nonempty] = np.add.reduceat(y[self.leaf_rows], self.leaf_ptr[:-1][nonempty])
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return np.where(nonempty, sums / np.maximum(sizes, 1), np.nan)
+        ptr = self.leaf_ptr
+        L = ptr.shape[0] - 1
+        out = np.empty(L)
+        # in blocks of whole leaves, so that neither y at the leaf rows (8 bytes per stored
+        # row) nor the per-leaf temporaries exist for the whole forest at once; each
+        # leaf's sum is one reduceat segment either way, so the bits do not depend on
+        # the blocks
+        lo = 0
+        while lo < L:
+            hi = int(np.searchsorted(ptr, ptr[lo] + _LEAF_MEAN_BLOCK, side="left"))
+            hi = min(L, max(hi, lo + 1))
+            sizes = np.diff(ptr[lo:hi + 1])
+            starts = ptr[lo:hi]
+            nonempty = sizes > 0
+            sums = np.zeros(hi - lo)
+            a, b = int(ptr[lo]), int(ptr[hi])
+            if b > a:
+                sums[nonempty] = np.add.reduceat(y[self.leaf_rows[a:b]], starts[nonempty] - a)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[lo:hi] = np.where(nonempty, sums / np.maximum(sizes, 1), np.nan)
+            lo = hi
+        return out

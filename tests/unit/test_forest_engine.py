@@ -527,3 +527,54 @@ def test_small_scale_features_are_split(friedman_small, friedman_query):
     small = HonestForestRegressor(**params).fit(X * 1e-8, y).predict(friedman_query * 1e-8)
     # a change of units must not switch the forest off
     assert small.std() > 0.5 * base.std()
+
+
+# -- compact storage: one row set per little bag --------------------------------------------
+
+@pytest.mark.parametrize(("rate", "tpb"), [(0.5, 4), (0.3, 4), (0.6, 1)])
+def test_bag_storage_gives_the_plan_draws(friedman_small, rate, tpb):
+    """inbag, tree_rows and the per-tree view equal the plan's draws, replayed from the
+    seed; with bags at rate 0.5 every tree draws its whole half-sample and no per-tree
+    mask is stored."""
+    X, y = friedman_small
+    n = X.shape[0]
+    plan = plan_samples(n, 12, tpb, rate, True, 9)
+    forest = grow_forest(X, y, plan, min_samples_leaf=3, max_features=2, n_jobs=2, chunk=4)
+    drawn = plan.sample_rows
+    expected = np.zeros((n, 12), dtype=bool)
+    for t, rows in enumerate(drawn):
+        expected[rows, t] = True
+        np.testing.assert_array_equal(forest.tree_rows(t), np.sort(rows))
+    np.testing.assert_array_equal(forest.inbag(np.arange(n)), expected)
+    np.testing.assert_array_equal(forest.sample_rows, np.concatenate([np.sort(r) for r in drawn]))
+    assert forest.n_bags == 12 // tpb
+    assert forest.trees_draw_whole_bag == (rate == 0.5 or tpb == 1)
+    if tpb >= 2:
+        assert forest.bag_rows.size == forest.n_bags * (n // 2)
+    if forest.trees_draw_whole_bag:
+        bags = forest.bag_inbag(np.arange(n))
+        np.testing.assert_array_equal(np.repeat(bags, tpb, axis=1), expected)
+
+
+def test_pickle_keeps_one_row_set_per_bag(friedman_small):
+    X, y = friedman_small
+    est = HonestForestRegressor(n_estimators=40, trees_per_bag=10, random_state=0).fit(X, y)
+    forest = est.forest_
+    per_tree = forest.sample_rows.nbytes + forest.sample_ptr.nbytes  # the old layout
+    stored = forest.bag_rows.nbytes + forest.bag_ptr.nbytes + forest.tree_draws.nbytes
+    assert stored * 9 < per_tree  # ten trees share a bag's rows
+    assert forest._children_adjacent  # a cached property: derived, so not pickled
+    clone = pickle.loads(pickle.dumps(forest))
+    assert "_children_adjacent" not in vars(clone) and clone.nbytes == forest.nbytes
+    np.testing.assert_array_equal(clone.inbag(np.arange(X.shape[0])),
+                                  forest.inbag(np.arange(X.shape[0])))
+    size = len(pickle.dumps(forest))
+    assert size < forest.nbytes + 4096  # nothing besides the arrays (no per-tree view)
+
+
+def test_unknown_storage_layout_is_refused_by_name(bagged):
+    state = bagged.forest_.__getstate__()
+    state["layout"] = 99
+    blank = object.__new__(type(bagged.forest_))
+    with pytest.raises(ValueError, match="storage layout 99.*reads layouts 1 and 2"):
+        blank.__setstate__(state)

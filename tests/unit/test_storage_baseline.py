@@ -1,0 +1,55 @@
+"""The compact forest storage gives the same bits as the per-tree layout it replaced.
+
+tests/data/make_storage_baseline.py recorded, with the code before the change, seeded
+predictions, standard errors, intervals and out-of-bag values of both forests on four
+sampling set-ups (bags drawing their whole half-sample, bags drawing part of it,
+single-tree bags, classical trees), and pickled a tiny forest in the old layout.
+"""
+
+import importlib.util
+import pickle
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+DATA = Path(__file__).resolve().parents[1] / "data"
+
+
+def _maker():
+    spec = importlib.util.spec_from_file_location("make_storage_baseline",
+                                                  DATA / "make_storage_baseline.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+@pytest.fixture(scope="module")
+def recorded():
+    return np.load(DATA / "storage_baseline.npz")
+
+
+def test_outputs_bit_identical_to_recorded(recorded):
+    now = _maker().outputs()
+    expected = sorted(k for k in recorded.files if not k.startswith("layout1_"))
+    assert sorted(now) == expected
+    for name in expected:
+        # == to the bit (NaN where the old code gave NaN)
+        np.testing.assert_array_equal(now[name], recorded[name], err_msg=name)
+
+
+def test_old_layout_pickle_loads_and_predicts_as_before(recorded):
+    with open(DATA / "forest_layout1.pkl", "rb") as fh, warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # scikit-learn's version note, NaN out-of-bag rows
+        est = pickle.load(fh)
+        Xq = recorded["layout1_queries"]
+        mean, std = est.predict(Xq, return_std=True)
+        oob = est.oob_predict()
+    np.testing.assert_array_equal(mean, recorded["layout1_predict"])
+    np.testing.assert_array_equal(std, recorded["layout1_std"])
+    np.testing.assert_array_equal(oob, recorded["layout1_oob"])
+    n = est.X_train_.shape[0]
+    np.testing.assert_array_equal(est.forest_.inbag(np.arange(n)), recorded["layout1_inbag"])
+    # converted to the compact layout on load: one row set per bag
+    assert est.forest_.bag_ptr.shape[0] - 1 == est.forest_.n_trees // est.trees_per_bag_
