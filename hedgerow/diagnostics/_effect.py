@@ -268,8 +268,18 @@ class OverlapProfile(ReportMixin):
     margin: float
     binary: bool
     caution: str
+    by_arm: dict = None
 
     _title = "overlap of the arms"
+
+    def summary(self) -> pd.DataFrame:
+        """Return per arm: rows, min, quartiles and max of the propensity."""
+        rows = {}
+        for arm, e in (self.by_arm or {}).items():
+            q = np.quantile(e, [0.0, 0.25, 0.5, 0.75, 1.0]) if e.size else np.full(5, np.nan)
+            rows[arm] = {"n": int(e.size), "min": q[0], "q1": q[1], "median": q[2],
+                         "q3": q[3], "max": q[4]}
+        return pd.DataFrame.from_dict(rows, orient="index")
 
     @property
     def reading(self) -> str:
@@ -307,14 +317,14 @@ def overlap_profile(model, *, bins=20, margin=None) -> OverlapProfile:
     e = ov["propensity"]
     if model.binary_treatment_:
         edges = np.linspace(0.0, 1.0, int(bins) + 1)
-        counts = {"untreated": np.histogram(ov["by_arm"][0], edges)[0],
-                  "treated": np.histogram(ov["by_arm"][1], edges)[0]}
+        by_arm = {"untreated": ov["by_arm"][0], "treated": ov["by_arm"][1]}
     else:
         edges = np.linspace(e.min(), e.max(), int(bins) + 1)
-        counts = {"all rows": np.histogram(e, edges)[0]}
+        by_arm = {"all rows": e}
+    counts = {arm: np.histogram(v, edges)[0] for arm, v in by_arm.items()}
     return OverlapProfile(edges=edges, counts=counts, flagged=np.asarray(ov["flagged"]),
                           margin=margin, binary=bool(model.binary_treatment_),
-                          caution=_caution())
+                          caution=_caution(), by_arm=by_arm)
 
 
 # -- the held-out verdict -------------------------------------------------------------------

@@ -29,7 +29,7 @@ __all__ = ["EffectReport", "EFFECT_SECTIONS", "build_effect_report", "save_effec
            "EFFECT_REPORT_CAUTIONS"]
 
 #: Section ids of the effect page, in order.
-EFFECT_SECTIONS = ("average", "overlap", "probe", "data", "settings", "cautions")
+EFFECT_SECTIONS = ("verdict", "average", "overlap", "probe", "data", "settings", "cautions")
 
 #: Cautions of every effect report, after ``EFFECT_CAUTION`` itself.
 EFFECT_REPORT_CAUTIONS = (
@@ -43,7 +43,7 @@ EFFECT_REPORT_CAUTIONS = (
     "out-of-bag centring absorbs, nor any confounding.",
 )
 
-_STEPS = ("fit", "average effect", "overlap", "probe")
+_STEPS = ("fit", "verdict", "average effect", "overlap", "probe")
 
 
 @dataclass(frozen=True)
@@ -55,7 +55,8 @@ class EffectReport:
     title : page title. data : ``DataSummary`` of (X, y). treatment : ``"binary"`` or
     ``"continuous"``. averages : part -> ``AverageEffect`` (``all``, ``edge band``,
     ``interior``; the edge band is rows with edge depth below ``D.EDGE_BAND``).
-    overlap : propensity summary by arm (dict). probe : column -> value of the probe.
+    verdict : ``diagnostics.EffectVerdict`` (cross-fitted held-out R-loss) or None.
+    overlap : ``diagnostics.OverlapProfile``. probe : column -> value of the probe.
     at_probe : method -> dict(effect, lower, upper, std). slopes : column -> local slope
     of the effect at the probe. settings : estimator parameters. cautions : sentences,
     ``EFFECT_CAUTION`` first. model : the fitted forest. level : interval level.
@@ -65,7 +66,8 @@ class EffectReport:
     data: DataSummary
     treatment: str
     averages: Mapping
-    overlap: Mapping
+    verdict: object
+    overlap: object
     probe: Mapping
     at_probe: Mapping
     slopes: Mapping
@@ -79,7 +81,7 @@ class EffectReport:
     @property
     def sections(self) -> tuple:
         """Return the ids of the sections the page shows, in order."""
-        return EFFECT_SECTIONS
+        return tuple(s for s in EFFECT_SECTIONS if s != "verdict" or self.verdict is not None)
 
     def to_html(self) -> str:
         """Return the report as one self-contained HTML document."""
@@ -117,7 +119,7 @@ def _resolve_effect_model(model, Xa, ya, w, random_state):
 
 
 def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, level=0.95,
-                        progress=True, random_state=0) -> EffectReport:
+                        verdict=True, progress=True, random_state=0) -> EffectReport:
     """Return the :class:`EffectReport` of a treatment-effect forest on ``(X, y, treatment)``.
 
     Parameters
@@ -131,6 +133,8 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
         dict column -> value (other columns at their medians).
     title : page title (default "hedgerow effect report: <target>").
     level : interval level of the averages and of the effect at the probe.
+    verdict : run ``diagnostics.effect_verdict`` (five cross-fitted folds of at most
+        ``EFFECT_FOLD_TREES`` trees) and lead the page with its sentence.
     progress : show a progress bar over the steps.
 
     Caution: decision support, not advice. The reading assumes unconfoundedness (no
@@ -141,6 +145,7 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
     from hedgerow.estimators._effect_forest import EFFECT_CAUTION
 
     progress = check_flag("progress", progress)
+    verdict = check_flag("verdict", verdict)
     level = check_level(level)
     if title is not None and not isinstance(title, str):
         raise TypeError(f"The 'title' parameter must be a string or None. Got {title!r} "
@@ -157,6 +162,11 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
             bar.set_postfix_str("fit")
             model = _resolve_effect_model(model, Xa, ya, w, random_state)
             bar.update(1)
+            bar.set_postfix_str("verdict")
+            held_out = (D.effect_verdict(Xa, ya, w, model=model, level=level,
+                                         random_state=random_state, progress=False)
+                        if verdict else None)
+            bar.update(1)
             bar.set_postfix_str("average effect")
             depth = D.edge_depth(Xa)[0]
             edge = depth < D.EDGE_BAND
@@ -166,8 +176,7 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
                     averages[part] = model.average_effect(mask)
             bar.update(1)
             bar.set_postfix_str("overlap")
-            ov = model.overlap()
-            overlap = _overlap_summary(ov, model)
+            overlap = D.overlap_profile(model)
             bar.update(1)
             bar.set_postfix_str("probe")
             q = x.reshape(1, -1)
@@ -188,25 +197,13 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
     return EffectReport(
         title=title if title is not None else f"hedgerow effect report: {target}",
         data=data, treatment="binary" if binary else "continuous", averages=averages,
-        overlap=overlap, probe={c: float(v) for c, v in zip(columns, x, strict=True)},
+        verdict=held_out, overlap=overlap,
+        probe={c: float(v) for c, v in zip(columns, x, strict=True)},
         at_probe=at_probe, slopes=slopes, settings=model.get_params(),
         cautions=(EFFECT_CAUTION,) + EFFECT_REPORT_CAUTIONS, level=level,
         created=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         version=__version__, model=model,
     )
-
-
-def _overlap_summary(ov, model) -> dict:
-    """Return the propensity's range and quartiles by arm and the flagged count."""
-    e = ov["propensity"]
-    out = {"n_flagged": int(ov["flagged"].sum()), "n": int(e.shape[0]), "arms": {}}
-    groups = ov.get("by_arm") or {"all rows": e}
-    for arm, values in groups.items():
-        label = {0: "untreated", 1: "treated"}.get(arm, arm)
-        q = np.quantile(values, [0.0, 0.25, 0.5, 0.75, 1.0]) if values.size else [np.nan] * 5
-        out["arms"][label] = {"n": int(values.size), "min": float(q[0]), "q1": float(q[1]),
-                              "median": float(q[2]), "q3": float(q[3]), "max": float(q[4])}
-    return out
 
 
 def save_effect_html(path, X, y, treatment, **kwargs):

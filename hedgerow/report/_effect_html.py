@@ -10,6 +10,7 @@ from hedgerow.report._numbers import number
 __all__ = ["render_effect"]
 
 _HEADINGS = {
+    "verdict": "Is the correction worth it? (held-out R-loss)",
     "average": "Average effect", "overlap": "Overlap of the arms", "probe": "At the probe",
     "data": "Data", "settings": "Settings", "cautions": "Cautions",
 }
@@ -40,17 +41,40 @@ def _average_html(r) -> str:
 
 def _overlap_html(r) -> str:
     o = r.overlap
-    rows = [[_e(arm), number(s["n"]), number(s["min"]), number(s["q1"]), number(s["median"]),
-             number(s["q3"]), number(s["max"])] for arm, s in o["arms"].items()]
-    flagged = (f"{number(o['n_flagged'])} of {number(o['n'])} rows have a propensity within "
-               f"0.05 of 0 or 1 (weak overlap)." if r.treatment == "binary" else
-               "Continuous treatment: the spread of the treatment's centred values stands "
-               "in for overlap; no rows are flagged.")
+    rows = [[_e(arm), number(row["n"]), number(row["min"]), number(row["q1"]),
+             number(row["median"]), number(row["q3"]), number(row["max"])]
+            for arm, row in o.summary().iterrows()]
+    bins = [[f"{number(lo)} to {number(hi)}", *(number(int(o.counts[a][i])) for a in o.counts)]
+            for i, (lo, hi) in enumerate(zip(o.edges[:-1], o.edges[1:], strict=True))
+            if any(o.counts[a][i] for a in o.counts)]
     return ("<p>The estimated propensity e(x) (out-of-bag centring forest) by arm. Where "
             "the arms' ranges do not meet, units of one arm have no comparable units in the "
-            f"other.</p><p class='hr-note'>{_e(flagged)}</p>"
+            f"other.</p><p class='hr-note'>{_e(o.reading)}</p>"
             + _table(["arm", "rows", "min", "lower quartile", "median", "upper quartile",
-                      "max"], rows, "hr-overlap"))
+                      "max"], rows, "hr-overlap")
+            + "<h3>Rows per propensity bin</h3>"
+            + _table(["propensity", *o.counts], bins, "hr-overlap-bins"))
+
+
+def _verdict_html(r) -> str:
+    v = r.verdict
+    lvl = _pct(v.level)
+    rows = []
+    for name, row in v.comparisons.iterrows():
+        cells = [_e(name)]
+        for part in ("all", "edge", "interior"):
+            gain, lo, hi = (number(row[f"{key}_{part}"], percent=True)
+                            for key in ("gain", "lower", "upper"))
+            cells.append(f"{gain}<br><small>{lo} to {hi}</small>")
+        rows.append(cells)
+    return (f'<p class="hr-conclusion" id="effect-verdict-conclusion">{_e(v.conclusion)}</p>'
+            f"<p>Share of each alternative's held-out R-loss ((y - m(x)) - tau(x)(w - "
+            f"e(x)))^2 the corrected forest removes, paired row by row over {v.folds} "
+            f"cross-fitted folds (fold forests of at most {v.fold_trees} trees, centring "
+            f"values out-of-bag), with {lvl} intervals. Edge band: rows with edge depth "
+            f"below {number(D.EDGE_BAND, 2)}.</p>"
+            + _table(["against", "all rows", "edge band", "interior"], rows,
+                     "hr-effect-verdict"))
 
 
 def _probe_html(r) -> str:
@@ -90,8 +114,9 @@ def _cautions_html(r) -> str:
             + "</ul>")
 
 
-_BODIES = {"average": _average_html, "overlap": _overlap_html, "probe": _probe_html,
-           "data": _data_html, "settings": _settings_html, "cautions": _cautions_html}
+_BODIES = {"verdict": _verdict_html, "average": _average_html, "overlap": _overlap_html,
+           "probe": _probe_html, "data": _data_html, "settings": _settings_html,
+           "cautions": _cautions_html}
 
 
 def render_effect(r) -> str:

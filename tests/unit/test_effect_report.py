@@ -74,13 +74,26 @@ def test_effect_at_the_probe_is_predict_effect_with_and_without_the_correction(t
     assert report.slopes["x0"] == model.local_slopes(q)[0, 0]
 
 
-def test_overlap_counts_match_the_estimators_flags(trial, report):
+def test_overlap_is_the_diagnostics_profile(trial, report):
     X, y, w, model = trial
     ov = model.overlap()
-    assert report.overlap["n_flagged"] == int(ov["flagged"].sum())
-    arms = report.overlap["arms"]
-    assert arms["treated"]["n"] == int((w == 1).sum())
-    assert arms["untreated"]["max"] == pytest.approx(ov["by_arm"][0].max(), abs=0)
+    assert report.overlap.flagged.sum() == int(ov["flagged"].sum())
+    arms = report.overlap.summary()
+    assert arms.loc["treated", "n"] == int((w == 1).sum())
+    assert arms.loc["untreated", "max"] == ov["by_arm"][0].max()
+    assert arms.loc["treated", "median"] == np.median(ov["by_arm"][1])
+
+
+def test_the_verdict_leads_and_is_the_diagnostics_verdict(trial, report):
+    X, y, w, model = trial
+    v = D.effect_verdict(X, y, w, model=model, progress=False)
+    assert report.verdict.conclusion == v.conclusion
+    page = report.to_html()
+    assert page.index('id="effect-verdict-conclusion"') < page.index('id="average"')
+    assert report.sections[0] == "verdict"
+    r = build_effect_report(X, y, w, model=model, verdict=False, progress=False)
+    assert r.verdict is None and "verdict" not in r.sections
+    assert 'id="verdict"' not in r.to_html()
 
 
 def test_weak_overlap_is_counted_on_the_page():
@@ -91,16 +104,16 @@ def test_weak_overlap_is_counted_on_the_page():
     w = (rng.random(400) < e).astype(float)
     y = X[:, 1] + w + rng.normal(scale=0.5, size=400)
     r = build_effect_report(X, y, w, model=TreatmentEffectForest(
-        n_estimators=256, random_state=0, n_jobs=1), progress=False)
-    assert r.overlap["n_flagged"] > 0
-    assert re.search(rf"{r.overlap['n_flagged']} of 400 rows have a propensity within",
-                     r.to_html())
+        n_estimators=256, random_state=0, n_jobs=1), verdict=False, progress=False)
+    k = int(r.overlap.flagged.sum())
+    assert k > 0
+    assert re.search(rf"Weak overlap on {k} of 400 rows", r.to_html())
 
 
 def test_an_unfitted_model_is_cloned_and_left_unfitted(trial):
     X, y, w, _ = trial
     est = TreatmentEffectForest(n_estimators=256, random_state=1, n_jobs=1)
-    r = build_effect_report(X, y, w, model=est, progress=False)
+    r = build_effect_report(X, y, w, model=est, verdict=False, progress=False)
     with pytest.raises(NotFittedError):
         check_is_fitted(est)
     assert r.model is not est and r.settings["random_state"] == 1
