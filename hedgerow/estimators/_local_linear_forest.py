@@ -134,6 +134,11 @@ class LocalLinearForestRegressor(_ForestBase):
         With "auto": ``{"ridge_penalty": grid, "oob_mse": errors}``.
     correction_scale_ : ndarray
         Standard deviations standardising the correction columns.
+    column_scale_, column_min_, column_max_ : ndarray of shape (n_features,)
+        Training standard deviation (ddof=0; 1.0 for a constant column), minimum and
+        maximum of every column: the probe's units and the data's span, kept so that a
+        probe move never passes over the training rows. A forest pickled before these
+        existed gets them from its training rows when first asked.
 
     Notes
     -----
@@ -281,6 +286,11 @@ class LocalLinearForestRegressor(_ForestBase):
                 client=client,
             )
         self._set_forest_state(X, y, forest, l, mtry, s)
+        # column sd / span of every column, kept for the probe (each is a pass over n)
+        sd = X.std(axis=0)
+        self.column_scale_ = np.where(sd > 0, sd, 1.0)
+        self.column_min_ = X.min(axis=0)
+        self.column_max_ = X.max(axis=0)
         self.correction_features_ = cols
         self.correction_scale_ = scale
         self._Xc = Xc
