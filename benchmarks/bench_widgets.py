@@ -13,7 +13,18 @@ The kernel smoothers are fitted here with Silverman bandwidths (`--bandwidth cv`
 cross-validation, slow at this n): per-interaction cost does not depend on how the
 bandwidth was chosen.
 
+`--probe-scale` times `diagnostics.probe` alone (no smoothers: kernel weights touch every
+row by nature) at n = 10,000 and 100,000 (`--probe-trees`, default 500 trees), and with
+`--million` at 1,000,000 too (`--million-trees`, default 50: a probe's cost follows the
+rows with weight, about trees x leaf size, and a 1M-row forest of 500 trees would not fit
+in this machine's memory beside other work). Printed per n: the median and p95 over 41
+probe points (each new, so no query cache helps), the goals (<= 6 ms at 100k, <= 10 ms at
+1M, median) and two references measured in the same run: the probe at 10,000 rows with
+the same trees (the ratio says whether the probe grows with n) and the per-call numpy work
+the probe did before over every training row (`X.std` and the dense offset (X - x) / sd).
+
 Usage: python benchmarks/bench_widgets.py [--n 10000] [--trees 1000] [--bandwidth silverman]
+       python benchmarks/bench_widgets.py --probe-scale [--probe-trees 500] [--million]
 """
 
 from __future__ import annotations
@@ -32,7 +43,15 @@ def main(argv=None):
     p.add_argument("--n", type=int, default=10_000)
     p.add_argument("--trees", type=int, default=1000)
     p.add_argument("--bandwidth", default="silverman")
+    p.add_argument("--probe-scale", action="store_true",
+                   help="time diagnostics.probe at 10k and 100k rows instead")
+    p.add_argument("--probe-trees", type=int, default=500)
+    p.add_argument("--million", action="store_true", help="with --probe-scale: 1M rows too")
+    p.add_argument("--million-trees", type=int, default=50)
     args = p.parse_args(argv)
+    if args.probe_scale:
+        probe_scale(args)
+        return
 
     from hedgerow import LocalLinearForestRegressor, LocalLinearRegressor, NadarayaWatsonRegressor
     from hedgerow.widgets import explore
@@ -102,6 +121,73 @@ def main(argv=None):
                       f"{1e3 * np.median(rt):.0f} ms, p95 {1e3 * np.percentile(rt, 95):.0f} "
                       f"ms (goal on a quiet machine: p95 <= "
                       f"{150 if what == 'probe drag' else 300} ms)")
+
+
+def _probe_times(model, X, j, repeats=41):
+    """Median and p95 (ms) of diagnostics.probe at ``repeats`` new points along column j."""
+    from hedgerow import diagnostics as D
+
+    base = np.median(X, axis=0)
+    D.probe(model, base)  # the fit-scoped caches (leaf means, lines) once
+    times = []
+    for v in np.quantile(X[:, j], np.linspace(0.02, 0.98, repeats)):
+        x = base.copy()
+        x[j] = v
+        t = time.perf_counter()
+        D.probe(model, x)
+        times.append(time.perf_counter() - t)
+    return 1e3 * float(np.median(times)), 1e3 * float(np.percentile(times, 95))
+
+
+def _full_row_work(X, x, w, repeats=11):
+    """Median (ms) of the per-call work the probe did over every training row before."""
+    times = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        sd = X.std(axis=0)
+        sd = np.where(sd > 0, sd, 1.0)
+        diff = (X - x) / sd
+        w @ diff, w @ np.abs(diff)
+        times.append(time.perf_counter() - t)
+    return 1e3 * float(np.median(times))
+
+
+def probe_scale(args):
+    import warnings
+
+    from hedgerow import LocalLinearForestRegressor
+
+    warnings.simplefilter("ignore")  # few bags at --million-trees; not what is timed
+
+    sizes = [(10_000, args.probe_trees), (100_000, args.probe_trees)]
+    if args.million:
+        sizes += [(10_000, args.million_trees), (1_000_000, args.million_trees)]
+    goals = {100_000: 6.0, 1_000_000: 10.0}
+    small = {}
+    for n, trees in sizes:
+        X, y = make_friedman1(n_samples=n, n_features=10, noise=1.0, random_state=0)
+        t = time.perf_counter()
+        llf = LocalLinearForestRegressor(n_estimators=trees, random_state=0, n_jobs=2)
+        llf.fit(X, y)
+        fit_s = time.perf_counter() - t
+        med, p95 = _probe_times(llf, X, 0)
+        w = llf.neighbour_weights(np.median(X, axis=0)[None, :]).toarray().ravel()
+        full = _full_row_work(X, np.median(X, axis=0), w)
+        nnz = int(np.count_nonzero(w))
+        line = (f"n={n:>9,} trees={trees:>4}: probe median {med:.2f} ms, p95 {p95:.2f} ms "
+                f"({nnz} rows with weight; fit {fit_s:.0f} s)")
+        if n in goals:
+            verdict = "met" if med <= goals[n] else "MISSED"
+            line += f"   goal <= {goals[n]:.0f} ms median: {verdict}"
+        print(line)
+        print(f"    old per-call work over every row: {full:.2f} ms -> probe / it = "
+              f"{med / full:.2f}")
+        if n == 10_000:
+            small[trees] = med
+        elif trees in small:
+            print(f"    probe at n={n:,} / probe at n=10,000 (same trees) = "
+                  f"{med / small[trees]:.2f}")
+        del llf
 
 
 if __name__ == "__main__":

@@ -6,11 +6,13 @@ Each function is cheap enough to run on every probe move or slider step: none re
 from __future__ import annotations
 
 import warnings
+import weakref
 
 import numpy as np
 import pandas as pd
 
 from hedgerow._validation import check_level
+from hedgerow.diagnostics._probe import column_summary, rows_with_weight
 from hedgerow.diagnostics._report import has_little_bags
 from hedgerow.diagnostics._slices import resolve_feature
 
@@ -85,8 +87,9 @@ def probe_anchor(X, row=None) -> np.ndarray:
 def slice_grid(model, feature, size: int = 80) -> np.ndarray:
     """Return ``size`` evenly spaced values spanning the training range of ``feature``."""
     j = resolve_feature(model, feature)
-    col = model.X_train_[:, j]
-    return np.linspace(float(col.min()), float(col.max()), int(size))
+    # the span kept from the fit (or once per training array): no pass over the rows
+    _, lo, hi = column_summary(model)
+    return np.linspace(float(lo[j]), float(hi[j]), int(size))
 
 
 def neighbourhood_span(report, X_train, feature, share=0.8):
@@ -98,14 +101,16 @@ def neighbourhood_span(report, X_train, feature, share=0.8):
     """
     names = list(report.feature_names)
     j = names.index(feature) if isinstance(feature, str) else int(feature)
-    w = np.asarray(report.weights.toarray()).ravel()
-    col = np.asarray(X_train, dtype=np.float64)[:, j]
-    x0 = float(report.x[j])
+    # the rows with weight only, in row order (the dense mask's order): no pass over n
+    idx, w = rows_with_weight(report.weights)
     keep = w > 0
-    if not keep.any():
+    idx, w = idx[keep], w[keep]
+    x0 = float(report.x[j])
+    if not idx.size:
         return x0, x0
-    order = np.argsort(col[keep], kind="stable")
-    c, cw = col[keep][order], np.cumsum(w[keep][order])
+    col = np.asarray(X_train, dtype=np.float64)[idx, j]
+    order = np.argsort(col, kind="stable")
+    c, cw = col[order], np.cumsum(w[order])
     cw = cw / cw[-1]
     lo = float(c[min(np.searchsorted(cw, (1 - share) / 2), c.size - 1)])
     hi = float(c[min(np.searchsorted(cw, (1 + share) / 2), c.size - 1)])
@@ -198,6 +203,27 @@ def ridge_curve(model, ridge_penalties) -> pd.DataFrame:
                          "oob_rmse": np.sqrt(model.ridge_path(lams))})
 
 
+_DISTANCE_SCALES = weakref.WeakKeyDictionary()
+
+
+def _distance_scale(X, cols):
+    """Return the sds of ``X[:, cols]`` (1.0 where constant), once per array and columns.
+
+    Computed on the column subset as before (a one-column copy sums pairwise, several
+    columns row by row: the bits differ from a subset of every column's sd), and kept
+    while ``X`` lives, so a probe move does not pass over the training rows.
+    """
+    key = tuple(int(c) for c in cols)
+    try:
+        memo = _DISTANCE_SCALES.setdefault(X, {})
+    except TypeError:  # not weak-referenceable: computed each time
+        memo = {}
+    if key not in memo:
+        sd = X[:, list(key)].std(axis=0)
+        memo[key] = np.where(sd > 0, sd, 1.0)
+    return memo[key]
+
+
 def weight_profile(report, X, method, columns="line") -> pd.DataFrame:
     """Return the rows ``method`` weights at the probe, heaviest first.
 
@@ -233,8 +259,7 @@ def weight_profile(report, X, method, columns="line") -> pd.DataFrame:
     idx, vals = idx[keep], vals[keep]
     order = np.argsort(-vals, kind="stable")
     idx, vals = idx[order], vals[order]
-    sd = X[:, cols].std(axis=0)
-    sd = np.where(sd > 0, sd, 1.0)
+    sd = _distance_scale(X, cols)
     dist = np.sqrt((((X[idx][:, cols] - np.asarray(report.x)[cols]) / sd) ** 2).sum(axis=1))
     total = vals.sum()
     cum = np.cumsum(vals) / total if total > 0 else np.zeros_like(vals)

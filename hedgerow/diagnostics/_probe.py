@@ -22,7 +22,7 @@ from hedgerow.diagnostics._slices import method_label
 from hedgerow.inference import normal_interval
 
 __all__ = ["MethodAtProbe", "ProbeReport", "probe", "probe_sketch", "TOP_ROWS",
-           "WIDE_COLUMNS"]
+           "WIDE_COLUMNS", "column_summary", "rows_with_weight"]
 
 #: Rows counted in ``ProbeReport.top_share``.
 TOP_ROWS = 10
@@ -172,11 +172,12 @@ def _method_entry(name, w, pred, std, slopes, slope_se, level, interval=None,
 _SUMMARIES = weakref.WeakKeyDictionary()
 
 
-def _column_summary(X):
-    """Return (sd with 1.0 for constant columns, min, max) of the training columns.
+def _summary_of_rows(X):
+    """Return (sd with 1.0 for constant columns, min, max) of the columns of ``X``.
 
-    Computed once per training array (kept while the array lives): the probe's
-    neighbourhood offset and the outside-the-data check read it at every move.
+    Kept while the array lives (a weak reference): the probe's neighbourhood offset, the
+    outside-the-data check, the weight profile's distances and the slice grid read it at
+    every move, and each is a pass over every training row.
     """
     try:
         return _SUMMARIES[X]
@@ -189,6 +190,31 @@ def _column_summary(X):
     except TypeError:  # not weak-referenceable: computed each time
         pass
     return out
+
+
+def column_summary(model):
+    """Return (sd with 1.0 for constant columns, min, max) of a fitted model's columns.
+
+    A local linear forest keeps them from its fit (``column_scale_``, ``column_min_``,
+    ``column_max_``); a model without them (an honest forest, or a forest pickled before
+    they existed) gets them from its training rows once per training array.
+    """
+    scale = getattr(model, "column_scale_", None)
+    if scale is not None:
+        return scale, model.column_min_, model.column_max_
+    return _summary_of_rows(model.X_train_)
+
+
+def rows_with_weight(W):
+    """Return (row indices ascending, weights) of the non-zero entries of a 1 × n row."""
+    W = sp.csr_matrix(W)
+    idx, val = W.indices, W.data
+    if not W.has_sorted_indices or W.nnz != np.unique(idx).size:
+        W = W.copy()
+        W.sum_duplicates()  # also sorts
+        idx, val = W.indices, W.data
+    keep = val != 0
+    return idx[keep], val[keep]
 
 
 def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
@@ -276,22 +302,24 @@ def probe(model, x, *, compare=(), level: float = 0.95) -> ProbeReport:
 
 
 def _neighbourhood(model, q):
-    """The probe's weights and where its neighbours lie: the fields every report shares."""
+    """The probe's weights and where its neighbours lie: the fields every report shares.
+
+    Only the rows with weight are visited (and the column summary kept from the fit), so
+    the cost follows the neighbourhood's size, not n; the numbers are those of the dense
+    computation over every row (a test compares them).
+    """
     names = column_names(model)
     xq = np.asarray(q)
-    W = model.neighbour_weights(q)
-    w = W.toarray().ravel()
-    X = model.X_train_
-    sd, lo, hi = _column_summary(X)
-    # over the rows with weight only: the probe's cost does not grow with n
-    nz = np.flatnonzero(w)
-    diff = (X[nz] - xq) / sd
+    W = sp.csr_matrix(model.neighbour_weights(q))
+    sd, lo, hi = column_summary(model)
+    nz, w = rows_with_weight(W)
+    diff = (model.X_train_[nz] - xq) / sd
     x0 = xq.reshape(-1)
     outside = tuple((names[j], float(x0[j]), float(lo[j]), float(hi[j]))
                     for j in np.flatnonzero((x0 < lo) | (x0 > hi)))
-    return {"x": xq[0], "feature_names": names, "weights": sp.csr_matrix(W),
+    return {"x": xq[0], "feature_names": names, "weights": W,
             "ess": kish_ess(W.data), "top_share": float(np.sort(W.data)[::-1][:TOP_ROWS].sum()),
-            "neighbour_offset": w[nz] @ diff, "neighbour_spread": w[nz] @ np.abs(diff),
+            "neighbour_offset": w @ diff, "neighbour_spread": w @ np.abs(diff),
             "outside": outside}
 
 

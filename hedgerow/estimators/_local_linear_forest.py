@@ -34,8 +34,10 @@ from hedgerow.local import (
     default_scale,
     moment_features,
     moments_from_sums,
+    ridge_path_intercepts,
     solve_local,
     standardise,
+    subset_moments,
     warn_fallback,
 )
 
@@ -53,6 +55,17 @@ RIDGE_GRID = (0.0, 1e-4, 3e-4, 1e-3, 3e-3, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0)
 SPLIT_PENALTY_AUTO = 0.1
 
 _CACHE_SIZE = 4
+
+#: Training rows per block when the out-of-bag moments are gathered: the leaves and the
+#: in-bag mask of one block (rows x trees) are made, used and dropped, so the fit never
+#: holds the n x trees matrices (they are made again, in full, only when out-of-bag
+#: standard errors are asked for).
+_OOB_ROWS = 16_384
+
+#: Queries per block of the batched local solve: its temporaries (a few (k+2)^2 arrays
+#: per query) stay bounded whatever the number of queries; each query's solve is its own,
+#: so the blocks give the same bits as one batch.
+_SOLVE_ROWS = 65_536
 
 
 def _lasso_screen(Xs, y) -> np.ndarray:
@@ -134,6 +147,11 @@ class LocalLinearForestRegressor(_ForestBase):
         With "auto": ``{"ridge_penalty": grid, "oob_mse": errors}``.
     correction_scale_ : ndarray
         Standard deviations standardising the correction columns.
+    column_scale_, column_min_, column_max_ : ndarray of shape (n_features,)
+        Training standard deviation (ddof=0; 1.0 for a constant column), minimum and
+        maximum of every column: the probe's units and the data's span, kept so that a
+        probe move never passes over the training rows. A forest pickled before these
+        existed gets them from its training rows when first asked.
 
     Notes
     -----
@@ -281,6 +299,11 @@ class LocalLinearForestRegressor(_ForestBase):
                 client=client,
             )
         self._set_forest_state(X, y, forest, l, mtry, s)
+        # column sd / span of every column, kept for the probe (each is a pass over n)
+        sd = X.std(axis=0)
+        self.column_scale_ = np.where(sd > 0, sd, 1.0)
+        self.column_min_ = X.min(axis=0)
+        self.column_max_ = X.max(axis=0)
         self.correction_features_ = cols
         self.correction_scale_ = scale
         self._Xc = Xc
@@ -328,17 +351,39 @@ class LocalLinearForestRegressor(_ForestBase):
             lazy["centre"] = centre
         return lazy["means"], lazy["centre"]
 
-    def _oob_state(self):
+    def _oob_moments(self):
+        """Return (usable trees per training row, out-of-bag moments), cached per fit.
+
+        Gathered in blocks of ``_OOB_ROWS`` training rows (each block's leaves and in-bag
+        mask made and dropped): every row's sums are its own, so the blocks give the bits
+        of one pass over the whole leaf matrix, without holding it.
+        """
         cache = self._fit_cache
-        if "oob state" not in cache:
-            leaves, usable = self._oob_parts()
+        if "oob moments" not in cache:
             means, centre = self._leaf_features()
-            R, n_used = self.forest_.weighted_sums(leaves, means, usable,
-                                                   n_jobs=self._n_threads())
+            X, n = self.X_train_, self.X_train_.shape[0]
+            R = np.empty((n, means.shape[1]))
+            n_used = np.empty(n, dtype=np.int64)
+            for a in range(0, n, _OOB_ROWS):
+                b = min(n, a + _OOB_ROWS)
+                leaves = self.forest_.apply(X[a:b], n_jobs=self._n_threads())
+                usable = ~self.forest_.inbag(np.arange(a, b))
+                R[a:b], n_used[a:b] = self.forest_.weighted_sums(
+                    leaves, means, usable, n_jobs=self._n_threads())
+                del leaves, usable
             # rows without an out-of-bag tree have zero total weight: NaN in the solve
-            mom = moments_from_sums(R, self._Xc, centre, self.correction_scale_)
-            cache["oob state"] = (leaves, usable, n_used, mom)
-        return cache["oob state"]
+            cache["oob moments"] = (n_used, moments_from_sums(R, self._Xc, centre,
+                                                              self.correction_scale_))
+        return cache["oob moments"]
+
+    def _oob_state(self):
+        """Return (leaves, usable, n_used, moments) of the training rows out of bag.
+
+        The leaf matrix and the in-bag mask (n x trees each) are made on first use (out-of-
+        bag standard errors need them); choosing the penalty does not.
+        """
+        leaves, usable = self._oob_parts()
+        return (leaves, usable, *self._oob_moments())
 
     def _penalty(self, ridge_penalty):
         if ridge_penalty is None:
@@ -349,7 +394,19 @@ class LocalLinearForestRegressor(_ForestBase):
         with warnings.catch_warnings():
             # zero-weight rows are reported by the caller, once
             warnings.simplefilter("ignore", RuntimeWarning)
-            return solve_local(mom, lam)
+            m = mom.n_queries
+            if m <= _SOLVE_ROWS:
+                return solve_local(mom, lam)
+            parts = [solve_local(subset_moments(mom, slice(a, min(m, a + _SOLVE_ROWS))), lam)
+                     for a in range(0, m, _SOLVE_ROWS)]
+        return LocalFit(
+            intercept=np.concatenate([f.intercept for f in parts]),
+            slopes=np.concatenate([f.slopes for f in parts]),
+            slopes_scaled=np.concatenate([f.slopes_scaled for f in parts]),
+            gram_inv=np.concatenate([f.gram_inv for f in parts]),
+            fallback=np.concatenate([f.fallback for f in parts]),
+            ridge_penalty=parts[0].ridge_penalty,
+        )
 
     def _tree_terms(self, leaves, usable, Qc, fit, row=0):
         """Return per-tree linearised predictions for row ``row`` of the inverse Gram."""
@@ -405,15 +462,25 @@ class LocalLinearForestRegressor(_ForestBase):
 
     def _ridge_path_in_units(self, ridge_penalties) -> np.ndarray:
         """The out-of-bag errors of ``ridge_path`` divided by ``_y_unit ** 2`` (exactly)."""
-        _, _, n_used, mom = self._oob_state()
+        n_used, mom = self._oob_moments()
         ok = n_used > 0
         unit = self._y_unit
-        out = []
-        for lam in np.atleast_1d(ridge_penalties):
-            fit = self._solve(mom, self._penalty(lam))
-            resid = (fit.intercept[ok] - self.y_train_[ok]) / unit
-            out.append(float(np.mean(resid**2)))
-        return np.array(out)
+        lams = [self._penalty(lam) for lam in np.atleast_1d(ridge_penalties)]
+        if not lams:
+            return np.zeros(0)
+        if not ok.any():  # no out-of-bag row: no error to measure
+            return np.full(len(lams), np.nan)
+        # one eigendecomposition per row serves every penalty (ridge_path_intercepts),
+        # in blocks of rows so that its temporaries stay bounded
+        sq = np.zeros(len(lams))
+        y = self.y_train_
+        for a in range(0, mom.n_queries, _SOLVE_ROWS):
+            b = min(mom.n_queries, a + _SOLVE_ROWS)
+            keep = ok[a:b]
+            fits = ridge_path_intercepts(subset_moments(mom, slice(a, b)), lams)
+            resid = (fits[keep] - y[a:b][keep, None]) / unit
+            sq += np.sum(resid**2, axis=0)
+        return sq / int(ok.sum())
 
     def predict(self, X, return_std=False, *, ridge_penalty=None):
         """Return predictions (and little-bags standard errors) at the rows of X.
@@ -502,11 +569,12 @@ class LocalLinearForestRegressor(_ForestBase):
         lam = self._penalty(ridge_penalty)
         if return_std:
             self._require_bags()
-        leaves, usable, n_used, mom = self._oob_state()
+        n_used, mom = self._oob_moments()
         self._warn_unusable(n_used, "training rows (out-of-bag)")
         fit = self._solve(mom, lam)
         if not return_std:
             return fit.intercept
+        leaves, usable, _, _ = self._oob_state()
         std = bag_std(self._tree_terms(leaves, usable, self._Xc, fit), self.trees_per_bag_)
         self._warn_missing_std(fit.intercept, std, "training rows (out-of-bag)")
         return fit.intercept, std

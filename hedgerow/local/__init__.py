@@ -12,8 +12,10 @@ from hedgerow.local._solver import (
     local_moments,
     moment_features,
     moments_from_sums,
+    ridge_path_intercepts,
     solve_local,
     standardise,
+    subset_moments,
     warn_fallback,
 )
 
@@ -29,7 +31,9 @@ __all__ = [
     "local_moments",
     "moment_features",
     "moments_from_sums",
+    "ridge_path_intercepts",
     "solve_local",
+    "subset_moments",
     "standardise",
     "warn_fallback",
 ]

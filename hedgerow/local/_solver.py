@@ -58,7 +58,9 @@ __all__ = [
     "local_moments",
     "moment_features",
     "moments_from_sums",
+    "ridge_path_intercepts",
     "solve_local",
+    "subset_moments",
     "standardise",
     "warn_fallback",
 ]
@@ -455,6 +457,84 @@ def _clears_collinearity(C, shift) -> np.ndarray:
     return out
 
 
+def _degenerate(S, roundoff, empty) -> np.ndarray:
+    """Return which penalised slope systems ``S`` (m, k, k) fall back (the module notes)."""
+    k = S.shape[1]
+    dS = np.diagonal(S, axis1=1, axis2=2)
+    degenerate = np.any(dS <= roundoff, axis=1) | empty
+    if k > 1:
+        d = np.sqrt(np.where(dS > 0, dS, 1.0))
+        C = S / d[:, :, None] / d[:, None, :]
+        # Eigenvalues only where a shifted Cholesky factorisation cannot clear the system
+        # (the decisions are those of eigenvalues everywhere; see _clears_collinearity).
+        check = ~degenerate & ~_clears_collinearity(C, 2.0 * k * COLLINEARITY_RCOND)
+        if check.any():
+            ev = np.linalg.eigvalsh(C[check])
+            degenerate[check] = ev[:, 0] <= COLLINEARITY_RCOND * ev[:, -1]
+    return degenerate
+
+
+def subset_moments(moments: LocalMoments, rows) -> LocalMoments:
+    """Return the ``LocalMoments`` of the queries ``rows`` (a slice or an index array)."""
+    return LocalMoments(degree=moments.degree, scale=moments.scale, s0=moments.s0[rows],
+                        s1=moments.s1[rows], s2=moments.s2[rows], t0=moments.t0[rows],
+                        t1=moments.t1[rows], roundoff=moments.roundoff[rows])
+
+
+def ridge_path_intercepts(moments: LocalMoments, ridge_penalties) -> np.ndarray:
+    """Return the (m, P) intercepts of ``solve_local`` at every penalty, one factorisation.
+
+    The slope block's Schur complement is ``S(lam) = C + lam s0 I`` with ``C`` the
+    weighted local covariance, so one eigendecomposition ``C = V diag(e) V'`` per query
+    gives every penalty: ``s1' S(lam)^-1 r = sum_j (V's1)_j (V'r)_j / (e_j + lam s0)``,
+    O(k) per penalty instead of a solve. Equal to ``solve_local(moments, lam).intercept``
+    up to rounding (a different factorisation of the same system; tests hold it within
+    1e-10). The fallback rule is applied exactly: adding ``lam s0 I`` can only raise the
+    smallest eigenvalue of the diagonally scaled system relative to its largest (with
+    ``T = diag(sqrt(c_jj / (c_jj + mu)))`` the scaled system is ``T R T + I - T^2``, whose
+    Rayleigh quotients lie between those of ``R`` and 1) and every diagonal entry, so a
+    query that does not fall back at ``lam = 0`` falls back at no penalty; the queries
+    that do are solved by ``solve_local`` itself at each penalty.
+    """
+    lams = [check_ridge_penalty(v) for v in np.atleast_1d(ridge_penalties)]
+    m = moments.s0.shape[0]
+    k = moments.s1.shape[1]
+    out = np.empty((m, len(lams)))
+    if moments.degree == 0 or k == 0 or m == 0:
+        for i, lam in enumerate(lams):
+            out[:, i] = _quiet_solve(moments, lam).intercept
+        return out
+    s0 = moments.s0
+    empty = ~(s0 > 0.0)
+    safe_s0 = np.where(empty, 1.0, s0)
+    mean = moments.t0 / safe_s0
+    s1 = moments.s1
+    C = moments.s2 - s1[:, :, None] * s1[:, None, :] / safe_s0[:, None, None]
+    C = 0.5 * (C + np.swapaxes(C, 1, 2))
+    hard = _degenerate(C, moments.roundoff, empty)
+    easy = np.flatnonzero(~hard)
+    e, V = np.linalg.eigh(C[easy])
+    r = moments.t1[easy] - s1[easy] * mean[easy, None]
+    u = np.einsum("mkj,mk->mj", V, s1[easy])
+    v = np.einsum("mkj,mk->mj", V, r)
+    uv = u * v
+    s0e = safe_s0[easy]
+    hard_rows = np.flatnonzero(hard)
+    sub = subset_moments(moments, hard_rows) if hard_rows.size else None
+    for i, lam in enumerate(lams):
+        quad = np.sum(uv / (e + (lam * s0e)[:, None]), axis=1)
+        out[easy, i] = mean[easy] - quad / s0e
+        if sub is not None:
+            out[hard_rows, i] = _quiet_solve(sub, lam).intercept
+    return out
+
+
+def _quiet_solve(moments, lam):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # zero-weight rows: NaN, as asked
+        return solve_local(moments, lam)
+
+
 def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0, *,
                 first_row: bool = False) -> LocalFit:
     """Return the local fits at every query from precomputed moments.
@@ -520,17 +600,7 @@ def solve_local(moments: LocalMoments, ridge_penalty: float = 0.0, *,
         + (lam * safe_s0)[:, None, None] * eye
     )
     S = 0.5 * (S + np.swapaxes(S, 1, 2))
-    dS = np.diagonal(S, axis1=1, axis2=2)
-    degenerate = np.any(dS <= moments.roundoff, axis=1) | empty
-    if k > 1:
-        d = np.sqrt(np.where(dS > 0, dS, 1.0))
-        C = S / d[:, :, None] / d[:, None, :]
-        # Eigenvalues only where a shifted Cholesky factorisation cannot clear the system
-        # (the decisions are those of eigenvalues everywhere; see _clears_collinearity).
-        check = ~degenerate & ~_clears_collinearity(C, 2.0 * k * COLLINEARITY_RCOND)
-        if check.any():
-            ev = np.linalg.eigvalsh(C[check])
-            degenerate[check] = ev[:, 0] <= COLLINEARITY_RCOND * ev[:, -1]
+    degenerate = _degenerate(S, moments.roundoff, empty)
     S_ok = np.where(degenerate[:, None, None], eye, S)
 
     r = t1 - s1 * mean[:, None]

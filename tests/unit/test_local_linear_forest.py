@@ -268,6 +268,6 @@ def test_shallow_copy_shares_fit_caches_and_pickle_drops_them(design, fitted):
 
     fitted.oob_predict()
     view = copy.copy(fitted)
-    assert view._fit_cache is fitted._fit_cache and "oob state" in view._fit_cache
+    assert view._fit_cache is fitted._fit_cache and "oob moments" in view._fit_cache
     clone = pickle.loads(pickle.dumps(fitted))
     assert clone._fit_cache == {}
