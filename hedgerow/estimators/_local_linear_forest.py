@@ -300,7 +300,12 @@ class LocalLinearForestRegressor(_ForestBase):
             )
         self._set_forest_state(X, y, forest, l, mtry, s)
         # column sd / span of every column, kept for the probe (each is a pass over n)
-        sd = X.std(axis=0)
+        with np.errstate(over="ignore", invalid="ignore"):
+            sd = X.std(axis=0)
+        wide = ~np.isfinite(sd)
+        if np.any(wide):  # columns near 1e300 overflow when squared: scale them first
+            top = np.abs(X[:, wide]).max(axis=0)
+            sd[wide] = (X[:, wide] / top).std(axis=0) * top
         self.column_scale_ = np.where(sd > 0, sd, 1.0)
         self.column_min_ = X.min(axis=0)
         self.column_max_ = X.max(axis=0)
