@@ -4,7 +4,7 @@ nothing fetched, every text escaped, the caution first and last."""
 from __future__ import annotations
 
 from hedgerow import diagnostics as D
-from hedgerow.report._html import _CSP, _CSS, _e, _kv_table, _table
+from hedgerow.report._html import _e, _kv_table, _table, page
 from hedgerow.report._numbers import number
 
 __all__ = ["render_effect"]
@@ -121,20 +121,12 @@ _BODIES = {"verdict": _verdict_html, "average": _average_html, "overlap": _overl
 
 def render_effect(r) -> str:
     """Return the :class:`EffectReport` ``r`` as one self-contained HTML document."""
-    nav = "".join(f'<li><a href="#{s}">{_e(_HEADINGS[s])}</a></li>' for s in r.sections)
     body = "".join(_section(s, _BODIES[s](r)) for s in r.sections)
-    return (
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-        f'<meta http-equiv="Content-Security-Policy" content="{_CSP}">'
-        '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        f'<meta name="generator" content="hedgerow {_e(r.version)}">'
-        f"<title>{_e(r.title)}</title><style>{_CSS}</style></head>\n<body><main>"
-        f"<header><h1>{_e(r.title)}</h1><p class='hr-meta'>{_e(r.data.n_rows)} rows, "
-        f"{_e(r.data.n_columns)} columns, outcome <code>{_e(r.data.target)}</code>, "
-        f"{_e(r.treatment)} treatment; data fingerprint <code>{_e(r.data.fingerprint)}"
-        f"</code>; made {_e(r.created)} by hedgerow {_e(r.version)}. A static page: it "
-        f"opens offline and computes nothing.</p>"
-        f'<p class="hr-conclusion" id="effect-caution">{_e(r.cautions[0])}</p>'
-        f"<nav aria-label='sections'><ol>{nav}</ol></nav></header>"
-        f"{body}</main></body></html>\n"
-    )
+    meta = (f"{_e(r.data.n_rows)} rows, {_e(r.data.n_columns)} columns, outcome "
+            f"<code>{_e(r.data.target)}</code>, {_e(r.treatment)} treatment; data "
+            f"fingerprint <code>{_e(r.data.fingerprint)}</code>; made {_e(r.created)} by "
+            f"hedgerow {_e(r.version)}. A static page: it opens offline and computes "
+            f"nothing.")
+    caution = f'<p class="hr-conclusion" id="effect-caution">{_e(r.cautions[0])}</p>'
+    return page(r.title, r.version, meta, caution,
+                [(s, _HEADINGS[s]) for s in r.sections], body)

@@ -269,22 +269,33 @@ _BODIES = {
 }
 
 
-def render(r) -> str:
-    """Return the :class:`Report` ``r`` as one self-contained HTML document."""
-    nav = "".join(f'<li><a href="#{s}">{_e(_HEADINGS[s])}</a></li>' for s in r.sections)
-    body = "".join(_section(s, _BODIES[s](r)) for s in r.sections)
+def page(title, version, meta, notes_html, nav, body) -> str:
+    """Return the HTML document shell both report pages share (head, header, nav, body).
+
+    ``meta``: the header's meta line (HTML); ``notes_html``: HTML after it; ``nav``:
+    ``(section id, heading)`` pairs; ``body``: the sections' HTML.
+    """
+    links = "".join(f'<li><a href="#{sid}">{_e(h)}</a></li>' for sid, h in nav)
     return (
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
         f'<meta http-equiv="Content-Security-Policy" content="{_CSP}">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        f'<meta name="generator" content="hedgerow {_e(r.settings.version)}">'
-        f"<title>{_e(r.title)}</title><style>{_CSS}</style></head>\n<body><main>"
-        f"<header><h1>{_e(r.title)}</h1><p class='hr-meta'>{_e(r.data.n_rows)} rows, "
-        f"{_e(r.data.n_columns)} columns, target <code>{_e(r.data.target)}</code>; data "
-        f"fingerprint <code>{_e(r.data.fingerprint)}</code>; made {_e(r.settings.created)} "
-        f"by hedgerow {_e(r.settings.version)}. A static page: it opens offline and "
-        f"computes nothing.</p>"
-        + "".join(f"<p class='hr-note'>{_e(n)}</p>" for n in r.notes)
-        + f"<nav aria-label='sections'><ol>{nav}</ol></nav></header>"
+        f'<meta name="generator" content="hedgerow {_e(version)}">'
+        f"<title>{_e(title)}</title><style>{_CSS}</style></head>\n<body><main>"
+        f"<header><h1>{_e(title)}</h1><p class='hr-meta'>{meta}</p>{notes_html}"
+        f"<nav aria-label='sections'><ol>{links}</ol></nav></header>"
         f"{body}</main></body></html>\n"
     )
+
+
+def render(r) -> str:
+    """Return the :class:`Report` ``r`` as one self-contained HTML document."""
+    body = "".join(_section(s, _BODIES[s](r)) for s in r.sections)
+    meta = (f"{_e(r.data.n_rows)} rows, {_e(r.data.n_columns)} columns, target "
+            f"<code>{_e(r.data.target)}</code>; data fingerprint "
+            f"<code>{_e(r.data.fingerprint)}</code>; made {_e(r.settings.created)} by "
+            f"hedgerow {_e(r.settings.version)}. A static page: it opens offline and "
+            f"computes nothing.")
+    notes = "".join(f"<p class='hr-note'>{_e(n)}</p>" for n in r.notes)
+    return page(r.title, r.settings.version, meta, notes,
+                [(s, _HEADINGS[s]) for s in r.sections], body)
