@@ -141,10 +141,19 @@ KERNEL_READY = """() => {
 
 def _wait_for_kernel(page, timeout=60):
     """Wait until the same connected, idle kernel is seen twice a second apart."""
+    from playwright.sync_api import Error as PlaywrightError
+
     deadline = time.monotonic() + timeout
     last = None
     while time.monotonic() < deadline:
-        kid = page.evaluate(KERNEL_READY)
+        try:
+            kid = page.evaluate(KERNEL_READY)
+        except PlaywrightError as exc:
+            # JupyterLab may still be navigating (a workspace redirect right after the
+            # first load destroys the page's context); poll the new page instead
+            if "Execution context was destroyed" not in str(exc):
+                raise
+            kid = None
         if kid and kid == last:
             return kid
         last = kid
