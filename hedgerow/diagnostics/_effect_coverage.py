@@ -17,6 +17,7 @@ import pandas as pd
 from scipy.stats import binomtest
 from sklearn.base import clone
 
+from hedgerow._progress import progress_bar
 from hedgerow.diagnostics._coverage import FLAG_OFF_CENTRE, FLAG_TOO_NARROW
 from hedgerow.diagnostics._heldout import edge_depth
 from hedgerow.diagnostics._report import ReportMixin
@@ -49,13 +50,15 @@ class EffectCoverageReport(ReportMixin):
     replications, less the noise of that mean), mean_sd (mean estimated sd), sd_across
     (sd of the centre across replications), coverage_bias_removed (each row's interval
     shifted by its bias estimated from the other replications) and flag.
-    ``mode``: "known effect" or "surrogate effect (fitted model)".
+    ``mode``: "known effect" or "surrogate effect (fitted model)". ``reps_done`` <
+    ``reps`` after an interruption (the counts are those of the finished replications).
     """
 
     frame: pd.DataFrame
     mode: str
     reps: int
     level: float
+    reps_done: int | None = None
     _title = "effect coverage readout"
 
     def to_frame(self) -> pd.DataFrame:
@@ -80,7 +83,14 @@ class EffectCoverageReport(ReportMixin):
     def _notes(self):
         from hedgerow.estimators._effect_forest import EFFECT_CAUTION
 
-        notes = [f"{self.mode}; {self.reps} replications; nominal {100 * self.level:.0f}%"]
+        done = self.reps if self.reps_done is None else self.reps_done
+        notes = [f"{self.mode}; {done} of {self.reps} replications; nominal "
+                 f"{100 * self.level:.0f}%"]
+        if done < self.reps:
+            notes.append("interrupted: partial counts")
+        if done < 2:
+            notes.append("fewer than 2 replications: no coverage is read (the bias and "
+                         "the sd across replications need two)")
         if self.mode.startswith("surrogate"):
             notes.append(_SURROGATE_NOTE)
         notes.extend(self.flags)
@@ -127,8 +137,33 @@ def _summary_rows(method, C, S, H, target, edge, level):
     return rows
 
 
+def _effect_replication(task, X, w, mean, resid, eval_idx) -> dict:
+    """One replication: redraw the outcome, refit a clone, read every interval method.
+
+    A module-level function of plain inputs, so that a dask worker can run it; the
+    result depends on the replication's seed only.
+    """
+    from hedgerow.estimators._forest import FewBagsWarning
+
+    seq, resample, template, methods, level = task
+    rng = np.random.default_rng(seq)
+    n = X.shape[0]
+    noise = rng.choice(resid, size=n, replace=True) if resample else resid
+    y_star = mean + rng.choice([-1.0, 1.0], size=n) * noise
+    est = clone(template).set_params(random_state=int(rng.integers(0, 2**31 - 1)))
+    out = {}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FewBagsWarning)  # the model's own settings
+        est.fit(X, y_star, w)
+        for m in methods:
+            parts = est.effect_interval_parts(X[eval_idx], m)
+            out[m] = (parts.centre, parts.std, parts.half_width(level))
+    return out
+
+
 def effect_coverage_readout(model, X, y, treatment, *, truth=None, reps=20, level=0.95,
-                            n_eval=200, random_state=0) -> EffectCoverageReport:
+                            n_eval=200, random_state=0, progress=True,
+                            client=None) -> EffectCoverageReport:
     """Return the ``EffectCoverageReport`` of a fitted ``TreatmentEffectForest``.
 
     Every replication keeps X and the treatment w, draws the outcome
@@ -146,19 +181,25 @@ def effect_coverage_readout(model, X, y, treatment, *, truth=None, reps=20, leve
     truth : callable X -> tau (n,), or None (the surrogate; see the report's note).
     reps : replications (>= 2). level : nominal level in (0, 1).
     n_eval : rows (a fixed random subset) where coverage is counted.
-    random_state : int >= 0 (the evaluation subset and every replication).
+    random_state : int >= 0. The evaluation subset and every replication draw from their
+        own child of ``SeedSequence(random_state)``, so replication r is the same whether
+        run alone, in a longer run or on a cluster.
+    progress : True for a progress bar, False for none, or a ``RunControl`` (a widget
+        follows it and may cancel). A ``KeyboardInterrupt`` or a cancel returns the
+        counts of the finished replications (``reps_done``; none are read below two).
+    client : dask.distributed.Client, optional. One task per replication on its workers
+        (the rows are sent once); the report is the same as without it.
 
     Caution: decision support, not advice; the effect reading assumes unconfoundedness
     (not checked here) and overlap; defer to the study design and to domain review.
     """
+    from hedgerow._distributed import check_client, run_tasks
     from hedgerow._validation import check_level
     from hedgerow.estimators._effect_forest import (
         DEFAULT_EFFECT_INTERVAL,
         EFFECT_INTERVAL_METHODS,
         TreatmentEffectForest,
     )
-    from hedgerow.estimators._forest import FewBagsWarning
-
     if not isinstance(model, TreatmentEffectForest) or not hasattr(model, "forest_"):
         raise TypeError(f"The 'model' parameter must be a fitted TreatmentEffectForest. "
                         f"Got {type(model).__name__} instead.")
@@ -171,6 +212,7 @@ def effect_coverage_readout(model, X, y, treatment, *, truth=None, reps=20, leve
             random_state < 0):
         raise ValueError(f"The 'random_state' parameter must be an int >= 0. Got "
                          f"{random_state!r} instead.")
+    client = check_client(client)
     X = np.asarray(X, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64).ravel()
     w = np.asarray(treatment, dtype=np.float64).ravel()
@@ -201,23 +243,31 @@ def effect_coverage_readout(model, X, y, treatment, *, truth=None, reps=20, leve
     edge = depth[eval_idx] < EDGE_BAND
     methods = [DEFAULT_EFFECT_INTERVAL] + [m for m in EFFECT_INTERVAL_METHODS
                                            if m != DEFAULT_EFFECT_INTERVAL]
-    out = {m: ([], [], []) for m in methods}
-    for seq in seqs[1:]:
-        rng = np.random.default_rng(seq)
-        noise = rng.choice(resid, size=n, replace=True) if truth is not None else resid
-        y_star = mean + rng.choice([-1.0, 1.0], size=n) * noise
-        est = clone(model).set_params(random_state=int(rng.integers(0, 2**31 - 1)))
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", FewBagsWarning)  # the model's own settings
-            est.fit(X, y_star, w)
-            for m in methods:
-                parts = est.effect_interval_parts(X[eval_idx], m)
-                out[m][0].append(parts.centre)
-                out[m][1].append(parts.std)
-                out[m][2].append(parts.half_width(level))
+    tasks = [(seq, truth is not None, clone(model), methods, level) for seq in seqs[1:]]
+    results = {}
+    bar = progress_bar(reps, "effect coverage readout", progress)
+
+    def finished(r, value):
+        results[r] = value
+        bar.update(1)
+
+    try:
+        if client is None:
+            for r, task in enumerate(tasks):
+                finished(r, _effect_replication(task, X, w, mean, resid, eval_idx))
+        else:
+            run_tasks(client, _effect_replication, tasks,
+                      shared=(X, w, mean, resid, eval_idx), what="effect replication",
+                      on_result=finished)
+    except KeyboardInterrupt:
+        pass
+    finally:
+        bar.close()
+    done = sorted(results)  # replication order, whatever order they finished in
     rows = []
-    for m in methods:
-        C, S, H = (np.stack(v) for v in out[m])
-        rows.extend(_summary_rows(m, C, S, H, tau[eval_idx], edge, level))
+    if len(done) >= 2:
+        for m in methods:
+            C, S, H = (np.stack([results[r][m][k] for r in done]) for k in range(3))
+            rows.extend(_summary_rows(m, C, S, H, tau[eval_idx], edge, level))
     return EffectCoverageReport(frame=pd.DataFrame(rows, columns=COLUMNS), mode=mode,
-                                reps=int(reps), level=level)
+                                reps=int(reps), level=level, reps_done=len(done))

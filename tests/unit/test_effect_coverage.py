@@ -61,3 +61,46 @@ def test_bad_input(fitted):
         effect_coverage_readout(f, X, y, w, truth=lambda Z: np.zeros(3), reps=2)
     with pytest.raises(ValueError, match="'level'"):
         effect_coverage_readout(f, X, y, w, level=1.5, reps=2)
+
+
+def test_cancel_returns_the_finished_replications_and_says_so(fitted):
+    # A RunControl cancelled after the third replication: the report holds the counts of
+    # three replications, the same numbers a three-replication run gives (replication r
+    # draws from its own seed child), and its notes say it was interrupted.
+    from hedgerow._progress import RunControl
+
+    f, X, y, w = fitted
+    seen, held = [], []
+
+    def stop_after_three(done, total):
+        seen.append((done, total))
+        if done == 3:
+            held[0].cancel()
+
+    control = RunControl(stop_after_three)
+    held.append(control)
+    part = effect_coverage_readout(f, X, y, w, truth=trial_effect_truth, reps=6, n_eval=15,
+                                   random_state=4, progress=control)
+    assert part.reps_done == 3 and part.reps == 6
+    assert seen == [(1, 6), (2, 6), (3, 6)]
+    assert "interrupted: partial counts" in repr(part)
+    three = effect_coverage_readout(f, X, y, w, truth=trial_effect_truth, reps=3, n_eval=15,
+                                    random_state=4, progress=False)
+    a, b = part.to_frame(), three.to_frame()
+    for col in ("covered", "n", "mean_width", "rms_bias", "mean_sd", "sd_across"):
+        np.testing.assert_array_equal(a[col].to_numpy(), b[col].to_numpy())
+
+
+def test_fewer_than_two_replications_read_no_coverage(fitted):
+    from hedgerow._progress import RunControl
+
+    f, X, y, w = fitted
+    held = []
+    control = RunControl(lambda done, total: held[0].cancel())
+    held.append(control)
+    rep = effect_coverage_readout(f, X, y, w, truth=trial_effect_truth, reps=4, n_eval=10,
+                                  random_state=4, progress=control)
+    assert rep.reps_done == 1 and rep.to_frame().empty
+    assert "fewer than 2 replications" in repr(rep)
+    with pytest.raises(KeyError):
+        rep.coverage()
