@@ -166,8 +166,10 @@ class TreatmentEffectForest(BaseEstimator):
         up to ``RLOSS_ROWS`` training rows; the choice is ``ridge_penalty_``.
     correction_features : "auto", None or list of column indices
         Columns of the local correction. "auto" (default): those a lasso of the centred
-        outcome on w~ and w~ x (the linear R-learner, Nie & Wager 2021) keeps at the
-        one-standard-error penalty; none kept means no correction. None: every column.
+        outcome on w~, w~ x and w~ x^2 (the R-learner with linear and squared terms,
+        Nie & Wager 2021) keeps at the one-standard-error penalty, a column being kept
+        when its linear or its squared term survives; none kept means no correction.
+        None: every column.
         The columns used are ``correction_features_``.
     nuisance_estimators : int or None
         Trees of each centring forest (default: a quarter of ``n_estimators``, at least
@@ -319,7 +321,11 @@ class TreatmentEffectForest(BaseEstimator):
                     f"column indices in [0, {d}). Got {cf!r} instead.")
             return np.sort(cols.astype(np.int64))
         Xs = (X - X.mean(axis=0)) / np.where(X.std(axis=0) > 0, X.std(axis=0), 1.0)
-        A = np.column_stack([wt, wt[:, None] * Xs])
+        # squares too: a valley- or hill-shaped effect has no linear interaction on a
+        # symmetric design, yet a local line corrects its sloped flanks and edges
+        Q = Xs ** 2
+        Q = (Q - Q.mean(axis=0)) / np.where(Q.std(axis=0) > 0, Q.std(axis=0), 1.0)
+        A = np.column_stack([wt, wt[:, None] * Xs, wt[:, None] * Q])
         sd = float(np.std(yt))
         target = (yt - yt.mean()) / (sd if sd > 0 else 1.0)
         with warnings.catch_warnings():
@@ -333,7 +339,8 @@ class TreatmentEffectForest(BaseEstimator):
             # the largest penalty within one s.e. of the minimum (alphas_ descend)
             alpha = cv.alphas_[int(np.flatnonzero(mse <= mse[best] + se[best])[0])]
             coef = Lasso(alpha=alpha).fit(A, target).coef_[1:]
-        return np.flatnonzero(np.abs(coef) > 1e-10).astype(np.int64)
+        kept = (np.abs(coef[:d]) > 1e-10) | (np.abs(coef[d:]) > 1e-10)
+        return np.flatnonzero(kept).astype(np.int64)
 
     def _choose_penalty(self, forest, X, yt, wt, sw, x_scale, cols, seed):
         """Return (penalty, {penalty: out-of-bag R-loss}): the given float, or the choice."""

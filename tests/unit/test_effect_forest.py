@@ -287,3 +287,38 @@ def test_bias_moment_equals_dense_equivalent_kernel():
         lw = W[q] * (Z @ np.linalg.inv(M)[1])
         dense = (U * (lw * wt)[:, None]).T @ U
         np.testing.assert_allclose(S[q], dense, rtol=1e-8, atol=1e-10)
+
+
+def test_screen_keeps_a_valley_shaped_effect_and_the_correction_helps():
+    # tau = 2 x0^2 on a symmetric design has no linear interaction with w, so a screen on
+    # w~ x alone keeps no column (no correction); with the squared terms (R-learner basis,
+    # Nie & Wager 2021) it keeps x0, and the local line then corrects the sloped flanks
+    # (Friedberg et al. 2021, JCGS). Known-effect simulation, seeded; x1 enters the
+    # outcome only, so it must not be kept.
+    rng = np.random.default_rng(17)
+    n = 2000
+    X = rng.uniform(-1, 1, (n, 3))
+    w = (rng.random(n) < 0.5).astype(float)
+    y = X[:, 1] + w * 2.0 * X[:, 0] ** 2 + rng.normal(scale=0.5, size=n)
+    f = _fit(X, y, w)
+    assert list(f.correction_features_) == [0]
+    Xq = rng.uniform(-1, 1, (400, 3))
+    t = 2.0 * Xq[:, 0] ** 2
+    corr = np.sqrt(np.mean((f.predict_effect(Xq) - t) ** 2))
+    unc = np.sqrt(np.mean((f.predict_effect(Xq, corrected=False) - t) ** 2))
+    print(f"valley: corrected {corr:.4f} uncorrected {unc:.4f}")
+    assert corr < 0.95 * unc
+
+
+@pytest.mark.parametrize("seed", [300, 301, 302])
+def test_screen_keeps_no_column_for_a_constant_effect(seed):
+    # The squared terms must not buy false corrections: a constant effect with a curved
+    # outcome (x1, sin 2 x2) in 10 columns keeps none at the one-standard-error penalty
+    # (Hastie, Tibshirani & Friedman 2009, Sec. 7.10). Seeded.
+    rng = np.random.default_rng(seed)
+    n, d = 1500, 10
+    X = rng.uniform(-1, 1, (n, d))
+    w = (rng.random(n) < 0.5).astype(float)
+    y = X[:, 1] + np.sin(2 * X[:, 2]) + w + rng.normal(scale=0.5, size=n)
+    f = TreatmentEffectForest(n_estimators=64, random_state=0).fit(X, y, w)
+    assert list(f.correction_features_) == []
