@@ -15,6 +15,15 @@ author saw, and what the author saw there:
   was computed, and the prediction at the probe;
 - the hedgerow version that wrote it and the file format version.
 
+A snapshot of a ``TreatmentEffectForest`` (the effect explorer, ``explore(X, y,
+treatment=...)``) adds two sections: ``treatment`` (the treatment column's name and the
+SHA-256 of its values, beside the fingerprint of X and y) and ``effect`` (the corrected
+effect at the probe with its interval, the doubly robust average effect with its standard
+error, and the effect caution). Its ``headline`` keeps the verdict sentence (the effect
+verdict's) and the effect at the probe as ``probe_prediction``; the regression numbers
+are null. Files without these sections read as before; an older hedgerow refuses an
+effect snapshot by naming its estimator.
+
 ``save`` writes atomically (``hedgerow._atomic``: a temporary file in the same directory,
 then ``os.replace``), so an existing snapshot is never left half-written and a failed save
 leaves it intact.
@@ -61,7 +70,9 @@ FORMAT_VERSION = 1
 #: Estimator classes a snapshot may name (looked up in ``hedgerow.estimators``; a file
 #: never names an arbitrary class to import).
 ESTIMATORS = ("LocalLinearForestRegressor", "HonestForestRegressor",
-              "NadarayaWatsonRegressor", "LocalLinearRegressor")
+              "NadarayaWatsonRegressor", "LocalLinearRegressor", "TreatmentEffectForest")
+#: The estimator whose snapshots carry the ``treatment`` and ``effect`` sections.
+EFFECT_ESTIMATOR = "TreatmentEffectForest"
 
 
 class SnapshotError(ValueError):
@@ -137,6 +148,20 @@ class DataFingerprint:
         return {"n_rows": self.n_rows, "n_columns": self.n_columns,
                 "columns": None if self.columns is None else list(self.columns),
                 "target": self.target, "sha256": self.sha256}
+
+
+def treatment_fingerprint(treatment) -> dict:
+    """Return ``{"name", "sha256"}`` of a treatment column (a Series keeps its name)."""
+    try:
+        w = np.ascontiguousarray(np.asarray(treatment, dtype="<f8").ravel())
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"The 'treatment' parameter must be numeric to fingerprint it. "
+                         f"Got {exc}.") from exc
+    h = hashlib.sha256()
+    h.update(np.asarray(w.shape, dtype="<i8").tobytes())
+    h.update(w.tobytes())
+    name = getattr(treatment, "name", None)
+    return {"name": None if name is None else str(name), "sha256": h.hexdigest()}
 
 
 def _short(cols, limit=6):
@@ -262,6 +287,7 @@ def _validate(d, source):
         except TypeError as exc:
             raise SnapshotError(f"The field 'settings.params.{key}' of {source}: {exc}") \
                 from None
+    _validate_effect_sections(d, source, est)
     probe, n_cols = d["view"]["probe"], d["data"]["n_columns"]
     if probe is not None and len(probe) != n_cols:
         raise SnapshotError(f"The field 'view.probe' of {source} must hold one value per "
@@ -270,6 +296,49 @@ def _validate(d, source):
     if cols is not None and len(cols) != n_cols:
         raise SnapshotError(f"The field 'data.columns' of {source} must name {n_cols} "
                             f"columns. Got {len(cols)} instead.")
+
+
+#: Fields of the effect snapshot's sections (present exactly when the estimator is
+#: ``EFFECT_ESTIMATOR``).
+_EFFECT_FIELDS = (
+    ("treatment", "name", "str", True),
+    ("treatment", "sha256", "sha256", False),
+    ("effect", "probe_effect", "number", True),
+    ("effect", "probe_lower", "number", True),
+    ("effect", "probe_upper", "number", True),
+    ("effect", "level", "number", False),
+    ("effect", "average_effect", "number", True),
+    ("effect", "average_std_error", "number", True),
+    ("effect", "caution", "str", False),
+)
+
+
+def _validate_effect_sections(d, source, est):
+    effect = est == EFFECT_ESTIMATOR
+    for section in ("treatment", "effect"):
+        present = d.get(section) is not None
+        if effect and not present:
+            raise SnapshotError(f"{source} lacks the field {section!r} (a snapshot of a "
+                                f"{EFFECT_ESTIMATOR} records its treatment and effect).")
+        if not effect and present:
+            raise SnapshotError(f"The field {section!r} of {source} belongs to snapshots of "
+                                f"a {EFFECT_ESTIMATOR}. Got it with {est} instead.")
+        if present and not isinstance(d[section], dict):
+            raise SnapshotError(f"The field {section!r} of {source} must be an object. Got "
+                                f"{d[section]!r} instead.")
+    if not effect:
+        return
+    for section, name, kind, nullable in _EFFECT_FIELDS:
+        where = f"{section}.{name}"
+        if name not in d[section]:
+            raise SnapshotError(f"{source} lacks the field {where!r}.")
+        value = d[section][name]
+        if value is None and nullable:
+            continue
+        ok, expected = _KINDS[kind]
+        if not ok(value):
+            raise SnapshotError(f"The field {where!r} of {source} must be {expected}"
+                                f"{' or null' if nullable else ''}. Got {value!r} instead.")
 
 
 def _check_path(path, what="path"):
@@ -299,6 +368,9 @@ class Snapshot:
     hedgerow_version: str
     created: str
     format_version: int = FORMAT_VERSION
+    #: effect snapshots only: {"name", "sha256"} of the treatment, and the effect numbers
+    treatment: dict | None = None
+    effect: dict | None = None
     _source: str = field(default="the snapshot", compare=False, repr=False)
 
     # -- convenient views of the fields ----------------------------------------------------
@@ -333,11 +405,12 @@ class Snapshot:
         return cls._build(state["model"], state["X"], state["y"], probe=state["probe"],
                           feature=view.get("feature"), ridge_penalty=state["ridge_penalty"],
                           shown=view.get("shown", {}), tab=view.get("tab"),
-                          compare=state["compare"], headline=state["headline"])
+                          compare=state["compare"], headline=state["headline"],
+                          treatment=state.get("treatment"), effect=state.get("effect"))
 
     @classmethod
     def from_model(cls, model, X, y, probe=None, feature=None, *, ridge_penalty=None,
-                   verdict=False, compare=True) -> Snapshot:
+                   verdict=False, compare=True, treatment=None) -> Snapshot:
         """Return the snapshot of a fitted hedgerow estimator on ``(X, y)``, without widgets.
 
         Parameters
@@ -351,10 +424,19 @@ class Snapshot:
         verdict : also compute the verdict sentence (cross-fitted over 5 folds: several
             forest fits).
         compare : whether a restored explorer fits the kernel smoothers for comparison.
+        treatment : with a ``TreatmentEffectForest``, the treatment it was fitted with
+            (required; fingerprinted, not saved). ``verdict`` then runs the effect verdict.
         """
         from hedgerow import diagnostics as D
 
         _check_model(model)
+        is_effect = type(model).__name__ == EFFECT_ESTIMATOR
+        if is_effect and treatment is None:
+            raise ValueError(f"The 'treatment' parameter is needed with a {EFFECT_ESTIMATOR}: "
+                             f"pass the treatment it was fitted with.")
+        if not is_effect and treatment is not None:
+            raise ValueError(f"The 'treatment' parameter applies to a {EFFECT_ESTIMATOR} only. "
+                             f"Got it with {type(model).__name__} instead.")
         names = _feature_names(model)
         if feature is not None:
             feature = names[D.resolve_feature(model, feature)]
@@ -364,17 +446,45 @@ class Snapshot:
             if x.size != len(names) or not np.all(np.isfinite(x)):
                 raise ValueError(f"The 'probe' parameter must hold {len(names)} finite values "
                                  f"(one per column). Got {probe!r} instead.")
+        if is_effect:
+            if ridge_penalty is not None:
+                raise ValueError("The 'ridge_penalty' parameter applies to local linear "
+                                 f"forests only. Got {ridge_penalty!r} for "
+                                 f"{EFFECT_ESTIMATOR} instead.")
+            headline, effect = _effect_headline(model, x, verdict)
+            return cls._build(model, X, y, probe=x, feature=feature,
+                              ridge_penalty=model.ridge_penalty_, shown={}, tab=None,
+                              compare=False, headline=headline, treatment=treatment,
+                              effect=effect)
         headline, lam = _headline(model, x, ridge_penalty, verdict)
         return cls._build(model, X, y, probe=x, feature=feature, ridge_penalty=lam,
                           shown={}, tab=None, compare=bool(compare), headline=headline)
 
     @classmethod
     def _build(cls, model, X, y, *, probe, feature, ridge_penalty, shown, tab, compare,
-               headline):
+               headline, treatment=None, effect=None):
         import hedgerow
 
         _check_model(model)
         fp = DataFingerprint.from_data(X, y)
+        treated = None
+        if type(model).__name__ == EFFECT_ESTIMATOR:
+            given = tuple(getattr(model, "supplied_inputs_", ()))
+            if given:
+                raise ValueError(
+                    f"The model was fitted with {list(given)} given to fit(); a snapshot "
+                    f"records settings and a seed, and a refit from them would centre and "
+                    f"weight differently. Snapshot a model fitted without them.")
+            if treatment is None or effect is None:
+                raise ValueError(f"A snapshot of a {EFFECT_ESTIMATOR} needs its 'treatment' "
+                                 f"and effect numbers.")
+            treated = treatment_fingerprint(treatment)
+            if treated["sha256"] != treatment_fingerprint(model.treatment_)["sha256"]:
+                raise SnapshotDataMismatch(
+                    "The 'treatment' parameter must be the treatment the model was fitted "
+                    "with (checked by fingerprint). Pass its training treatment.")
+            effect = {k: (_number_or_none(v) if k != "caution" else str(v))
+                      for k, v in effect.items()}
         if fp.n_columns != model.n_features_in_:
             raise ValueError(f"The 'X' parameter must have the model's {model.n_features_in_} "
                              f"columns. Got {fp.n_columns} instead.")
@@ -410,13 +520,22 @@ class Snapshot:
                 "probe_prediction": _number_or_none(headline.get("probe_prediction"))}
         now = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
         snap = cls(estimator=type(model).__name__, params=params, seed=seed, view=view,
-                   data=fp, headline=head, hedgerow_version=hedgerow.__version__, created=now)
+                   data=fp, headline=head, hedgerow_version=hedgerow.__version__, created=now,
+                   treatment=treated, effect=effect)
         _validate(snap.to_dict(), "the snapshot")
         return snap
 
     # -- dictionaries and files ------------------------------------------------------------
     def to_dict(self) -> dict:
         """Return the snapshot as plain JSON types (the file's content)."""
+        d = self._core_dict()
+        if self.treatment is not None:
+            d["treatment"] = dict(self.treatment)
+        if self.effect is not None:
+            d["effect"] = dict(self.effect)
+        return d
+
+    def _core_dict(self) -> dict:
         return {
             "format": FORMAT,
             "format_version": self.format_version,
@@ -447,9 +566,14 @@ class Snapshot:
         head = {k: d["headline"][k] for k in ("oob_rmse", "mean_interval_width",
                                               "interval_level", "verdict",
                                               "probe_prediction")}
+        effect = None if d.get("effect") is None else {
+            k: d["effect"][k] for sec, k, _, _ in _EFFECT_FIELDS if sec == "effect"}
+        treatment = None if d.get("treatment") is None else {
+            k: d["treatment"][k] for k in ("name", "sha256")}
         return cls(estimator=s["estimator"], params=dict(s["params"]), seed=s["seed"],
                    view=view, data=fp, headline=head, hedgerow_version=d["hedgerow_version"],
-                   created=d["created"], format_version=d["format_version"], _source=source)
+                   created=d["created"], format_version=d["format_version"],
+                   treatment=treatment, effect=effect, _source=source)
 
     def save(self, path) -> Path:
         """Write the snapshot to ``path`` as JSON, atomically; return the path.
@@ -480,7 +604,8 @@ class Snapshot:
     def load(cls, path, *, data=None, allow_data_mismatch=False) -> Snapshot:
         """Return the snapshot saved at ``path``, validated field by field.
 
-        ``data=(X, y)`` also checks the data fingerprint (see ``check_data``).
+        ``data=(X, y)`` also checks the data fingerprint (see ``check_data``);
+        ``(X, y, treatment)`` for an effect snapshot.
         Raises ``SnapshotError`` (a ``ValueError``) for a file that is not valid JSON
         (corrupted or truncated), not a snapshot, of another format version, or with a
         missing or malformed field; ``FileNotFoundError`` if there is no such file.
@@ -505,21 +630,42 @@ class Snapshot:
                                 f"or not a snapshot).") from None
         snap = cls.from_dict(d, source=source)
         if data is not None:
-            if not isinstance(data, tuple | list) or len(data) != 2:
-                raise TypeError(f"The 'data' parameter must be a pair (X, y). Got "
-                                f"{type(data).__name__} instead.")
-            snap.check_data(*data, allow_data_mismatch=allow_data_mismatch)
+            k = 3 if snap.treatment is not None else 2
+            if not isinstance(data, tuple | list) or len(data) != k:
+                what = "a triple (X, y, treatment)" if k == 3 else "a pair (X, y)"
+                got = (f"{len(data)} items" if isinstance(data, tuple | list)
+                       else type(data).__name__)
+                raise TypeError(f"The 'data' parameter must be {what} for this snapshot. "
+                                f"Got {got} instead.")
+            X, y, *rest = data
+            snap.check_data(X, y, *rest, allow_data_mismatch=allow_data_mismatch)
         return snap
 
     # -- checks and use ----------------------------------------------------------------------
-    def check_data(self, X, y, *, allow_data_mismatch=False) -> list[str]:
+    def check_data(self, X, y, treatment=None, *, allow_data_mismatch=False) -> list[str]:
         """Compare ``(X, y)`` with the saved fingerprint; return the differences found.
+
+        An effect snapshot also compares ``treatment`` (required for one, refused
+        otherwise).
 
         Raises ``SnapshotDataMismatch`` if they differ, unless ``allow_data_mismatch``
         is True: then it warns (``SnapshotDataWarning``) and returns the differences, and
         numbers recomputed on these data will not match the saved ones.
         """
         diffs = self.data.differences(DataFingerprint.from_data(X, y))
+        if self.treatment is not None:
+            if treatment is None:
+                raise ValueError("The 'treatment' parameter is needed to check the data of "
+                                 "an effect snapshot.")
+            other = treatment_fingerprint(treatment)
+            if other["sha256"] != self.treatment["sha256"]:
+                diffs.append("different treatment values (SHA-256 of the treatment differs)")
+            if other["name"] != self.treatment["name"]:
+                diffs.append(f"treatment {other['name']!r} instead of "
+                             f"{self.treatment['name']!r}")
+        elif treatment is not None:
+            raise ValueError("The 'treatment' parameter applies to effect snapshots only; "
+                             f"this one holds a {self.estimator}.")
         if diffs:
             text = "; ".join(diffs)
             if not allow_data_mismatch:
@@ -563,6 +709,9 @@ class Snapshot:
         rows = []
         for k in self.headline:
             rows.append((f"headline: {k}", self.headline.get(k), other.headline.get(k)))
+        for k in sorted(set(self.effect or {}) | set(other.effect or {})):
+            rows.append((f"effect: {k}", (self.effect or {}).get(k),
+                         (other.effect or {}).get(k)))
         for k in sorted(set(self.params) | set(other.params)):
             a, b = self.params.get(k), other.params.get(k)
             if a != b:
@@ -573,6 +722,9 @@ class Snapshot:
                 rows.append((f"view: {k}", a, b))
         if self.data != other.data:
             rows.append(("data", self.data.sha256[:12], other.data.sha256[:12]))
+        if self.treatment != other.treatment:
+            rows.append(("treatment", (self.treatment or {}).get("sha256", "")[:12] or None,
+                         (other.treatment or {}).get("sha256", "")[:12] or None))
         frame = pd.DataFrame(rows, columns=["item", a_lab, b_lab]).set_index("item")
         frame["same"] = [_same(a, b) for a, b in zip(frame[a_lab], frame[b_lab], strict=True)]
         return frame
@@ -600,6 +752,17 @@ class Snapshot:
                  ("prediction at the probe", _fmt(h.get("probe_prediction"))),
                  ("verdict", h.get("verdict") or "(not computed)"),
                  ("saved", f"{self.created} by hedgerow {self.hedgerow_version}")]
+        if self.effect is not None:
+            e = self.effect
+            items[5:8] = [
+                ("treatment", f"{self.treatment['name']!r}, sha256 "
+                              f"{self.treatment['sha256'][:12]}..."),
+                ("effect at the probe", f"{_fmt(e['probe_effect'])} ({100 * e['level']:g}% "
+                                        f"interval {_fmt(e['probe_lower'])} to "
+                                        f"{_fmt(e['probe_upper'])})"),
+                ("average effect", f"{_fmt(e['average_effect'])} (standard error "
+                                   f"{_fmt(e['average_std_error'])})"),
+                ("caution", e["caution"])]
         return ("<table><caption style='text-align:left'><b>hedgerow snapshot</b></caption>"
                 + "".join(row(k, v) for k, v in items) + "</table>")
 
@@ -668,3 +831,29 @@ def _headline(model, x, ridge_penalty, want_verdict):
                                    progress=False).conclusion
     return ({"oob_rmse": rmse, "mean_interval_width": width, "interval_level": level,
              "verdict": conclusion, "probe_prediction": pred_at}, lam)
+
+
+def _effect_headline(model, x, want_verdict):
+    """Return (headline, effect section) of a fitted ``TreatmentEffectForest``."""
+    from hedgerow import diagnostics as D
+    from hedgerow.estimators._effect_forest import EFFECT_CAUTION
+
+    level = 0.95
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        probe_effect = lower = upper = None
+        if x is not None:
+            p = D.effect_probe(model, x, level=level)
+            row = p.methods.loc["corrected forest"]
+            probe_effect, lower, upper = row["effect"], row["lower"], row["upper"]
+        avg = model.average_effect()
+        conclusion = None
+        if want_verdict:
+            conclusion = D.effect_verdict(model.X_train_, model.y_train_, model.treatment_,
+                                          model=model, progress=False).conclusion
+    headline = {"oob_rmse": None, "mean_interval_width": None, "interval_level": level,
+                "verdict": conclusion, "probe_prediction": probe_effect}
+    effect = {"probe_effect": probe_effect, "probe_lower": lower, "probe_upper": upper,
+              "level": level, "average_effect": avg.estimate,
+              "average_std_error": avg.std_error, "caution": EFFECT_CAUTION}
+    return headline, effect

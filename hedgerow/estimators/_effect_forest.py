@@ -294,6 +294,11 @@ class TreatmentEffectForest(BaseEstimator):
         self.sample_weight_ = sw
         self.outcome_fit_ = m
         self.propensity_ = e
+        # what a refit from the settings alone cannot reproduce (snapshots refuse these)
+        self.supplied_inputs_ = tuple(
+            name for name, v in (("outcome_model", outcome_model),
+                                 ("propensity_model", propensity_model),
+                                 ("sample_weight", sample_weight)) if v is not None)
         self.y_centred_ = yt
         self.w_centred_ = wt
         self.trees_per_bag_ = l

@@ -143,5 +143,40 @@ class EffectSession(t.HasTraits):
         if self._control is not None:
             self._control.cancel()
 
+    # -- snapshots ---------------------------------------------------------------------------
+    def snapshot_state(self) -> dict:
+        """Return what ``hedgerow.snapshot.Snapshot.capture`` records of this session.
+
+        The fitted model and its data, the probe, the effect at the probe (the numbers the
+        probe view shows), the doubly robust average effect, and the effect verdict's
+        sentence when one has finished.
+        """
+        from hedgerow.estimators._effect_forest import EFFECT_CAUTION
+
+        p = self.probe_report()
+        row = p.methods.loc["corrected forest"]
+        avg = self.model.average_effect()
+        v = self._verdict
+        return {
+            "model": self.model, "X": self.X, "y": self.y, "treatment": self.treatment,
+            "probe": [float(x) for x in self.probe],
+            "ridge_penalty": float(self.model.ridge_penalty_), "compare": False,
+            "headline": {"oob_rmse": None, "mean_interval_width": None,
+                         "interval_level": p.level,
+                         "verdict": None if v is None or not v.complete else v.conclusion,
+                         "probe_prediction": row["effect"]},
+            "effect": {"probe_effect": row["effect"], "probe_lower": row["lower"],
+                       "probe_upper": row["upper"], "level": p.level,
+                       "average_effect": avg.estimate, "average_std_error": avg.std_error,
+                       "caution": EFFECT_CAUTION},
+        }
+
+    def restore_view(self, *, probe=None, feature=None):
+        """Put the probe and the column where a snapshot had them (None: leave)."""
+        if probe is not None:
+            self.probe = [float(v) for v in probe]  # validated: one finite value per column
+        if feature is not None:
+            self.feature = D.resolve_feature(self.model, feature)  # a name or an index
+
     def close(self):
         self.cancel_verdict()

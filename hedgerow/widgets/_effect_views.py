@@ -264,6 +264,27 @@ class EffectExplorer(W.Tab):
     def views(self):
         return [self.probe_view, self.overlap_view, self.verdict_view]
 
+    # -- view state (what a snapshot records besides the session) -------------------------
+    def view_state(self) -> dict:
+        """Return the column shown and the active tab."""
+        tab = self.selected_index
+        return {"feature": self.session.columns[self.session.feature], "shown": {},
+                "tab": EFFECT_TAB_TITLES[tab] if tab is not None else None}
+
+    def apply_view_state(self, *, feature=None, shown=None, tab=None):
+        """Show ``feature`` on the effect probe and open tab ``tab`` (a title).
+
+        ``shown`` (legend toggles of the regression explorer) does not apply here and is
+        ignored; an unknown column or tab is an error.
+        """
+        if tab is not None and tab not in EFFECT_TAB_TITLES:
+            raise ValueError(f"The 'tab' parameter must be one of {list(EFFECT_TAB_TITLES)}. "
+                             f"Got {tab!r} instead.")
+        if feature is not None:
+            self.session.restore_view(feature=feature)  # a name or an index, validated
+        if tab is not None:
+            self.selected_index = EFFECT_TAB_TITLES.index(tab)
+
     def close(self):
         self.session.close()
         super().close()

@@ -170,10 +170,17 @@ def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, ref
         pass ``model``, ``feature`` or forest settings with it.
     allow_data_mismatch : with ``snapshot``, proceed (with a warning) when (X, y) differ
         from the snapshot's data fingerprint instead of raising.
+
+    With ``treatment`` and ``snapshot`` (an effect snapshot: ``Snapshot.capture`` of an
+    ``EffectExplorer`` or ``Snapshot.from_model(effect_forest, X, y, treatment=...)``)
+    the effect forest is refitted with the saved settings and seed on (X, y, treatment),
+    checked against the saved fingerprints of X, y and the treatment, and the probe,
+    column and tab are restored.
     """
     if treatment is not None:
         return _effect_explorer(X, y, treatment, model=model, feature=feature,
-                                snapshot=snapshot, compare=compare, **forest_params)
+                                snapshot=snapshot, compare=compare,
+                                allow_data_mismatch=allow_data_mismatch, **forest_params)
     if snapshot is None:
         session = ExploreSession(X, y, model=model, compare=compare, refit_delay=refit_delay,
                                  **forest_params)
@@ -184,6 +191,9 @@ def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, ref
         raise ValueError(f"The 'snapshot' parameter fixes the model, its settings and the "
                          f"view; pass none of {clash} with it. Got snapshot={snapshot!r}.")
     snap = snapshot if isinstance(snapshot, Snapshot) else Snapshot.load(snapshot)
+    if snap.estimator == "TreatmentEffectForest":
+        raise ValueError("The 'snapshot' parameter holds a TreatmentEffectForest: pass its "
+                         "'treatment' to open the effect explorer.")
     snap.check_data(X, y, allow_data_mismatch=allow_data_mismatch)
     if snap.estimator != "LocalLinearForestRegressor":
         raise ValueError(f"The 'snapshot' parameter must hold a LocalLinearForestRegressor "
@@ -209,17 +219,45 @@ def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, ref
     return explorer
 
 
-def _effect_explorer(X, y, treatment, *, model, feature, snapshot, compare, **forest_params):
+def _effect_explorer(X, y, treatment, *, model, feature, snapshot, compare,
+                     allow_data_mismatch=False, **forest_params):
+    from hedgerow.snapshot import EFFECT_ESTIMATOR
     from hedgerow.widgets._effect_session import EffectSession
     from hedgerow.widgets._effect_views import EffectExplorer
 
-    if snapshot is not None:
-        raise ValueError("The 'snapshot' parameter is not supported with 'treatment' (the "
-                         "effect explorer keeps no snapshots yet).")
     if compare is not True:
         raise ValueError("The 'compare' parameter does not apply with 'treatment' (the "
                          "effect explorer compares its own methods).")
-    session = EffectSession(X, y, treatment, model=model, **forest_params)
-    if feature is not None:
-        session.feature = feature
-    return EffectExplorer(session)
+    if snapshot is None:
+        session = EffectSession(X, y, treatment, model=model, **forest_params)
+        if feature is not None:
+            session.feature = feature
+        return EffectExplorer(session)
+    clash = [k for k, v in (("model", model), ("feature", feature)) if v is not None]
+    clash += sorted(forest_params)
+    if clash:
+        raise ValueError(f"The 'snapshot' parameter fixes the model, its settings and the "
+                         f"view; pass none of {clash} with it. Got snapshot={snapshot!r}.")
+    snap = snapshot if isinstance(snapshot, Snapshot) else Snapshot.load(snapshot)
+    if snap.estimator != EFFECT_ESTIMATOR:
+        raise ValueError(f"The 'snapshot' parameter must hold a {EFFECT_ESTIMATOR} to open "
+                         f"with 'treatment'. Got {snap.estimator} instead; open it without "
+                         f"'treatment'.")
+    snap.check_data(X, y, treatment, allow_data_mismatch=allow_data_mismatch)
+    params = snap.make_estimator().get_params(deep=False)
+    session = EffectSession(X, y, treatment, **params)
+    view = snap.view
+    probe = view["probe"]
+    if probe is not None and len(probe) != len(session.columns):
+        warnings.warn("The snapshot's probe has another number of columns than X; the probe "
+                      "starts at its default.", UserWarning, stacklevel=3)
+        probe = None
+    feature = view["feature"]
+    if feature is not None and feature not in session.columns:
+        warnings.warn(f"The snapshot's column {feature!r} is not in X; showing the default "
+                      f"column.", UserWarning, stacklevel=3)
+        feature = None
+    session.restore_view(probe=probe, feature=feature)
+    explorer = EffectExplorer(session)
+    explorer.apply_view_state(tab=view["tab"])
+    return explorer
