@@ -44,7 +44,7 @@ def effect_figures(overlap, slices, oob_effects, X_train, target, verdict) -> di
                               "propensity by arm")
         for i, (name, sl) in enumerate(slices.items()):
             out[slice_figure_key(i)] = _svg(
-                effect_slice_figure(Figure, sl, X_train, oob_effects, target),
+                effect_slice_figure(Figure, sl, name, X_train, oob_effects, target),
                 f"fig-effect-{i}", f"effect along {name}")
         if verdict is not None:
             out["verdict"] = _svg(verdict_gain_figure(Figure, verdict), "fig-verdict",
@@ -86,8 +86,11 @@ def overlap_figure(Figure, ov):
     return fig
 
 
-def effect_slice_figure(Figure, sl, X_train, oob_effects, target):
-    """Return the effect along ``sl.feature``: rows' out-of-bag effects, both lines, band."""
+def effect_slice_figure(Figure, sl, name, X_train, oob_effects, target):
+    """Return the effect along column ``name``: rows' out-of-bag effects, both lines, band.
+
+    ``name`` is the report's name of the column (the model may have been fitted unnamed).
+    """
     fig = Figure(figsize=(7.2, 4.4), layout="constrained")
     ax = fig.add_subplot()
     j = sl.feature_index
@@ -107,10 +110,10 @@ def effect_slice_figure(Figure, sl, X_train, oob_effects, target):
             label="corrected forest")
     ax.axhline(0.0, color="#8a929c", lw=0.8)
     ax.axvline(sl.x[j], color=_INK, lw=0.8, ls=":", gid="probe",
-               label=_mpl(f"probe ({sl.feature} = {number(sl.x[j])})"))
-    ax.set_xlabel(_mpl(sl.feature))
+               label=_mpl(f"probe ({name} = {number(sl.x[j])})"))
+    ax.set_xlabel(_mpl(name))
     ax.set_ylabel(_mpl(f"effect on {target}"))
-    ax.set_title(_mpl(f"effect along {sl.feature}, other columns at the probe"), loc="left",
+    ax.set_title(_mpl(f"effect along {name}, other columns at the probe"), loc="left",
                  fontsize=10)
     _legend_below(ax)
     return fig

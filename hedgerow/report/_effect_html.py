@@ -117,14 +117,14 @@ def _probe_html(r) -> str:
     return "".join(out)
 
 
-def _along_caption(r, sl) -> str:
+def _along_caption(r, name, sl) -> str:
     lvl = _pct(sl.level)
     flat = ("" if sl.corrected_column else
-            f" The correction does not use {sl.feature} (it kept "
+            f" The correction does not use {name} (it kept "
             + (", ".join(r.data.columns[int(c)] for c in r.model.correction_features_)
                or "no column") + "), so the corrected effect changes along it only through "
             "the forest weights, as the uncorrected one does.")
-    return (f"The effect along {sl.feature} with every other column held at the probe "
+    return (f"The effect along {name} with every other column held at the probe "
             f"(dotted vertical line): the local linear corrected forest (dark line) with its "
             f"{lvl} interval ({sl.interval.replace('_', ' ')}; this interval is centred on "
             f"its own local quadratic of the effect, not on the line, so the band need not "
@@ -139,9 +139,9 @@ def _along_html(r) -> str:
            "changes the reading; near the ends of a column the uncorrected forest's effect "
            "can bend toward the interior, the bias the correction targets. The numbers "
            "drawn are in the report object (<code>EffectReport.slices</code>).</p>"]
-    for i, sl in enumerate(r.slices.values()):
-        out.append(f"<h3>Along <code>{_e(sl.feature)}</code></h3>")
-        out.append(_figure(r.figures[slice_figure_key(i)], _along_caption(r, sl)))
+    for i, (name, sl) in enumerate(r.slices.items()):
+        out.append(f"<h3>Along <code>{_e(name)}</code></h3>")
+        out.append(_figure(r.figures[slice_figure_key(i)], _along_caption(r, name, sl)))
     return "".join(out)
 
 
@@ -180,7 +180,7 @@ def render_effect(r) -> str:
             f"nothing.")
     caution = f'<p class="hr-conclusion" id="effect-caution">{_e(r.cautions[0])}</p>'
     if r.verdict is None:
-        caution += ("<p class='hr-note' id='effect-no-verdict'>No held-out verdict was run "
+        caution += ('<p class="hr-note" id="effect-no-verdict">No held-out verdict was run '
                     "for this report (verdict=False), so it has no verdict section or "
                     "figure: whether the local linear correction of the effect is worth it "
                     "was not checked on held-out rows.</p>")
