@@ -1,6 +1,7 @@
 """The effect report: its numbers are the estimator's own, its caution leads and closes."""
 
 import re
+import xml.etree.ElementTree as ET
 
 import numpy as np
 import pytest
@@ -326,6 +327,10 @@ def test_column_names_are_escaped_in_figures_and_captions(trial):
     assert page.count("dose &lt;mg&gt; &amp; co") >= 4  # heading, caption, axis, title
     svg = r.figures["effect along 0"]
     assert "dose &lt;mg&gt; &amp; co" in svg
+    # well-formed markup, every text escaped (the namespaces inline SVG in HTML implies)
+    spaces = 'xmlns="http://www.w3.org/2000/svg" xmlns:xlink="http://www.w3.org/1999/xlink" '
+    for markup in r.figures.values():
+        ET.fromstring(markup.replace('class="hr-figure"', spaces + 'class="hr-figure"', 1))
     assert "shade $1" in r.figures["effect along 1"]  # '$' kept literal, not mathtext
     # a column outside the correction (only column 0 corrects) is said to be so
     assert r.slices["shade $1"].corrected_column is False
