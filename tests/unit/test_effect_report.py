@@ -295,20 +295,31 @@ def test_a_verdict_part_without_rows_is_named_not_drawn(report):
     assert sum("too few rows" in t.get_text() for t in ax.texts) == len(comps)
 
 
-def test_a_continuous_treatment_has_no_weak_overlap_zones(report):
+@pytest.mark.filterwarnings("ignore::hedgerow.estimators.FewBagsWarning")
+def test_a_continuous_treatment_has_no_weak_overlap_zones():
     from matplotlib.figure import Figure
 
     from hedgerow.report._effect_figures import overlap_figure
 
-    e = np.linspace(0.2, 3.0, 50)
-    edges = np.linspace(e.min(), e.max(), 11)
-    ov = D.OverlapProfile(edges=edges, counts={"all rows": np.histogram(e, edges)[0]},
-                          flagged=np.zeros(50, bool), margin=0.05, binary=False,
-                          caution=EFFECT_CAUTION, by_arm={"all rows": e})
-    ax = overlap_figure(Figure, ov).axes[0]
+    # an invented dose that follows x0, with an effect that grows along x0
+    rng = np.random.default_rng(2)
+    X = rng.uniform(-1, 1, size=(300, 2))
+    w = X[:, 0] + rng.normal(size=300)
+    y = X[:, 1] + w * (1 + X[:, 0]) + rng.normal(scale=0.5, size=300)
+    r = build_effect_report(X, y, w, model=TreatmentEffectForest(
+        n_estimators=100, random_state=0, n_jobs=1), feature=0, verdict=False,
+        progress=False)
+    assert r.treatment == "continuous" and set(r.figures) == {"overlap", "effect along 0"}
+    ax = overlap_figure(Figure, r.overlap).axes[0]
     gids = {a.get_gid() for a in (*ax.patches, *ax.collections)}
     assert "bins-all rows" in gids and not {"zone-low", "zone-high"} & gids
     assert "fitted mean of the treatment" in ax.get_xlabel()
+    assert "fig-overlap-zone" not in r.figures["overlap"]
+    assert "no zone of weak overlap to mark" in r.to_html()
+    f = r.slices["x0"].frame
+    Q = np.repeat(r.slices["x0"].x[None, :], len(f), axis=0)
+    Q[:, 0] = f["value"]
+    np.testing.assert_array_equal(f["corrected"], r.model.predict_effect(Q))
 
 
 @pytest.mark.filterwarnings("ignore::hedgerow.estimators.FewBagsWarning")
