@@ -11,7 +11,7 @@ renderer maps the name to its own syntax.
 from __future__ import annotations
 
 __all__ = ["METHOD_COLOURS", "METHOD_DASHES", "ROW_COLOUR", "UNKNOWN_COLOUR", "base_method",
-           "colour_of", "dash_of"]
+           "colour_of", "dash_of", "EFFECT_COLOURS", "ARM_COLOURS"]
 
 METHOD_COLOURS = {
     "local linear forest": "#1d5fa8",  # cobalt
@@ -30,6 +30,12 @@ METHOD_DASHES = {
 UNKNOWN_COLOUR = "#999999"
 #: The training rows behind a curve (slate), in the views and the report alike.
 ROW_COLOUR = "#5b6470"
+#: The effect forest's two readings: the corrected one shares the local linear forest's
+#: colour, the same trees without the correction (a local constant) the honest forest's.
+EFFECT_COLOURS = {"corrected forest": METHOD_COLOURS["local linear forest"],
+                  "uncorrected forest": METHOD_COLOURS["honest forest"]}
+#: The arms of a treatment (overlap histograms in the effect views and the effect report).
+ARM_COLOURS = {"untreated": "#e3891b", "treated": "#1d5fa8", "all rows": ROW_COLOUR}
 
 
 def base_method(name: str) -> str:

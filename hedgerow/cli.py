@@ -85,7 +85,8 @@ def _parser() -> argparse.ArgumentParser:
                           "target)")
     rep.add_argument("--feature", metavar="COLUMN", default=None,
                      help="the column the slice runs along (default: the forest's first "
-                          "correction column)")
+                          "correction column); with --treatment, the column the effect "
+                          "figure runs along (default: up to three correction columns)")
     rep.add_argument("--seed", type=_non_negative_int, default=0, metavar="N",
                      help="random seed of the forest (default: 0)")
     rep.add_argument("--trees", type=_positive_int, default=None, metavar="N",
@@ -105,7 +106,7 @@ def _parser() -> argparse.ArgumentParser:
     rep.add_argument("--treatment", metavar="COLUMN", default=None,
                      help="write the effect report of a treatment-effect forest instead: "
                           "COLUMN holds the treatment (0/1, or a continuous dose) and "
-                          "--target the outcome; --feature, --coverage-reps, --no-compare, "
+                          "--target the outcome; --coverage-reps, --no-compare, "
                           "--no-baseline and --full do not apply")
     rep.add_argument("--quiet", action="store_true", help="no progress bar")
     return parser
@@ -288,15 +289,15 @@ def _effect_report(args, data, out) -> int:
     """``report --treatment``: the effect report of a treatment-effect forest."""
     from hedgerow.report import build_effect_report, write_html
 
-    unused = [flag for flag, on in (("--feature", args.feature is not None),
-                                    ("--coverage-reps", args.coverage_reps > 0),
+    unused = [flag for flag, on in (("--coverage-reps", args.coverage_reps > 0),
                                     ("--no-compare", args.no_compare),
                                     ("--no-baseline", args.no_baseline),
                                     ("--full", args.full)) if on]
     if unused:
         raise InputError(f"{', '.join(unused)} do{'es' if len(unused) == 1 else ''} not "
                          f"apply with --treatment (the effect report)")
-    X, y, w = read_table(data, args.target, args.features, None, treatment=args.treatment)
+    X, y, w = read_table(data, args.target, args.features, args.feature,
+                         treatment=args.treatment)
 
     from hedgerow import TreatmentEffectForest
 
@@ -309,7 +310,8 @@ def _effect_report(args, data, out) -> int:
         warnings.simplefilter("always")
         try:
             report = build_effect_report(X, y, w, model=TreatmentEffectForest(**params),
-                                         title=args.title, progress=not args.quiet,
+                                         feature=args.feature, title=args.title,
+                                         progress=not args.quiet,
                                          random_state=args.seed)
         except (ValueError, TypeError) as exc:
             raise InputError(str(exc).splitlines()[0]) from None

@@ -8,9 +8,9 @@
   coverage and the difference at the probe, each with a one-line reading.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
-- ``effect_probe``, ``overlap_profile``, ``effect_verdict``: a treatment-effect forest's
-  effect at a point, the overlap of its arms and a held-out R-loss verdict (each with the
-  effect caution).
+- ``effect_probe``, ``overlap_profile``, ``effect_verdict``, ``effect_slice``: a
+  treatment-effect forest's effect at a point, the overlap of its arms, a held-out R-loss
+  verdict and the effect along one column (each with the effect caution).
 - ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
   as much as their standard errors say?
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
@@ -35,6 +35,7 @@ from hedgerow.diagnostics._effect import (
     r_loss,
 )
 from hedgerow.diagnostics._effect_coverage import EffectCoverageReport, effect_coverage_readout
+from hedgerow.diagnostics._effect_slice import EFFECT_SLICE_POINTS, EffectSlice, effect_slice
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
@@ -81,6 +82,7 @@ __all__ = [
     "neighbourhood_difference", "overlap_profile", "r_loss", "interval_method",
     "EffectCoverageReport",
     "effect_coverage_readout",
+    "EFFECT_SLICE_POINTS", "EffectSlice", "effect_slice",
     "CAUTIONS",
     "CAUTIONS_LINK",
     "DecisionPanel",

@@ -17,7 +17,8 @@ Its modules: ``_content`` (value objects, sections, cautions), ``_inputs`` (chec
 any fit), ``_build`` (the steps and their progress, writing), ``_figures`` (matplotlib),
 ``_html`` (the page), ``_numbers`` (the one number formatter); ``_effect`` and
 ``_effect_html`` the effect report of a ``TreatmentEffectForest`` (``build_effect_report``,
-``save_effect_html``), its caution first and last.
+``save_effect_html``), its caution first and last; ``_effect_figures`` its figures, drawn
+with ``_figures``' helpers.
 """
 
 from __future__ import annotations

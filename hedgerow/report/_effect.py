@@ -4,7 +4,9 @@
 and gathers, from the estimator's own methods and ``hedgerow.diagnostics``, the numbers a
 reviewer of an effect reading needs: the doubly robust average effect overall, in the edge
 band and in the interior; the overlap of the two arms; the effect at the probe with and
-without the local linear correction; and the cautions. ``EffectReport.to_html()`` renders
+without the local linear correction, and along a few columns through the probe
+(``diagnostics.effect_slice``); and the cautions. Its figures (``_effect_figures``) draw
+those numbers and nothing else. ``EffectReport.to_html()`` renders
 the page (same style, security policy and number formatter as the regression report).
 
 The caution leads the page and closes it: an effect reading assumes unconfoundedness,
@@ -26,10 +28,11 @@ from hedgerow.report._content import DataSummary
 from hedgerow.report._inputs import check_flag, check_report_data, data_fingerprint, probe_input
 
 __all__ = ["EffectReport", "EFFECT_SECTIONS", "build_effect_report", "save_effect_html",
-           "EFFECT_REPORT_CAUTIONS"]
+           "EFFECT_REPORT_CAUTIONS", "EFFECT_SLICE_COLUMNS"]
 
 #: Section ids of the effect page, in order.
-EFFECT_SECTIONS = ("verdict", "average", "overlap", "probe", "data", "settings", "cautions")
+EFFECT_SECTIONS = ("verdict", "average", "overlap", "probe", "effect-along", "data",
+                   "settings", "cautions")
 
 #: Cautions of every effect report, after ``EFFECT_CAUTION`` itself.
 EFFECT_REPORT_CAUTIONS = (
@@ -43,7 +46,11 @@ EFFECT_REPORT_CAUTIONS = (
     "out-of-bag centring absorbs, nor any confounding.",
 )
 
-_STEPS = ("fit", "verdict", "average effect", "overlap", "probe")
+#: At most this many correction columns get an effect-along-a-column figure.
+EFFECT_SLICE_COLUMNS = 3
+
+_STEPS = ("fit", "verdict", "average effect", "overlap", "probe", "effect along columns",
+          "figures")
 
 
 @dataclass(frozen=True)
@@ -58,8 +65,13 @@ class EffectReport:
     verdict : ``diagnostics.EffectVerdict`` (cross-fitted held-out R-loss) or None.
     overlap : ``diagnostics.OverlapProfile``. probe : column -> value of the probe.
     at_probe : method -> dict(effect, lower, upper, std). slopes : column -> local slope
-    of the effect at the probe. settings : estimator parameters. cautions : sentences,
-    ``EFFECT_CAUTION`` first. model : the fitted forest. level : interval level.
+    of the effect at the probe. slices : column -> ``diagnostics.EffectSlice`` (the
+    effect along that column, the others at the probe; the numbers its figure draws).
+    oob_effects : (n,) out-of-bag corrected effects of the training rows (the figures'
+    points; NaN for a row every tree drew). figures : name -> inline SVG (``"overlap"``,
+    ``"effect along 0"``, ... in the order of ``slices``, and ``"verdict"`` when it ran).
+    settings : estimator parameters. cautions : sentences, ``EFFECT_CAUTION`` first.
+    model : the fitted forest. level : interval level.
     """
 
     title: str
@@ -71,6 +83,9 @@ class EffectReport:
     probe: Mapping
     at_probe: Mapping
     slopes: Mapping
+    slices: Mapping
+    oob_effects: np.ndarray = field(repr=False)
+    figures: Mapping = field(repr=False)
     settings: Mapping
     cautions: tuple
     level: float
@@ -118,8 +133,47 @@ def _resolve_effect_model(model, Xa, ya, w, random_state):
     return model
 
 
-def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, level=0.95,
-                        verdict=True, progress=True, random_state=0) -> EffectReport:
+def _check_slice_features(feature, columns):
+    """Return the column indices of ``feature`` (None: decided after the fit)."""
+    if feature is None:
+        return None
+    many = isinstance(feature, list | tuple)
+    items = list(feature) if many else [feature]
+    if not items or len(items) > EFFECT_SLICE_COLUMNS:
+        raise ValueError(f"The 'feature' parameter must be None, a column or a list of 1 to "
+                         f"{EFFECT_SLICE_COLUMNS} columns. Got {feature!r} instead.")
+    out = []
+    for f in items:
+        if isinstance(f, str) and f in columns:
+            j = columns.index(f)
+        elif isinstance(f, int | np.integer) and not isinstance(f, bool) and \
+                0 <= int(f) < len(columns):
+            j = int(f)
+        else:
+            raise ValueError(f"The 'feature' parameter must name columns of X (names "
+                             f"{list(columns)} or indices 0..{len(columns) - 1}). Got {f!r} "
+                             f"instead.")
+        if j not in out:
+            out.append(j)
+    return out
+
+
+def slice_columns(model, chosen=None) -> list:
+    """Return the columns the effect report draws the effect along.
+
+    ``chosen`` (indices) as given; otherwise the model's correction columns, at most
+    ``EFFECT_SLICE_COLUMNS`` of them (the first ones), or column 0 when the correction
+    kept none.
+    """
+    if chosen is not None:
+        return list(chosen)
+    cols = [int(c) for c in np.asarray(model.correction_features_).tolist()]
+    return cols[:EFFECT_SLICE_COLUMNS] if cols else [0]
+
+
+def build_effect_report(X, y, treatment, *, model=None, probe=None, feature=None, title=None,
+                        level=0.95, verdict=True, progress=True,
+                        random_state=0) -> EffectReport:
     """Return the :class:`EffectReport` of a treatment-effect forest on ``(X, y, treatment)``.
 
     Parameters
@@ -131,6 +185,10 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
         fitted; the object passed stays unfitted).
     probe : the probe point: None (column medians), a sequence of d values, a Series or a
         dict column -> value (other columns at their medians).
+    feature : the column(s) the effect is drawn along, through the probe: None (the
+        correction columns, at most ``EFFECT_SLICE_COLUMNS``; column 0 when the
+        correction kept none), a column name or index, or a list of at most
+        ``EFFECT_SLICE_COLUMNS`` of them.
     title : page title (default "hedgerow effect report: <target>").
     level : interval level of the averages and of the effect at the probe.
     verdict : run ``diagnostics.effect_verdict`` (five cross-fitted folds of at most
@@ -152,6 +210,7 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
                         f"instead.")
     Xa, ya, columns, target, stand_in = check_report_data(X, y)
     w, binary = _check_treatment_column(treatment, Xa.shape[0])
+    chosen = _check_slice_features(feature, list(columns))
     anchor = D.probe_anchor(Xa)
     x = anchor if probe is None else D.check_probe_point(
         stand_in, probe_input(probe, columns, anchor))[0]
@@ -190,6 +249,17 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
                                   "interval": how}
             slopes = dict(zip(columns, map(float, model.local_slopes(q)[0]), strict=True))
             bar.update(1)
+            bar.set_postfix_str("effect along columns")
+            slices = {columns[j]: D.effect_slice(model, q, j, level=level)
+                      for j in slice_columns(model, chosen)}
+            oob_effects = np.asarray(model.oob_effect(), dtype=np.float64)
+            bar.update(1)
+            bar.set_postfix_str("figures")
+            from hedgerow.report._effect_figures import effect_figures
+
+            svgs = effect_figures(overlap, slices, oob_effects, model.X_train_, target,
+                                  held_out)
+            bar.update(1)
     finally:
         bar.close()
     data = DataSummary(n_rows=int(Xa.shape[0]), n_columns=int(Xa.shape[1]),
@@ -199,7 +269,8 @@ def build_effect_report(X, y, treatment, *, model=None, probe=None, title=None, 
         data=data, treatment="binary" if binary else "continuous", averages=averages,
         verdict=held_out, overlap=overlap,
         probe={c: float(v) for c, v in zip(columns, x, strict=True)},
-        at_probe=at_probe, slopes=slopes, settings=model.get_params(),
+        at_probe=at_probe, slopes=slopes, slices=slices, oob_effects=oob_effects,
+        figures=svgs, settings=model.get_params(),
         cautions=(EFFECT_CAUTION,) + EFFECT_REPORT_CAUTIONS, level=level,
         created=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         version=__version__, model=model,

@@ -4,7 +4,8 @@ nothing fetched, every text escaped, the caution first and last."""
 from __future__ import annotations
 
 from hedgerow import diagnostics as D
-from hedgerow.report._html import _e, _kv_table, _table, page
+from hedgerow.report._effect_figures import slice_figure_key
+from hedgerow.report._html import _e, _figure, _kv_table, _table, page
 from hedgerow.report._numbers import number
 
 __all__ = ["render_effect"]
@@ -12,6 +13,7 @@ __all__ = ["render_effect"]
 _HEADINGS = {
     "verdict": "Is the correction worth it? (held-out R-loss)",
     "average": "Average effect", "overlap": "Overlap of the arms", "probe": "At the probe",
+    "effect-along": "The effect along columns through the probe",
     "data": "Data", "settings": "Settings", "cautions": "Cautions",
 }
 
@@ -52,8 +54,28 @@ def _overlap_html(r) -> str:
             f"other.</p><p class='hr-note'>{_e(o.reading)}</p>"
             + _table(["arm", "rows", "min", "lower quartile", "median", "upper quartile",
                       "max"], rows, "hr-overlap")
+            + _figure(r.figures["overlap"], _overlap_caption(o))
             + "<h3>Rows per propensity bin</h3>"
             + _table(["propensity", *o.counts], bins, "hr-overlap-bins"))
+
+
+def _overlap_caption(o) -> str:
+    if not o.binary:
+        return ("Histogram of the fitted treatment mean e(x) over every row (continuous "
+                "treatment: there are no arms and no zone of weak overlap to mark).")
+    return (f"Histogram of the estimated propensity e(x) by arm on the same "
+            f"{len(o.edges) - 1} bins over [0, 1] (outline and light fill per arm; where the "
+            f"fills overlap both arms have rows). Shaded at both ends: propensity within "
+            f"{number(o.margin, 2)} of 0 or 1, where one arm has few comparable units; "
+            f"{number(int(o.flagged.sum()))} of {number(o.flagged.size)} rows fall there.")
+
+
+def _verdict_caption(v) -> str:
+    return (f"Each dot is the share of an alternative's held-out R-loss the corrected forest "
+            f"removes, for all rows, the edge band and the interior, with its "
+            f"{_pct(v.level)} interval as a bar (the numbers of the table above). Right of "
+            f"the vertical line at 0 the correction does better; a bar crossing it is no "
+            f"evidence either way.")
 
 
 def _verdict_html(r) -> str:
@@ -74,7 +96,8 @@ def _verdict_html(r) -> str:
             f"values out-of-bag), with {lvl} intervals. Edge band: rows with edge depth "
             f"below {number(D.EDGE_BAND, 2)}.</p>"
             + _table(["against", "all rows", "edge band", "interior"], rows,
-                     "hr-effect-verdict"))
+                     "hr-effect-verdict")
+            + _figure(r.figures["verdict"], _verdict_caption(v)))
 
 
 def _probe_html(r) -> str:
@@ -91,6 +114,34 @@ def _probe_html(r) -> str:
            "of each column, from the local linear correction.</p>",
            _table(["column", "probe", "slope of the effect"],
                   [[_e(c), number(r.probe[c]), number(s)] for c, s in r.slopes.items()])]
+    return "".join(out)
+
+
+def _along_caption(r, name, sl) -> str:
+    lvl = _pct(sl.level)
+    flat = ("" if sl.corrected_column else
+            f" The correction does not use {name} (it kept "
+            + (", ".join(r.data.columns[int(c)] for c in r.model.correction_features_)
+               or "no column") + "), so the corrected effect changes along it only through "
+            "the forest weights, as the uncorrected one does.")
+    return (f"The effect along {name} with every other column held at the probe "
+            f"(dotted vertical line): the local linear corrected forest (dark line) with its "
+            f"{lvl} interval ({sl.interval.replace('_', ' ')}; this interval is centred on "
+            f"its own local quadratic of the effect, not on the line, so the band need not "
+            f"be symmetric about it), and the same trees without the correction (stepped "
+            f"line). Faint points: the training rows' out-of-bag corrected effects at their "
+            f"own values of every column, so they scatter around the lines rather than on "
+            f"them.{flat} {r.cautions[0]}")
+
+
+def _along_html(r) -> str:
+    out = ["<p>Where the corrected and uncorrected lines part, the local linear correction "
+           "changes the reading; near the ends of a column the uncorrected forest's effect "
+           "can bend toward the interior, the bias the correction targets. The numbers "
+           "drawn are in the report object (<code>EffectReport.slices</code>).</p>"]
+    for i, (name, sl) in enumerate(r.slices.items()):
+        out.append(f"<h3>Along <code>{_e(name)}</code></h3>")
+        out.append(_figure(r.figures[slice_figure_key(i)], _along_caption(r, name, sl)))
     return "".join(out)
 
 
@@ -115,8 +166,8 @@ def _cautions_html(r) -> str:
 
 
 _BODIES = {"verdict": _verdict_html, "average": _average_html, "overlap": _overlap_html,
-           "probe": _probe_html, "data": _data_html, "settings": _settings_html,
-           "cautions": _cautions_html}
+           "probe": _probe_html, "effect-along": _along_html, "data": _data_html,
+           "settings": _settings_html, "cautions": _cautions_html}
 
 
 def render_effect(r) -> str:
@@ -128,5 +179,10 @@ def render_effect(r) -> str:
             f"hedgerow {_e(r.version)}. A static page: it opens offline and computes "
             f"nothing.")
     caution = f'<p class="hr-conclusion" id="effect-caution">{_e(r.cautions[0])}</p>'
+    if r.verdict is None:
+        caution += ('<p class="hr-note" id="effect-no-verdict">No held-out verdict was run '
+                    "for this report (verdict=False), so it has no verdict section or "
+                    "figure: whether the local linear correction of the effect is worth it "
+                    "was not checked on held-out rows.</p>")
     return page(r.title, r.version, meta, caution,
                 [(s, _HEADINGS[s]) for s in r.sections], body)

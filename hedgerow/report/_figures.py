@@ -20,7 +20,7 @@ from hedgerow._palette import ROW_COLOUR, colour_of, dash_of
 from hedgerow.report._content import LLF
 from hedgerow.report._numbers import number
 
-__all__ = ["figures", "line_style"]
+__all__ = ["figures", "line_style", "drawing", "RC"]
 
 #: matplotlib line styles for the palette's named dash patterns
 LINE_STYLES = {"solid": "-", "dashed": "--", "dash_dotted": "-.", "dotted": ":"}
@@ -74,17 +74,27 @@ def _svg(fig, prefix: str, title: str) -> str:
             f"{s[4:head]}<title id=\"{prefix}-title\">{label}</title>{s[head:]}")
 
 
+#: matplotlib settings of every report figure (both pages): text kept as text, a fixed
+#: hash salt (equal inputs give equal SVG), quiet axes.
+RC = {"svg.fonttype": "none", "svg.hashsalt": "hedgerow-report", "font.size": 9,
+      "font.family": ["sans-serif"], "axes.edgecolor": "#8a929c",
+      "axes.labelcolor": _INK, "xtick.color": "#4a525c", "ytick.color": "#4a525c",
+      "axes.spines.top": False, "axes.spines.right": False, "legend.frameon": False,
+      "path.simplify": True}
+
+
+def drawing():
+    """Return a context manager with the report's matplotlib settings (``RC``)."""
+    import matplotlib
+
+    return matplotlib.rc_context(RC)
+
+
 def figures(model, columns, target, j, slice_report, probe_report, edge_profile, weights):
     """Return ``{"slice", "edges", "neighbour_weights"}`` -> inline SVG markup."""
-    import matplotlib
     from matplotlib.figure import Figure
 
-    rc = {"svg.fonttype": "none", "svg.hashsalt": "hedgerow-report", "font.size": 9,
-          "font.family": ["sans-serif"], "axes.edgecolor": "#8a929c",
-          "axes.labelcolor": _INK, "xtick.color": "#4a525c", "ytick.color": "#4a525c",
-          "axes.spines.top": False, "axes.spines.right": False, "legend.frameon": False,
-          "path.simplify": True}
-    with matplotlib.rc_context(rc):
+    with drawing():
         return {
             "slice": _svg(_slice_figure(Figure, model, columns, target, j, slice_report,
                                         probe_report), "fig-slice",

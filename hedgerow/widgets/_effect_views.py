@@ -12,6 +12,7 @@ import bqplot as bq
 import ipywidgets as W
 import numpy as np
 
+from hedgerow._palette import ARM_COLOURS, EFFECT_COLOURS
 from hedgerow.widgets._base import held, plain_figure
 from hedgerow.widgets._style import PROBE_COLOUR, ROW_COLOUR, fmt, marker_scaling
 
@@ -19,8 +20,7 @@ __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplore
            "EFFECT_TAB_TITLES", "caution_html"]
 
 EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict")
-EFFECT_COLOUR = "#1d5fa8"
-ARM_COLOURS = {"untreated": "#e3891b", "treated": "#1d5fa8", "all rows": ROW_COLOUR}
+EFFECT_COLOUR = EFFECT_COLOURS["corrected forest"]
 
 
 def caution_html(caution) -> str:

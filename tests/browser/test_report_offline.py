@@ -40,8 +40,8 @@ if _MISSING:
 
 from playwright.sync_api import sync_playwright  # noqa: E402
 
-from hedgerow import LocalLinearForestRegressor  # noqa: E402
-from hedgerow.report import build_report, write_html  # noqa: E402
+from hedgerow import LocalLinearForestRegressor, TreatmentEffectForest  # noqa: E402
+from hedgerow.report import build_effect_report, build_report, write_html  # noqa: E402
 
 
 @pytest.fixture(scope="module")
@@ -148,6 +148,63 @@ def test_report_renders_offline(browser_context, saved):
         ARTIFACTS.mkdir(exist_ok=True)
         page.screenshot(path=str(ARTIFACTS / "report_offline_failure.png"), full_page=True)
         (ARTIFACTS / "report_offline_console.txt").write_text("\n".join(page.console_lines))
+        raise
+    finally:
+        page.close()
+
+
+@pytest.fixture(scope="module")
+def saved_effect(tmp_path_factory):
+    """A small effect report (invented data: a soil treatment on plots) saved to disk."""
+    rng = np.random.default_rng(9)
+    n = 300
+    X = pd.DataFrame({"slope <deg>": rng.uniform(0.0, 20.0, n),
+                      "clay & silt": rng.uniform(0.1, 0.6, n)})
+    w = (rng.random(n) < 0.5).astype(float)
+    y = 2.0 + 0.1 * X["slope <deg>"] + w * (1.0 + 0.08 * X["slope <deg>"]) \
+        + rng.normal(0.0, 0.5, n)
+    model = TreatmentEffectForest(n_estimators=200, random_state=1).fit(X, y.to_numpy(), w)
+    report = build_effect_report(X, y.to_numpy(), w, model=model, feature="slope <deg>",
+                                 title="Plots <offline effect check>", progress=False)
+    path = tmp_path_factory.mktemp("effect") / "plots.html"
+    write_html(report, path)
+    return report, path
+
+
+def test_effect_report_renders_offline(browser_context, saved_effect):
+    report, path = saved_effect
+    browser_context.attempted.clear()
+    page = _open(browser_context, path.as_uri())
+    try:
+        page.wait_for_timeout(300)
+        remote = [u for u in page.requested + browser_context.attempted
+                  if not u.startswith("file:")]
+        assert remote == [], f"the effect report asked the network for {remote}"
+        assert page.title() == "Plots <offline effect check>"
+        caution = page.locator("#effect-caution")
+        assert caution.is_visible()
+        figures = page.locator("svg.hr-figure")
+        assert figures.count() == len(report.figures) == 3  # overlap, slope, verdict
+        caution_top = caution.bounding_box()["y"]
+        for i in range(figures.count()):
+            fig = figures.nth(i)
+            fig.scroll_into_view_if_needed()
+            box = fig.bounding_box()
+            assert box and box["width"] > 300 and box["height"] > 120, (i, box)
+            assert fig.locator("path").count() > 5
+            assert page.evaluate("e => e.getBoundingClientRect().top + window.scrollY",
+                                 fig.element_handle()) > caution_top
+        along = page.locator("#effect-along svg").text_content()
+        assert "slope <deg>" in along and "corrected forest" in along
+        assert page.locator("#effect-along figcaption").first.is_visible()
+        errors = [c for c in page.console_lines if c.startswith("error")]
+        assert errors == [], errors
+        ARTIFACTS.mkdir(exist_ok=True)
+        page.screenshot(path=str(ARTIFACTS / "effect_report_offline.png"), full_page=True)
+    except Exception:
+        ARTIFACTS.mkdir(exist_ok=True)
+        page.screenshot(path=str(ARTIFACTS / "effect_report_offline_failure.png"),
+                        full_page=True)
         raise
     finally:
         page.close()

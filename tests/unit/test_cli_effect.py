@@ -46,8 +46,10 @@ def test_treatment_writes_the_effect_report(tmp_path, trial_csv, capsys):
     (["--treatment", "treated", "--features", "slope", "treated"],
      "cannot also be a feature"),
     (["--treatment", "treated", "--full"], "--full does not apply with --treatment"),
-    (["--treatment", "treated", "--feature", "slope", "--no-compare"],
-     "--feature, --no-compare do not apply"),
+    (["--treatment", "treated", "--coverage-reps", "2", "--no-compare"],
+     "--coverage-reps, --no-compare do not apply"),
+    (["--treatment", "treated", "--feature", "treated"],
+     "--feature column 'treated' not found in the feature columns"),
 ])
 def test_bad_treatment_arguments_are_one_line_and_exit_2(tmp_path, trial_csv, capsys, extra,
                                                          message):
@@ -71,3 +73,17 @@ def test_a_constant_treatment_is_refused(tmp_path, capsys):
                          "--quiet", "--out", str(tmp_path / "o.html")], capsys)
     assert code == cli.EXIT_USAGE and "single arm" in err
     assert not (tmp_path / "o.html").exists()
+
+
+def test_feature_picks_the_column_the_effect_figure_runs_along(tmp_path, trial_csv, capsys):
+    out = tmp_path / "effect.html"
+    code, _, _ = _run(["report", str(trial_csv), "--target", "yield", "--treatment",
+                       "treated", "--feature", "moisture", "--out", str(out), "--trees", "64",
+                       "--quiet"], capsys)
+    assert code == cli.EXIT_OK
+    page = out.read_text()
+    along = page[page.index('<section id="effect-along"'):]
+    along = along[:along.index("</section>")]
+    assert along.count('<svg class="hr-figure"') == 1
+    assert "<h3>Along <code>moisture</code></h3>" in along
+    assert "effect along moisture" in along
