@@ -177,6 +177,12 @@ def _warn_few_bags(n_estimators: int, trees_per_bag: int, stacklevel: int) -> No
 _MAX_AUTO_BAG = 32
 
 
+#: Training rows per block of the out-of-bag mean and standard error when the full
+#: out-of-bag leaves are not cached (``oob_local_average``): 16384 rows x 500 trees hold
+#: about 0.1 GB of leaf indices, mask and per-tree values.
+OOB_BLOCK_ROWS = 16384
+
+
 def bag_std(psi: np.ndarray, trees_per_bag: int) -> np.ndarray:
     """Return the little-bags standard error of the mean of ``psi`` along axis 1.
 
@@ -438,20 +444,52 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         return mean, bag_std(psi, self.trees_per_bag_)
 
     def oob_local_average(self, return_std=False):
-        """Return the out-of-bag forest-weighted mean of y at the training rows."""
+        """Return the out-of-bag forest-weighted mean of y at the training rows.
+
+        When the out-of-bag leaves are not cached already (another out-of-bag method
+        asked for them), the rows go in blocks of ``OOB_BLOCK_ROWS``: the leaf indices,
+        usable mask and per-tree values (n x trees each, 7 GB at a million rows and 500
+        trees) are never all held at once. Each row's numbers depend on its own trees
+        only, so the blocks give the same bits.
+        """
         check_is_fitted(self)
         if return_std:
             self._require_bags()
-        leaves, usable = self._oob_parts()
-        self._warn_unusable(usable.sum(axis=1), "training rows (out-of-bag)")
+        cache = self._fit_cache
+        if not return_std and "oob average" in cache:
+            return cache["oob average"].copy()
+        if "oob parts" in cache:
+            leaves, usable = cache["oob parts"]
+            n_used = usable.sum(axis=1)
+            out = self._predict_from_leaves(leaves, usable, return_std)
+        else:
+            n_used, out = self._oob_in_blocks(return_std)
+        self._warn_unusable(n_used, "training rows (out-of-bag)")
         if return_std:
-            mean, std = self._predict_from_leaves(leaves, usable, True)
+            mean, std = out
             self._warn_missing_std(mean, std, "training rows (out-of-bag)")
             return mean, std
-        cache = self._fit_cache
-        if "oob average" not in cache:
-            cache["oob average"] = self._predict_from_leaves(leaves, usable, False)
-        return cache["oob average"].copy()
+        cache["oob average"] = out
+        return out.copy()
+
+    def _oob_in_blocks(self, return_std):
+        """Return (usable trees per row, mean or (mean, std)) over blocks of training rows."""
+        X = self.X_train_
+        n = X.shape[0]
+        n_used = np.empty(n, dtype=np.int64)
+        mean = np.empty(n)
+        std = np.empty(n) if return_std else None
+        for a in range(0, n, OOB_BLOCK_ROWS):
+            b = min(n, a + OOB_BLOCK_ROWS)
+            leaves = self.forest_.apply(X[a:b], n_jobs=self._n_threads())
+            usable = ~self.forest_.inbag(np.arange(a, b))
+            n_used[a:b] = usable.sum(axis=1)
+            part = self._predict_from_leaves(leaves, usable, return_std)
+            if return_std:
+                mean[a:b], std[a:b] = part
+            else:
+                mean[a:b] = part
+        return n_used, ((mean, std) if return_std else mean)
 
     def local_average(self, X, return_std=False):
         """Return the forest-weighted mean of y at X (the honest forest's prediction).

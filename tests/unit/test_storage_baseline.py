@@ -53,3 +53,27 @@ def test_old_layout_pickle_loads_and_predicts_as_before(recorded):
     np.testing.assert_array_equal(est.forest_.inbag(np.arange(n)), recorded["layout1_inbag"])
     # converted to the compact layout on load: one row set per bag
     assert est.forest_.bag_ptr.shape[0] - 1 == est.forest_.n_trees // est.trees_per_bag_
+
+
+def test_out_of_bag_blocks_equal_the_whole_matrix(monkeypatch):
+    # The out-of-bag mean and little-bags standard error computed over blocks of rows
+    # (the default when the out-of-bag leaves are not cached) are the same bits as over
+    # the whole n x trees matrix: each row's numbers depend on its own trees only.
+    import hedgerow.estimators._forest as F
+    from hedgerow import HonestForestRegressor
+
+    rng = np.random.default_rng(41)
+    X = rng.uniform(size=(900, 4))
+    y = np.sin(4 * X[:, 0]) + X[:, 1] + rng.normal(scale=0.3, size=900)
+    monkeypatch.setattr(F, "OOB_BLOCK_ROWS", 97)  # blocks of uneven size, a short last one
+    blocked = HonestForestRegressor(n_estimators=256, random_state=2).fit(X, y)
+    mean_b, std_b = blocked.oob_predict(return_std=True)
+    plain_b = blocked.oob_predict()
+    assert "oob parts" not in blocked._fit_cache  # the blocks did not build the matrix
+    whole = HonestForestRegressor(n_estimators=256, random_state=2).fit(X, y)
+    whole._oob_parts()  # cached: the whole-matrix path
+    mean_w, std_w = whole.oob_predict(return_std=True)
+    assert np.array_equal(mean_b, mean_w, equal_nan=True)
+    assert np.array_equal(std_b, std_w, equal_nan=True)
+    assert np.array_equal(plain_b, whole.oob_predict(), equal_nan=True)
+    assert np.isfinite(std_b).mean() > 0.9  # the comparison is not between NaNs
