@@ -16,7 +16,7 @@ import numpy as np
 import traitlets as t
 
 from hedgerow.widgets._base import ProbeDrag, clamped, held, plain_figure
-from hedgerow.widgets._style import PROBE_COLOUR, ROW_COLOUR, fmt, marker_scaling
+from hedgerow.widgets._style import CSS, PROBE_COLOUR, ROW_COLOUR, fmt, marker_scaling
 
 __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplorer",
            "EFFECT_TAB_TITLES", "caution_html"]
@@ -43,6 +43,7 @@ class _EffectView(W.VBox):
 
         self.caution = W.HTML(caution_html(EFFECT_CAUTION))
         self.error_html = W.HTML()
+        self.error_html.add_class(CSS.error)  # the browser test looks for its text
 
     def _show_error(self, what, exc):
         self.error_html.value = (f"<div style='color:#8b1a1a'>{html.escape(what)} failed: "
@@ -90,7 +91,7 @@ class EffectProbeView(ProbeDrag, _EffectView):
         self.column_select.observe(self._on_column, names="value")
         xs, ys = bq.LinearScale(), bq.LinearScale()
         self.rows_mark = bq.Scatter(x=[0.0], y=[0.0], scales={"x": xs, "y": ys},
-                                    colors=[ROW_COLOUR], default_size=8, default_opacities=[0.3])
+                                    colors=[ROW_COLOUR], default_size=8, opacities=[0.3])
         self.neighbour_mark = bq.Scatter(x=[0.0], y=[0.0], scales={"x": xs, "y": ys},
                                          colors=[EFFECT_COLOUR], default_size=24)
         self.line_mark = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales={"x": xs, "y": ys},
