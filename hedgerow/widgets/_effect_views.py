@@ -45,6 +45,25 @@ class _EffectView(W.VBox):
         self.error_html = W.HTML()
         self.error_html.add_class(CSS.error)  # the browser test looks for its text
 
+    def figure_slot(self, figure):
+        """Return an empty box that ``on_shown`` fills with ``figure``.
+
+        A bqplot figure first laid out inside a hidden tab has no size: it drew
+        negative-size rectangles (console errors) and bars of no height. Put in when its
+        tab is first opened, it is laid out at its real size.
+        """
+        slot = W.Box(layout=W.Layout(width="100%"))
+        self._figure_slots = (*self._figure_slots, (slot, figure))
+        return slot
+
+    _figure_slots = ()
+
+    def on_shown(self):
+        """The explorer opened this view's tab: put its figures in their slots."""
+        for slot, figure in self._figure_slots:
+            if not slot.children:
+                slot.children = [figure]
+
     def _show_error(self, what, exc):
         self.error_html.value = (f"<div style='color:#8b1a1a'>{html.escape(what)} failed: "
                                  f"{html.escape(type(exc).__name__)}: "
@@ -257,8 +276,8 @@ class OverlapView(_EffectView):
         self.reading_html = W.HTML()
         self.children = [W.HTML("<b>overlap</b> <small>the estimated propensity of each "
                                 "training row, by arm (out-of-bag centring forest)</small>"),
-                         self.caution, self.error_html, self.figure, self.legend_html,
-                         self.reading_html]
+                         self.caution, self.error_html, self.figure_slot(self.figure),
+                         self.legend_html, self.reading_html]
         self.redraw()
 
     def redraw(self):
@@ -347,6 +366,14 @@ class EffectExplorer(W.Tab):
         super().__init__(children=[self.probe_view, self.overlap_view, self.verdict_view],
                          titles=EFFECT_TAB_TITLES)
         self.add_class("hedgerow-effect-explorer")
+        self.observe(self._on_tab_opened, "selected_index")
+        self._on_tab_opened()
+
+    def _on_tab_opened(self, change=None):
+        k = self.selected_index if self.selected_index is not None else 0
+        view = self.children[k]
+        if hasattr(view, "on_shown"):
+            view.on_shown()
 
     @property
     def views(self):

@@ -269,3 +269,17 @@ def test_verdict_settings_are_checked_before_any_fit(trial):
     assert (ex.session.verdict_folds, ex.session.verdict_fold_trees) == (2, 16)
     assert "2 cross-fitted folds" in ex.verdict_view.conclusion_html.value
     ex.close()
+
+
+def test_the_overlap_figure_is_put_in_when_its_tab_is_first_opened(explorer):
+    # laid out inside a hidden tab, the figure had no size: bars of no height
+    import ipywidgets as W
+
+    view = explorer.overlap_view
+    (slot,) = [c for c in view.children if type(c) is W.Box]
+    assert slot.children == () and view.figure not in view.children
+    explorer.selected_index = 1
+    assert slot.children == (view.figure,)
+    explorer.selected_index = 0
+    explorer.selected_index = 1
+    assert slot.children == (view.figure,)  # once
