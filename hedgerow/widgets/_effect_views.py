@@ -16,7 +16,14 @@ import numpy as np
 import traitlets as t
 
 from hedgerow.widgets._base import ProbeDrag, clamped, held, plain_figure
-from hedgerow.widgets._style import CSS, PROBE_COLOUR, ROW_COLOUR, fmt, marker_scaling
+from hedgerow.widgets._style import (
+    CSS,
+    PROBE_COLOUR,
+    ROW_COLOUR,
+    axis_top,
+    fmt,
+    marker_scaling,
+)
 
 __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplorer",
            "EFFECT_TAB_TITLES", "caution_html"]
@@ -289,9 +296,11 @@ class OverlapView(_EffectView):
             return None
         mids = (o.edges[:-1] + o.edges[1:]) / 2
         arms = list(o.counts)
+        counts = np.array([o.counts[a] for a in arms], dtype=float)
+        self.bars_mark.scales["y"].max = axis_top(counts)  # see axis_top: grouped bars
         with held(self.bars_mark):
             self.bars_mark.x = mids
-            self.bars_mark.y = np.array([o.counts[a] for a in arms], dtype=float)
+            self.bars_mark.y = counts
             self.bars_mark.colors = [ARM_COLOURS.get(a, ROW_COLOUR) for a in arms]
         self.legend_html.value = " ".join(
             f"<span style='color:{ARM_COLOURS.get(a, ROW_COLOUR)}'>&#9632;</span> "

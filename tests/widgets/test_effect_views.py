@@ -75,6 +75,9 @@ def test_overlap_view_draws_the_histogram_by_arm(explorer, trial):
     bars = np.asarray(explorer.overlap_view.bars_mark.y)
     assert bars.shape == (2, o.edges.size - 1)
     assert bars[1].sum() == int(w.sum()) and bars[0].sum() == int((w == 0).sum())
+    # the count axis reaches above the tallest bar (grouped bars do not widen it)
+    y_scale = explorer.overlap_view.bars_mark.scales["y"]
+    assert y_scale.min == 0 and bars.max() < y_scale.max <= 1.1 * bars.max()
     assert o.reading in explorer.overlap_view.reading_html.value.replace("&#x27;", "'")
 
 
