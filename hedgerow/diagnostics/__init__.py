@@ -8,9 +8,10 @@
   coverage and the difference at the probe, each with a one-line reading.
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
-- ``effect_probe``, ``overlap_profile``, ``effect_verdict``, ``effect_slice``: a
-  treatment-effect forest's effect at a point, the overlap of its arms, a held-out R-loss
-  verdict and the effect along one column (each with the effect caution).
+- ``effect_probe`` (``effect_probe_sketch``: its cheap part), ``overlap_profile``,
+  ``effect_verdict``, ``effect_slice``: a treatment-effect forest's effect at a point, the
+  overlap of its arms, a held-out R-loss verdict and the effect along one column (each
+  with the effect caution).
 - ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
   as much as their standard errors say?
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
@@ -25,9 +26,11 @@ from hedgerow.diagnostics._effect import (
     EFFECT_FOLD_TREES,
     EFFECT_METHODS,
     EffectProbe,
+    EffectSketch,
     EffectVerdict,
     OverlapProfile,
     effect_probe,
+    effect_probe_sketch,
     effect_verdict,
     interval_method,
     neighbourhood_difference,
@@ -79,6 +82,7 @@ from hedgerow.diagnostics._verdict import (
 __all__ = [
     "EFFECT_DECISIONS", "EFFECT_FOLD_TREES", "EFFECT_METHODS", "EffectProbe",
     "EffectVerdict", "OverlapProfile", "effect_probe", "effect_verdict",
+    "EffectSketch", "effect_probe_sketch",
     "neighbourhood_difference", "overlap_profile", "r_loss", "interval_method",
     "EffectCoverageReport",
     "effect_coverage_readout",

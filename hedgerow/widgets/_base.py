@@ -5,6 +5,7 @@ from __future__ import annotations
 import contextlib
 import html
 import logging
+import time
 
 import bqplot as bq
 import ipywidgets as W
@@ -13,12 +14,17 @@ import traitlets as t
 
 from hedgerow.widgets._style import CSS
 
-__all__ = ["FIGURE_MARGIN", "View", "held", "plain_figure"]
+__all__ = ["DRAG_SKETCH_INTERVAL", "FIGURE_MARGIN", "ProbeDrag", "View", "clamped",
+           "held", "plain_figure"]
 
 #: Margins (pixels) of the views' two-axis figures.
 FIGURE_MARGIN = {"top": 10, "bottom": 45, "left": 70, "right": 20}
 
 log = logging.getLogger("hedgerow.widgets")
+
+#: Least time (s) from one drawing to the next while a probe is dragged: drag events
+#: that arrive sooner are skipped, so a burst of them never delays the release's drawing.
+DRAG_SKETCH_INTERVAL = 0.05
 
 
 @contextlib.contextmanager
@@ -60,6 +66,42 @@ def plain_figure(marks, x_scale, y_scale, x_label, y_label, *, y_format=".3g",
               bq.Axis(scale=y_scale, orientation="vertical", label=y_label,
                       tick_format=y_format)],
         fig_margin=dict(margin or FIGURE_MARGIN), layout=W.Layout(width=width, height=height))
+
+
+def clamped(value, column) -> float:
+    """Return ``value`` as a float inside the range of the training ``column``'s values."""
+    return float(np.clip(value, np.min(column), np.max(column)))
+
+
+class ProbeDrag:
+    """The drag handlers of a probe marker moved along the x-axis (a bqplot ``Scatter``
+    with ``enable_move=True, restrict_x=True``; wire ``on_drag(self._on_probe_dragged)``
+    and ``on_drag_end(self._on_probe_moved)``).
+
+    A drag step draws only the cheap parts with the probe at the dragged value
+    (``sketch_probe(value)``, which sets the ``sketch_x`` trait), at most once per
+    ``DRAG_SKETCH_INTERVAL``; the release moves the probe (``move_probe(value)``, True
+    when the probe changed), and a release where the drag started redraws the view
+    (``_redraw()``) so the sketch goes. Failures are shown by ``_shown_errors(what)``.
+    """
+
+    _sketched_at = -np.inf
+
+    def _on_probe_dragged(self, mark, event):
+        """A drag step of the probe marker: draw the cheap parts there (throttled)."""
+        if time.perf_counter() - self._sketched_at < DRAG_SKETCH_INTERVAL:
+            return
+        with self._shown_errors("dragging the probe"):
+            self.sketch_probe(float(event["point"]["x"]))
+        self._sketched_at = time.perf_counter()
+
+    def _on_probe_moved(self, mark, event):
+        """Drag end of the probe marker: move the probe along the shown column."""
+        with self._shown_errors("moving the probe"):
+            moved = self.move_probe(float(event["point"]["x"]))
+            if self.sketch_x is not None and not moved:
+                self._redraw()  # released where it started: the sketch goes
+        self._sketched_at = -np.inf
 
 
 class View(W.VBox):

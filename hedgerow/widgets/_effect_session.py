@@ -37,6 +37,18 @@ class EffectSession(t.HasTraits):
         super().__init__()
         from hedgerow.estimators import TreatmentEffectForest
 
+        # checked before any fit: a bad value would otherwise only show when
+        # the verdict is asked for, under the diagnostics function's own parameter name
+        for name, value, none_ok in (("verdict_folds", verdict_folds, False),
+                                     ("verdict_fold_trees", verdict_fold_trees, True)):
+            if value is None and none_ok:
+                continue
+            if isinstance(value, bool) or not isinstance(value, int | np.integer) or \
+                    value < 2:
+                allowed = "None or an integer >= 2" if none_ok else "an integer >= 2"
+                raise ValueError(f"The '{name}' parameter must be {allowed}. Got {value!r} "
+                                 f"instead.")
+
         if model is None:
             params = {"n_estimators": 256, "random_state": random_state, **forest_params}
             model = TreatmentEffectForest(**params).fit(X, y, treatment)
@@ -83,6 +95,17 @@ class EffectSession(t.HasTraits):
     def probe_report(self, level=0.95):
         """Return ``effect_probe`` at the current probe and column."""
         return D.effect_probe(self.model, self.probe, feature=self.feature, level=level)
+
+    def probe_sketch(self, value):
+        """Return ``effect_probe_sketch`` with the probe's shown column at ``value``.
+
+        The weights, the corrected effect and the local effect line there, the probe's
+        other coordinates as they are; ``probe`` does not change. Not cached: drawn while
+        the probe is dragged, each point once.
+        """
+        x = np.array(self.probe, dtype=np.float64)
+        x[self.feature] = float(value)
+        return D.effect_probe_sketch(self.model, x, feature=self.feature)
 
     def oob_effects(self):
         """Return the training rows' out-of-bag effects (computed once)."""

@@ -6,21 +6,33 @@ computes a statistic. Every view shows the effect caution at its top.
 
 from __future__ import annotations
 
+import contextlib
 import html
+import logging
 
 import bqplot as bq
 import ipywidgets as W
 import numpy as np
+import traitlets as t
 
 from hedgerow._palette import ARM_COLOURS, EFFECT_COLOURS
-from hedgerow.widgets._base import held, plain_figure
-from hedgerow.widgets._style import PROBE_COLOUR, ROW_COLOUR, fmt, marker_scaling
+from hedgerow.widgets._base import ProbeDrag, clamped, held, plain_figure
+from hedgerow.widgets._style import (
+    CSS,
+    PROBE_COLOUR,
+    ROW_COLOUR,
+    axis_top,
+    fmt,
+    marker_scaling,
+)
 
 __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplorer",
            "EFFECT_TAB_TITLES", "caution_html"]
 
 EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict")
 EFFECT_COLOUR = EFFECT_COLOURS["corrected forest"]
+
+log = logging.getLogger("hedgerow.widgets")
 
 
 def caution_html(caution) -> str:
@@ -38,15 +50,53 @@ class _EffectView(W.VBox):
 
         self.caution = W.HTML(caution_html(EFFECT_CAUTION))
         self.error_html = W.HTML()
+        self.error_html.add_class(CSS.error)  # the browser test looks for its text
+
+    def figure_slot(self, figure):
+        """Return an empty box that ``on_shown`` fills with ``figure``.
+
+        A bqplot figure first laid out inside a hidden tab has no size: it drew
+        negative-size rectangles (console errors) and bars of no height. Put in when its
+        tab is first opened, it is laid out at its real size.
+        """
+        slot = W.Box(layout=W.Layout(width="100%"))
+        self._figure_slots = (*self._figure_slots, (slot, figure))
+        return slot
+
+    _figure_slots = ()
+
+    def on_shown(self):
+        """The explorer opened this view's tab: put its figures in their slots."""
+        for slot, figure in self._figure_slots:
+            if not slot.children:
+                slot.children = [figure]
 
     def _show_error(self, what, exc):
         self.error_html.value = (f"<div style='color:#8b1a1a'>{html.escape(what)} failed: "
                                  f"{html.escape(type(exc).__name__)}: "
                                  f"{html.escape(str(exc))}</div>")
 
+    @contextlib.contextmanager
+    def _shown_errors(self, what):
+        """Catch an exception of a front-end callback: log it and show it in the view."""
+        try:
+            yield
+        except Exception as exc:
+            log.exception("%s failed", what)
+            self._show_error(what, exc)
 
-class EffectProbeView(_EffectView):
-    """Sliders move the probe; the readout and figure show the effect there."""
+
+class EffectProbeView(ProbeDrag, _EffectView):
+    """Sliders or a drag of the diamond move the probe; the readout and figure follow.
+
+    While the diamond is dragged along the x-axis only the neighbours and the local effect
+    line follow it (``sketch_probe``, from ``EffectSession.probe_sketch``); the interval,
+    readout, overlap note and sliders follow on release (``move_probe``).
+    """
+
+    sketch_x = t.Float(None, allow_none=True,
+                       help="Where the dragged probe's neighbours and line are drawn (None: "
+                            "the figure shows the session's probe).")
 
     def __init__(self, session, **kwargs):
         super().__init__(session, **kwargs)
@@ -62,11 +112,12 @@ class EffectProbeView(_EffectView):
                                description=str(c), continuous_update=False,
                                readout_format=".3g")
             sl.observe(self._on_slider, names="value")
+            sl.add_class("hedgerow-effect-slider")
             self.sliders.append(sl)
         self.column_select.observe(self._on_column, names="value")
         xs, ys = bq.LinearScale(), bq.LinearScale()
         self.rows_mark = bq.Scatter(x=[0.0], y=[0.0], scales={"x": xs, "y": ys},
-                                    colors=[ROW_COLOUR], default_size=8, default_opacities=[0.3])
+                                    colors=[ROW_COLOUR], default_size=8, opacities=[0.3])
         self.neighbour_mark = bq.Scatter(x=[0.0], y=[0.0], scales={"x": xs, "y": ys},
                                          colors=[EFFECT_COLOUR], default_size=24)
         self.line_mark = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales={"x": xs, "y": ys},
@@ -74,17 +125,23 @@ class EffectProbeView(_EffectView):
         self.interval_mark = bq.Lines(x=[0.0, 0.0], y=[0.0, 0.0], scales={"x": xs, "y": ys},
                                       colors=[PROBE_COLOUR], stroke_width=2)
         self.probe_mark = bq.Scatter(x=[0.0], y=[0.0], scales={"x": xs, "y": ys},
-                                     colors=[PROBE_COLOUR], marker="diamond", default_size=90)
-        self.figure = plain_figure(
+                                     colors=[PROBE_COLOUR], marker="diamond", default_size=90,
+                                     enable_move=True, restrict_x=True,
+                                     tooltip=bq.Tooltip(fields=["x"], formats=[".3g"]))
+        self.probe_mark.on_drag(self._on_probe_dragged)
+        self.probe_mark.on_drag_end(self._on_probe_moved)
+        self.figure = plain_figure(  # probe last: the last path.dot in the DOM
             [self.rows_mark, self.neighbour_mark, self.line_mark, self.interval_mark,
              self.probe_mark], xs, ys, str(s.columns[s.feature]), "effect", height="300px")
+        self.figure.add_class("hedgerow-effect-probe-figure")
         self.readout_html = W.HTML()
+        self.readout_html.add_class("hedgerow-effect-probe-readout")
         self.overlap_html = W.HTML()
         self.children = [
             W.HTML("<b>effect probe</b> <small>grey: out-of-bag effect of each training row; "
                    "blue: the probe's forest neighbours (darker: more weight); black: the local "
                    "effect line; diamond: the corrected effect at the probe with its "
-                   "interval</small>"),
+                   "interval (drag it along the x-axis)</small>"),
             self.caution, self.error_html, self.column_select,
             W.HBox([self.figure, W.VBox(self.sliders)]), self.readout_html,
             self.overlap_html]
@@ -93,10 +150,57 @@ class EffectProbeView(_EffectView):
 
     def _on_slider(self, change):
         j = self.sliders.index(change["owner"])
+        with self._shown_errors("moving the probe"):
+            self._move(j, change["new"])
+
+    def sketch_probe(self, value):
+        """Draw the neighbours and the local effect line with the probe at ``value``.
+
+        ``value`` is in the shown column (clamped to the data), the other coordinates are
+        the probe's. From ``EffectSession.probe_sketch``; the session's probe, the
+        interval (hidden meanwhile), the readout and the sliders wait for ``move_probe``.
+        """
+        s = self._session
+        j = s.feature
+        sk = s.probe_sketch(clamped(value, s.model.X_train_[:, j]))
+        with held(self.neighbour_mark, self.line_mark, self.interval_mark):
+            self._draw_neighbours(sk.weights, j)
+            self.line_mark.x, self.line_mark.y = sk.line_x, sk.line_effect
+            self.interval_mark.visible = False
+        self.sketch_x = float(sk.x[j])
+
+    def move_probe(self, value):
+        """Put the probe's value in the shown column at ``value`` (clamped to the data).
+
+        Returns True when the probe moved. A failure (of the move or of its drawing) is
+        raised with the probe back where it was and drawn there.
+        """
+        s = self._session
+        j = s.feature
+        target = clamped(value, s.model.X_train_[:, j])
+        if target == s.probe[j]:
+            return False
+        self._move(j, target)
+        return True
+
+    _draw_failure = None
+
+    def _move(self, j, value):
+        """Set the probe's column ``j`` to ``value``; on failure put the probe back, raise."""
+        s = self._session
+        before = np.array(s.probe, dtype=np.float64)
+        self._draw_failure = None
         try:
-            self._session.set_probe_value(j, change["new"])
-        except Exception as exc:
-            self._show_error("moving the probe", exc)
+            s.set_probe_value(j, value)  # the session's observers redraw
+            if self._draw_failure is not None:
+                raise self._draw_failure
+        except Exception:
+            s.probe = before
+            self.redraw()  # drawn again where it was: diamond, sliders, no sketch
+            raise
+
+    def _redraw(self):
+        self.redraw()
 
     def _on_column(self, change):
         self._session.feature = int(change["new"])
@@ -110,6 +214,7 @@ class EffectProbeView(_EffectView):
         try:
             p = s.probe_report()
         except Exception as exc:
+            self._draw_failure = exc
             self._show_error("the effect probe", exc)
             return None
         self.error_html.value = ""
@@ -117,19 +222,17 @@ class EffectProbeView(_EffectView):
         X = s.model.X_train_
         oob = s.oob_effects()
         ok = np.isfinite(oob)
-        has = p.weights > 0
-        _, opacity = marker_scaling(p.weights[has])
         m = p.methods.loc["corrected forest"]
         with held(self.rows_mark, self.neighbour_mark, self.line_mark, self.interval_mark,
                   self.probe_mark):
             self.rows_mark.x, self.rows_mark.y = X[ok, j], oob[ok]
-            nb = has & ok
-            self.neighbour_mark.x, self.neighbour_mark.y = X[nb, j], oob[nb]
-            self.neighbour_mark.opacities = [float(o) for o in opacity[ok[has]]]
+            self._draw_neighbours(p.weights, j)
             self.line_mark.x, self.line_mark.y = p.line_x, p.line_effect
             self.interval_mark.x = [p.x[j], p.x[j]]
             self.interval_mark.y = [m["lower"], m["upper"]]
+            self.interval_mark.visible = True
             self.probe_mark.x, self.probe_mark.y = [p.x[j]], [m["effect"]]
+        self.sketch_x = None
         self.figure.axes[0].label = str(s.columns[j])
         if self.column_select.value != j:
             self.column_select.value = j
@@ -154,6 +257,17 @@ class EffectProbeView(_EffectView):
                                    f"{html.escape(p.overlap_note())}</p>")
         return p
 
+    def _draw_neighbours(self, weights, j):
+        """The rows with weight (and an out-of-bag effect), opacity growing with weight."""
+        X = self._session.model.X_train_
+        oob = self._session.oob_effects()
+        ok = np.isfinite(oob)
+        has = weights > 0
+        _, opacity = marker_scaling(weights[has])
+        nb = has & ok
+        self.neighbour_mark.x, self.neighbour_mark.y = X[nb, j], oob[nb]
+        self.neighbour_mark.opacities = [float(o) for o in opacity[ok[has]]]
+
 
 class OverlapView(_EffectView):
     """The propensity by arm on shared bins, and the reading."""
@@ -169,8 +283,8 @@ class OverlapView(_EffectView):
         self.reading_html = W.HTML()
         self.children = [W.HTML("<b>overlap</b> <small>the estimated propensity of each "
                                 "training row, by arm (out-of-bag centring forest)</small>"),
-                         self.caution, self.error_html, self.figure, self.legend_html,
-                         self.reading_html]
+                         self.caution, self.error_html, self.figure_slot(self.figure),
+                         self.legend_html, self.reading_html]
         self.redraw()
 
     def redraw(self):
@@ -182,9 +296,11 @@ class OverlapView(_EffectView):
             return None
         mids = (o.edges[:-1] + o.edges[1:]) / 2
         arms = list(o.counts)
+        counts = np.array([o.counts[a] for a in arms], dtype=float)
+        self.bars_mark.scales["y"].max = axis_top(counts)  # see axis_top: grouped bars
         with held(self.bars_mark):
             self.bars_mark.x = mids
-            self.bars_mark.y = np.array([o.counts[a] for a in arms], dtype=float)
+            self.bars_mark.y = counts
             self.bars_mark.colors = [ARM_COLOURS.get(a, ROW_COLOUR) for a in arms]
         self.legend_html.value = " ".join(
             f"<span style='color:{ARM_COLOURS.get(a, ROW_COLOUR)}'>&#9632;</span> "
@@ -259,6 +375,14 @@ class EffectExplorer(W.Tab):
         super().__init__(children=[self.probe_view, self.overlap_view, self.verdict_view],
                          titles=EFFECT_TAB_TITLES)
         self.add_class("hedgerow-effect-explorer")
+        self.observe(self._on_tab_opened, "selected_index")
+        self._on_tab_opened()
+
+    def _on_tab_opened(self, change=None):
+        k = self.selected_index if self.selected_index is not None else 0
+        view = self.children[k]
+        if hasattr(view, "on_shown"):
+            view.on_shown()
 
     @property
     def views(self):

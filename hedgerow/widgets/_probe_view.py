@@ -3,14 +3,13 @@
 from __future__ import annotations
 
 import html
-import time
 
 import bqplot as bq
 import ipywidgets as W
 import numpy as np
 import traitlets as t
 
-from hedgerow.widgets._base import View, held
+from hedgerow.widgets._base import ProbeDrag, View, clamped, held
 from hedgerow.widgets._style import (
     CSS,
     PROBE_COLOUR,
@@ -31,12 +30,8 @@ CELL = "padding:2px 18px 2px 0"
 #: Significant digits the coordinate boxes show (the probe keeps full precision).
 COORD_DIGITS = 4
 
-#: Least time (s) from one drawing to the next while the probe is dragged: drag events
-#: that arrive sooner are skipped, so a burst of them never delays the release's drawing.
-DRAG_SKETCH_INTERVAL = 0.05
 
-
-class ProbeView(View):
+class ProbeView(ProbeDrag, View):
     """Training rows against one column, weighted at the probe, with every method's slice.
 
     Drag the black triangle along the x-axis to move the probe; click a row to put the
@@ -169,26 +164,7 @@ class ProbeView(View):
         self._panel = W.GridBox(self._coord_boxes, layout=W.Layout(
             grid_template_columns="repeat(3, 310px)"))
 
-    # -- front-end and trait handlers --------------------------------------------------
-    _sketched_at = -np.inf
-
-    def _on_probe_dragged(self, mark, event):
-        """A drag step of the probe marker: draw the cheap parts there (throttled)."""
-        if time.perf_counter() - self._sketched_at < DRAG_SKETCH_INTERVAL:
-            return
-        with self._shown_errors("dragging the probe"):
-            self.sketch_probe(float(event["point"]["x"]))
-        self._sketched_at = time.perf_counter()
-
-    def _on_probe_moved(self, mark, event):
-        """Drag end of the probe marker: move the probe along the column."""
-        with self._shown_errors("moving the probe"):
-            before = list(self.probe_x)
-            self.move_probe(float(event["point"]["x"]))
-            if self.sketch_x is not None and self.probe_x == before:
-                self._redraw()  # released where it started: the sketch goes
-        self._sketched_at = -np.inf
-
+    # -- front-end and trait handlers (the drag handlers are ProbeDrag's) -----------------
     def sketch_probe(self, value):
         """Draw the neighbour weights and the local line with the probe at ``value``.
 
@@ -203,7 +179,7 @@ class ProbeView(View):
         j = self._names.index(self.feature)
         col = s.X_train[:, j]
         x = list(self.probe_x)
-        x[j] = float(np.clip(value, col.min(), col.max()))
+        x[j] = clamped(value, col)
         rep = s.probe_sketch(x)
         size, opacity = marker_scaling(rep.weights.toarray().ravel()[self._rows])
         lx, ly = local_line(rep, j, None, within=neighbourhood_span(rep, s.X_train, j),
@@ -252,12 +228,16 @@ class ProbeView(View):
     _syncing = False
 
     def move_probe(self, value):
-        """Put the probe's coordinate in the shown column at ``value`` (clamped to the data)."""
+        """Put the probe's coordinate in the shown column at ``value`` (clamped to the data).
+
+        Returns True when the probe moved.
+        """
         j = self._names.index(self.feature)
-        col = self._session.X_train[:, j]
         x = list(self.probe_x)
-        x[j] = float(np.clip(value, col.min(), col.max()))
+        x[j] = clamped(value, self._session.X_train[:, j])
+        before = list(self.probe_x)
         self.probe_x = x
+        return self.probe_x != before
 
     @t.validate("feature")
     def _check_feature(self, proposal):

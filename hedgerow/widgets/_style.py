@@ -11,7 +11,8 @@ from hedgerow._format import format_number
 from hedgerow._palette import METHOD_COLOURS, METHOD_DASHES, ROW_COLOUR, colour_of, dash_of
 
 __all__ = ["METHOD_COLOURS", "METHOD_DASHES", "ROW_COLOUR", "colour_of", "dash_of",
-           "marker_scaling", "display_rows", "DISPLAY_LIMIT", "CSS", "swatch", "fmt"]
+           "marker_scaling", "display_rows", "DISPLAY_LIMIT", "CSS", "swatch", "fmt",
+           "axis_top"]
 
 PROBE_COLOUR = "#111111"  # near black: the probe marker
 HIGHLIGHT_COLOUR = "#111111"
@@ -60,6 +61,18 @@ def marker_scaling(weights, *, floor=0.04, opacity_floor=0.12):
     size = floor + (1.0 - floor) * share
     opacity = opacity_floor + (1.0 - opacity_floor) * np.sqrt(share)
     return size, opacity
+
+
+def axis_top(values, *, pad=0.08) -> float:
+    """Return the top of a count axis starting at 0: the largest value plus ``pad`` of it.
+
+    Pure presentation. Grouped bqplot bars do not widen their y scale to the data
+    (bqplot 0.13's front end reads a field its grouped bars never set: the scale's domain
+    stays at the base, every bar has no height), so their scale gets this as ``max``.
+    """
+    v = np.asarray(values, dtype=np.float64)
+    top = float(np.nanmax(v)) if v.size and np.isfinite(v).any() else 0.0
+    return top * (1.0 + pad) if top > 0 else 1.0
 
 
 def display_rows(n: int, limit: int = DISPLAY_LIMIT) -> np.ndarray:

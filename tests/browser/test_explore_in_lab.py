@@ -9,195 +9,23 @@ from __future__ import annotations
 import importlib.util
 import json
 import os
-import secrets
-import shutil
-import socket
-import subprocess
-import sys
 import time
 import urllib.request
-from pathlib import Path
 
 import numpy as np
 import pytest
+from _lab import ARTIFACTS, ROOT, skip_unless_ready
+from _lab import drag as _drag
+from _lab import read_record as _read_record
+from _lab import save_failure as _save_failure
+from _lab import settled as _settled
+from _lab import wait_for_kernel as _wait_for_kernel
+from _lab import wait_until as _wait_until
 
-ROOT = Path(__file__).resolve().parents[2]
+skip_unless_ready(pytest)
+
 NOTEBOOK = ROOT / "notebooks" / "explore_smoke.ipynb"
-ARTIFACTS = Path(__file__).resolve().parent / "artifacts"
-CHROMIUM = os.environ.get("HEDGEROW_CHROMIUM", "/usr/bin/chromium")
-CHROMIUM_FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
-                  "--disable-component-update", "--disable-sync", "--no-first-run",
-                  "--disable-dev-shm-usage"]
-
-
-def _missing():
-    out = [m for m in ("playwright", "jupyterlab", "ipywidgets", "bqplot", "ipykernel")
-           if importlib.util.find_spec(m) is None]
-    if not Path(CHROMIUM).exists():
-        out.append(f"chromium at {CHROMIUM}")
-    return out
-
-
-_MISSING = _missing()
-if _MISSING:
-    reason = f"browser test needs {', '.join(_MISSING)} (install the test extra and chromium)"
-    if os.environ.get("CI", "").lower() == "true":
-        raise RuntimeError(f"CI=true but {reason}")
-    pytest.skip(reason, allow_module_level=True)
-
-from playwright.sync_api import sync_playwright  # noqa: E402
-
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
-
-def _free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-def _write_settings(settings_dir: Path):
-    for rel, body in (
-        ("@jupyterlab/notebook-extension/tracker.jupyterlab-settings",
-         {"autoStartDefaultKernel": True}),
-        ("@jupyterlab/apputils-extension/notification.jupyterlab-settings",
-         {"fetchNews": "false", "checkForUpdates": False}),
-    ):
-        path = settings_dir / rel
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text(json.dumps(body))
-
-
-@pytest.fixture(scope="module")
-def lab(tmp_path_factory):
-    """A JupyterLab server on a free loopback port with every Jupyter dir isolated."""
-    base = tmp_path_factory.mktemp("lab")
-    root = base / "root"
-    root.mkdir()
-    shutil.copy(NOTEBOOK, root / NOTEBOOK.name)
-    record = base / "record.json"
-    env = dict(os.environ)
-    for var, sub in (("JUPYTER_CONFIG_DIR", "config"), ("JUPYTER_RUNTIME_DIR", "runtime"),
-                     ("JUPYTERLAB_SETTINGS_DIR", "settings"),
-                     ("JUPYTERLAB_WORKSPACES_DIR", "workspaces")):
-        (base / sub).mkdir()
-        env[var] = str(base / sub)
-    _write_settings(base / "settings")
-    env["HEDGEROW_BROWSER_RECORD"] = str(record)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    port, token = _free_port(), secrets.token_hex(16)
-    log = open(base / "server.log", "w")
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "jupyter", "lab", "--no-browser", "--ServerApp.ip=127.0.0.1",
-         f"--ServerApp.port={port}", "--ServerApp.port_retries=0",
-         f"--IdentityProvider.token={token}", f"--ServerApp.root_dir={root}",
-         "--ServerApp.allow_root=True",
-         "--LabApp.check_for_updates_class=jupyterlab.NeverCheckForUpdate",
-         "--LabApp.news_url=None", "--LabApp.expose_app_in_browser=True"],
-        env=env, stdout=log, stderr=subprocess.STDOUT, cwd=root)
-    url = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + 45
-    while True:
-        try:
-            with urllib.request.urlopen(f"{url}/api/status?token={token}", timeout=2):
-                break
-        except OSError:
-            if proc.poll() is not None or time.monotonic() > deadline:
-                proc.terminate()
-                raise RuntimeError("JupyterLab did not start: "
-                                   + (base / "server.log").read_text()[-2000:]) from None
-            time.sleep(0.3)
-    yield {"url": url, "token": token, "record": record, "log": base / "server.log",
-           "root": root}
-    proc.terminate()
-    try:
-        proc.wait(timeout=15)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-    log.close()
-
-
-@pytest.fixture(scope="module")
-def page(lab, tmp_path_factory):
-    """One headless Chromium page (fresh profile) for the module, console captured."""
-    with sync_playwright() as p:
-        ctx = p.chromium.launch_persistent_context(
-            str(tmp_path_factory.mktemp("profile")), executable_path=CHROMIUM,
-            headless=True, args=CHROMIUM_FLAGS, viewport={"width": 1400, "height": 1000})
-        pg = ctx.pages[0] if ctx.pages else ctx.new_page()
-        pg.console_lines = []
-        pg.on("console", lambda m: pg.console_lines.append(f"{m.type}: {m.text}"))
-        yield pg
-        ctx.close()
-
-
-KERNEL_READY = """() => {
-  const w = window.jupyterapp && window.jupyterapp.shell.currentWidget;
-  const k = w && w.sessionContext && w.sessionContext.session
-            && w.sessionContext.session.kernel;
-  return k && k.connectionStatus === 'connected' && k.status === 'idle' ? k.id : null;
-}"""
-
-
-def _wait_for_kernel(page, timeout=60):
-    """Wait until the same connected, idle kernel is seen twice a second apart."""
-    from playwright.sync_api import Error as PlaywrightError
-
-    deadline = time.monotonic() + timeout
-    last = None
-    while time.monotonic() < deadline:
-        try:
-            kid = page.evaluate(KERNEL_READY)
-        except PlaywrightError as exc:
-            # JupyterLab may still be navigating (a workspace redirect right after the
-            # first load destroys the page's context); poll the new page instead
-            if "Execution context was destroyed" not in str(exc):
-                raise
-            kid = None
-        if kid and kid == last:
-            return kid
-        last = kid
-        time.sleep(1.0)
-    raise TimeoutError("the notebook's kernel never became connected and idle")
-
-
-def _read_record(path):
-    try:
-        return json.loads(Path(path).read_text())
-    except (OSError, ValueError):
-        return None
-
-
-def _wait_until(fn, timeout, what):
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        value = fn()
-        if value:
-            return value
-        time.sleep(0.1)
-    raise TimeoutError(f"timed out after {timeout} s waiting for {what}")
-
-
-def _settled(page, locator, pause=0.5):
-    """True once ``locator`` is on screen and its box is the same ``pause`` s apart."""
-    if locator.count() == 0:
-        return False
-    locator.scroll_into_view_if_needed()
-    first = locator.bounding_box()
-    time.sleep(pause)
-    return bool(first) and first["width"] > 0 and locator.bounding_box() == first
-
-
-def _drag(page, handle, dx):
-    handle.scroll_into_view_if_needed()
-    box = handle.bounding_box()
-    x, y = box["x"] + box["width"] / 2, box["y"] + box["height"] / 2
-    page.mouse.move(x, y)
-    page.mouse.down()
-    for k in range(1, 11):
-        page.mouse.move(x + dx * k / 10, y)
-    page.mouse.up()
-    return time.perf_counter()
 
 
 # Mouse-up to readout change, timed inside the page (performance.now): a capture
@@ -239,15 +67,6 @@ def _notes_on_screen(page):
     return [n.inner_text() for n in page.locator(
         ".hedgerow-saved-output, .hedgerow-saved-note").all()
         if (n.bounding_box() or {}).get("height", 0) > 1]
-
-
-def _save_failure(page, name):
-    ARTIFACTS.mkdir(exist_ok=True)
-    page.screenshot(path=str(ARTIFACTS / f"{name}-failure.png"), full_page=True)
-    (ARTIFACTS / f"{name}-console.log").write_text("\n".join(page.console_lines))
-    html = page.evaluate("() => Array.from(document.querySelectorAll('.jp-OutputArea'))"
-                         ".map(e => e.innerHTML).join('\\n')")
-    (ARTIFACTS / f"{name}-output.html").write_text(html)
 
 
 def test_drag_probe_and_ridge_slider_update_the_readouts(lab, page):

@@ -158,3 +158,25 @@ def test_the_uncorrected_row_gets_its_own_interval(trial):
     p = D.effect_probe(trial[3], [0.9, 0.0, 0.0])
     c, u = p.methods.loc["corrected forest"], p.methods.loc["uncorrected forest"]
     assert (c["lower"], c["upper"]) != (u["lower"], u["upper"])
+
+
+def test_the_sketch_is_the_probe_without_its_intervals(trial):
+    X, y, w, m = trial
+    x = [0.7, -0.3, 0.2]
+    p = D.effect_probe(m, x, feature=1)
+    s = D.effect_probe_sketch(m, x, feature="x1")
+    assert s.feature == 1 and s.columns == p.columns
+    np.testing.assert_array_equal(s.weights, p.weights)
+    assert s.ess == p.ess
+    assert s.effect == p.methods.loc["corrected forest", "effect"]
+    np.testing.assert_array_equal(s.slopes, p.slopes)
+    np.testing.assert_array_equal(s.line_x, p.line_x)
+    np.testing.assert_array_equal(s.line_effect, p.line_effect)
+    # the line runs through the effect at the probe's coordinate in the line's column
+    assert np.interp(x[1], s.line_x, s.line_effect) == pytest.approx(s.effect, rel=1e-12)
+    assert s.caution == EFFECT_CAUTION
+    assert repr(s).endswith(EFFECT_CAUTION) and EFFECT_CAUTION in s._repr_html_()
+    with pytest.raises(TypeError, match="'model'"):
+        D.effect_probe_sketch(object(), x)
+    with pytest.raises(Exception, match="column|feature"):
+        D.effect_probe_sketch(m, x, feature=9)

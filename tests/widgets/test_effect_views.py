@@ -75,6 +75,9 @@ def test_overlap_view_draws_the_histogram_by_arm(explorer, trial):
     bars = np.asarray(explorer.overlap_view.bars_mark.y)
     assert bars.shape == (2, o.edges.size - 1)
     assert bars[1].sum() == int(w.sum()) and bars[0].sum() == int((w == 0).sum())
+    # the count axis reaches above the tallest bar (grouped bars do not widen it)
+    y_scale = explorer.overlap_view.bars_mark.scales["y"]
+    assert y_scale.min == 0 and bars.max() < y_scale.max <= 1.1 * bars.max()
     assert o.reading in explorer.overlap_view.reading_html.value.replace("&#x27;", "'")
 
 
@@ -113,3 +116,173 @@ def test_bad_input_is_named(trial):
     s = EffectSession(X, y, w, model=m)
     with pytest.raises(Exception, match="column|feature"):
         s.feature = 7
+
+
+def drag_step(view, x):
+    view._on_probe_dragged(view.probe_mark, {"event": "drag", "point": {"x": x, "y": 0.0},
+                                             "origin": {"x": 0.0, "y": 0.0}, "index": 0})
+
+
+def release(view, x):
+    view._on_probe_moved(view.probe_mark, {"event": "drag_end", "point": {"x": x, "y": 0.0},
+                                           "index": 0})
+
+
+def expected_neighbours(session, weights, j):
+    """The neighbour mark's points and opacities for these weights (from the diagnostics)."""
+    from hedgerow.widgets._style import marker_scaling
+
+    oob = session.oob_effects()
+    has, ok = weights > 0, np.isfinite(oob)
+    _, opacity = marker_scaling(weights[has])
+    X = session.model.X_train_
+    return X[has & ok, j], oob[has & ok], opacity[ok[has]]
+
+
+def test_dragging_the_diamond_sketches_and_the_release_moves_the_probe(
+        explorer, trial, monkeypatch):
+    from hedgerow.widgets import _base
+
+    X, y, w, m = trial
+    monkeypatch.setattr(_base, "DRAG_SKETCH_INTERVAL", 0.0)
+    s, view = explorer.session, explorer.probe_view
+    s.feature = 1
+    j = 1
+    start, readout = np.array(s.probe), view.readout_html.value
+    reports = []
+    real = s.probe_report
+    monkeypatch.setattr(s, "probe_report", lambda *a, **k: reports.append(1) or real(*a, **k))
+    for q in (0.2, 0.55, 0.85):
+        target = float(np.quantile(X[:, j], q))
+        drag_step(view, target)
+        assert view.error_html.value == ""
+        x = start.copy()
+        x[j] = target
+        sk = D.effect_probe_sketch(m, x, feature=j)
+        nx, ny, op = expected_neighbours(s, sk.weights, j)
+        np.testing.assert_array_equal(view.neighbour_mark.x, nx)
+        np.testing.assert_array_equal(view.neighbour_mark.y, ny)
+        np.testing.assert_allclose(view.neighbour_mark.opacities, op, rtol=1e-12)
+        np.testing.assert_array_equal(view.line_mark.x, sk.line_x)
+        np.testing.assert_array_equal(view.line_mark.y, sk.line_effect)
+        assert view.sketch_x == target and not view.interval_mark.visible
+        # the probe, the readout, the sliders and the full report wait for the release
+        np.testing.assert_array_equal(s.probe, start)
+        assert view.readout_html.value == readout and reports == []
+        assert view.sliders[j].value == pytest.approx(start[j])
+    release(view, target)
+    assert view.error_html.value == "" and view.sketch_x is None
+    assert s.probe[j] == target and s.probe[0] == start[0] and s.probe[2] == start[2]
+    assert len(reports) == 1  # one full drawing, at the release
+    p = D.effect_probe(m, s.probe, feature=j)
+    r = p.methods.loc["corrected forest"]
+    assert list(view.probe_mark.x) == [target] and list(view.probe_mark.y) == [r["effect"]]
+    assert list(view.interval_mark.y) == [r["lower"], r["upper"]]
+    assert view.interval_mark.visible
+    np.testing.assert_array_equal(view.line_mark.y, p.line_effect)
+    nx, _, op = expected_neighbours(s, p.weights, j)
+    np.testing.assert_array_equal(view.neighbour_mark.x, nx)
+    np.testing.assert_allclose(view.neighbour_mark.opacities, op, rtol=1e-12)
+    from hedgerow.widgets._style import fmt
+
+    for name in D.EFFECT_METHODS:
+        assert fmt(p.methods.loc[name, "effect"]) in view.readout_html.value
+    assert view.readout_html.value != readout
+    assert view.sliders[j].value == pytest.approx(target, abs=view.sliders[j].step)
+
+
+def test_drag_steps_are_throttled_beyond_the_data_clamped_and_a_return_redraws(
+        explorer, trial, monkeypatch):
+    from hedgerow.widgets import _base
+
+    X, y, w, m = trial
+    s, view = explorer.session, explorer.probe_view
+    j = s.feature
+    start = np.array(s.probe)
+    full_line = np.asarray(view.line_mark.y).copy()
+    monkeypatch.setattr(_base, "DRAG_SKETCH_INTERVAL", 60.0)
+    first, second = float(np.quantile(X[:, j], 0.1)), float(np.quantile(X[:, j], 0.9))
+    drag_step(view, first)
+    assert view.sketch_x == first
+    drag_step(view, second)  # sooner than the interval: skipped
+    assert view.sketch_x == first
+    assert not np.allclose(view.line_mark.y, full_line)
+    release(view, start[j])  # back where it started: the probe stays, the sketch goes
+    np.testing.assert_array_equal(s.probe, start)
+    assert view.sketch_x is None and view.interval_mark.visible
+    np.testing.assert_array_equal(view.line_mark.y, full_line)
+    drag_step(view, 1e6)  # the release reset the throttle; beyond the data: clamped
+    assert view.sketch_x == X[:, j].max()
+    release(view, -1e6)
+    assert s.probe[j] == X[:, j].min() and list(view.probe_mark.x) == [X[:, j].min()]
+
+
+def test_a_release_that_cannot_be_drawn_puts_the_probe_back_and_shows_the_error(
+        explorer, trial, monkeypatch):
+    X, y, w, m = trial
+    s, view = explorer.session, explorer.probe_view
+    j = s.feature
+    start = np.array(s.probe)
+    effect_before = list(view.probe_mark.y)
+    real = s.probe_report
+    calls = []
+
+    def broken(*a, **k):
+        calls.append(1)
+        if len(calls) == 1:
+            raise RuntimeError("effect probe exploded")
+        return real(*a, **k)
+
+    monkeypatch.setattr(s, "probe_report", broken)
+    target = float(np.quantile(X[:, j], 0.8))
+    drag_step(view, target)
+    view.probe_mark.x = [target]  # where the front end leaves the dragged diamond
+    release(view, target)
+    assert "effect probe exploded" in view.error_html.value
+    assert "moving the probe failed" in view.error_html.value
+    np.testing.assert_array_equal(s.probe, start)  # put back
+    assert list(view.probe_mark.x) == [start[j]] and list(view.probe_mark.y) == effect_before
+    assert view.sketch_x is None and view.interval_mark.visible
+    assert view.sliders[j].value == pytest.approx(start[j])
+    release(view, target)  # works now: the error goes
+    assert view.error_html.value == "" and s.probe[j] == target
+
+
+def test_a_drag_step_that_fails_is_shown_and_leaves_the_probe(explorer, monkeypatch):
+    s, view = explorer.session, explorer.probe_view
+    start = np.array(s.probe)
+
+    def broken(value):
+        raise RuntimeError("sketch exploded")
+
+    monkeypatch.setattr(s, "probe_sketch", broken)
+    drag_step(view, float(start[s.feature]) + 0.1)
+    assert "dragging the probe failed" in view.error_html.value
+    assert "sketch exploded" in view.error_html.value
+    np.testing.assert_array_equal(s.probe, start)
+
+
+def test_verdict_settings_are_checked_before_any_fit(trial):
+    X, y, w, m = trial
+    with pytest.raises(ValueError, match="'verdict_folds'.*Got 1"):
+        EffectSession(X, y, w, verdict_folds=1)
+    with pytest.raises(ValueError, match="'verdict_fold_trees'.*Got 1.5"):
+        explore(X, y, treatment=w, model=m, verdict_fold_trees=1.5)
+    ex = explore(X, y, treatment=w, model=m, verdict_folds=2, verdict_fold_trees=16)
+    assert (ex.session.verdict_folds, ex.session.verdict_fold_trees) == (2, 16)
+    assert "2 cross-fitted folds" in ex.verdict_view.conclusion_html.value
+    ex.close()
+
+
+def test_the_overlap_figure_is_put_in_when_its_tab_is_first_opened(explorer):
+    # laid out inside a hidden tab, the figure had no size: bars of no height
+    import ipywidgets as W
+
+    view = explorer.overlap_view
+    (slot,) = [c for c in view.children if type(c) is W.Box]
+    assert slot.children == () and view.figure not in view.children
+    explorer.selected_index = 1
+    assert slot.children == (view.figure,)
+    explorer.selected_index = 0
+    explorer.selected_index = 1
+    assert slot.children == (view.figure,)  # once

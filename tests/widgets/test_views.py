@@ -691,9 +691,9 @@ def sketch_marks(session, view, x):
 
 def test_dragging_draws_weights_and_line_only_and_release_draws_the_table(
         app, session, monkeypatch):
-    from hedgerow.widgets import _probe_view
+    from hedgerow.widgets import _base
 
-    monkeypatch.setattr(_probe_view, "DRAG_SKETCH_INTERVAL", 0.0)
+    monkeypatch.setattr(_base, "DRAG_SKETCH_INTERVAL", 0.0)
     view = app.probe_view
     j = session.feature_names.index(view.feature)
     col = session.X_train[:, j]
@@ -729,14 +729,14 @@ def test_dragging_draws_weights_and_line_only_and_release_draws_the_table(
 
 def test_drag_steps_are_throttled_and_a_release_where_it_started_redraws(
         app, session, monkeypatch):
-    from hedgerow.widgets import _probe_view
+    from hedgerow.widgets import _base
 
     view = app.probe_view
     j = session.feature_names.index(view.feature)
     col = session.X_train[:, j]
     start = list(view.probe_x)
     full_size = np.asarray(view.rows_mark.size).copy()
-    monkeypatch.setattr(_probe_view, "DRAG_SKETCH_INTERVAL", 60.0)
+    monkeypatch.setattr(_base, "DRAG_SKETCH_INTERVAL", 60.0)
     first, second = float(np.quantile(col, 0.2)), float(np.quantile(col, 0.9))
     drag_step(view, first)
     assert view.sketch_x == pytest.approx(first)
