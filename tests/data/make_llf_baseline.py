@@ -92,8 +92,25 @@ def _probe_values(key, rep, X):
     }
 
 
+def numeric_stack() -> str:
+    """Return what decides the last bits of these numbers besides our code.
+
+    numpy and scipy versions and the BLAS library with the kernel family it picked for
+    this CPU at run time (OpenBLAS chooses per CPU: the same wheel rounds matrix products
+    differently on a Haswell-class and an AVX-512 machine).
+    """
+    import scipy
+    import threadpoolctl
+
+    np.ones((4, 4)) @ np.ones((4, 4))  # loads the BLAS, so that it is listed
+    blas = sorted(f"{i.get('internal_api')} {i.get('version')} {i.get('architecture')}"
+                  for i in threadpoolctl.threadpool_info() if i.get("user_api") == "blas")
+    return f"numpy {np.__version__}; scipy {scipy.__version__}; " + "; ".join(blas)
+
+
 if __name__ == "__main__":
     import hedgerow
 
-    print("recording with", hedgerow.__file__)
-    np.savez_compressed(Path(__file__).with_name("llf_baseline.npz"), **values())
+    print("recording with", hedgerow.__file__, "on", numeric_stack())
+    np.savez_compressed(Path(__file__).with_name("llf_baseline.npz"),
+                        _stack=np.array(numeric_stack()), **values())
