@@ -11,6 +11,8 @@
 - ``effect_probe``, ``overlap_profile``, ``effect_verdict``: a treatment-effect forest's
   effect at a point, the overlap of its arms and a held-out R-loss verdict (each with the
   effect caution).
+- ``effect_slices``, ``effect_edges``: effects along one column (or their partial
+  dependence), and the out-of-bag R-loss of the effect by edge depth.
 - ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
   as much as their standard errors say?
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
@@ -35,6 +37,12 @@ from hedgerow.diagnostics._effect import (
     r_loss,
 )
 from hedgerow.diagnostics._effect_coverage import EffectCoverageReport, effect_coverage_readout
+from hedgerow.diagnostics._effect_edges import EffectEdgeProfile, effect_edges
+from hedgerow.diagnostics._effect_slices import (
+    EFFECT_SLICE_GRID,
+    EffectSliceReport,
+    effect_slices,
+)
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
@@ -79,6 +87,8 @@ __all__ = [
     "EFFECT_DECISIONS", "EFFECT_FOLD_TREES", "EFFECT_METHODS", "EffectProbe",
     "EffectVerdict", "OverlapProfile", "effect_probe", "effect_verdict",
     "neighbourhood_difference", "overlap_profile", "r_loss", "interval_method",
+    "EffectSliceReport", "EffectEdgeProfile", "effect_slices", "effect_edges",
+    "EFFECT_SLICE_GRID",
     "EffectCoverageReport",
     "effect_coverage_readout",
     "CAUTIONS",

@@ -18,7 +18,8 @@ from hedgerow.widgets._style import PROBE_COLOUR, ROW_COLOUR, fmt, marker_scalin
 __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplorer",
            "EFFECT_TAB_TITLES", "caution_html"]
 
-EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict")
+EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict", "effect slices",
+                     "effect edges")
 EFFECT_COLOUR = "#1d5fa8"
 ARM_COLOURS = {"untreated": "#e3891b", "treated": "#1d5fa8", "all rows": ROW_COLOUR}
 
@@ -252,17 +253,22 @@ class EffectExplorer(W.Tab):
     """The tabbed effect explorer ``explore(..., treatment=...)`` returns."""
 
     def __init__(self, session):
+        # here, not at the top: that module builds on this one's _EffectView
+        from hedgerow.widgets._effect_more_views import EffectEdgesView, EffectSlicesView
+
         self.session = session
         self.probe_view = EffectProbeView(session)
         self.overlap_view = OverlapView(session)
         self.verdict_view = EffectVerdictView(session)
-        super().__init__(children=[self.probe_view, self.overlap_view, self.verdict_view],
-                         titles=EFFECT_TAB_TITLES)
+        self.slices_view = EffectSlicesView(session)
+        self.edges_view = EffectEdgesView(session)
+        super().__init__(children=self.views, titles=EFFECT_TAB_TITLES)
         self.add_class("hedgerow-effect-explorer")
 
     @property
     def views(self):
-        return [self.probe_view, self.overlap_view, self.verdict_view]
+        return [self.probe_view, self.overlap_view, self.verdict_view, self.slices_view,
+                self.edges_view]
 
     def close(self):
         self.session.close()
