@@ -9,9 +9,12 @@
 - ``tuning_surface``: out-of-bag RMSE and interval width over subsample rate × penalty.
 - ``coverage_readout``: simulated interval coverage around a known or surrogate truth.
 - ``effect_probe`` (``effect_probe_sketch``: its cheap part), ``overlap_profile``,
-  ``effect_verdict``, ``effect_slice``: a treatment-effect forest's effect at a point, the
-  overlap of its arms, a held-out R-loss verdict and the effect along one column (each
-  with the effect caution).
+  ``effect_verdict``: a treatment-effect forest's effect at a point, the overlap of its
+  arms and a held-out R-loss verdict (each with the effect caution).
+- ``effect_slices``, ``effect_edges``: effects along one column (or their partial
+  dependence), and the out-of-bag R-loss of the effect by edge depth; ``effect_slice``:
+  the corrected and uncorrected effect along one column side by side (what the effect
+  report draws, read from ``effect_slices``).
 - ``split_half_agreement``: on real data, do forests fitted on disjoint halves disagree
   as much as their standard errors say?
 - ``at_ridge_penalty``, ``probe_readout``, ``local_line``, ``oob_summary``, ...: the
@@ -38,7 +41,13 @@ from hedgerow.diagnostics._effect import (
     r_loss,
 )
 from hedgerow.diagnostics._effect_coverage import EffectCoverageReport, effect_coverage_readout
+from hedgerow.diagnostics._effect_edges import EffectEdgeProfile, effect_edges
 from hedgerow.diagnostics._effect_slice import EFFECT_SLICE_POINTS, EffectSlice, effect_slice
+from hedgerow.diagnostics._effect_slices import (
+    EFFECT_SLICE_GRID,
+    EffectSliceReport,
+    effect_slices,
+)
 from hedgerow.diagnostics._heldout import edge_depth, held_out_predictions
 from hedgerow.diagnostics._interactive import (
     at_ridge_penalty,
@@ -84,6 +93,8 @@ __all__ = [
     "EffectVerdict", "OverlapProfile", "effect_probe", "effect_verdict",
     "EffectSketch", "effect_probe_sketch",
     "neighbourhood_difference", "overlap_profile", "r_loss", "interval_method",
+    "EffectSliceReport", "EffectEdgeProfile", "effect_slices", "effect_edges",
+    "EFFECT_SLICE_GRID",
     "EffectCoverageReport",
     "effect_coverage_readout",
     "EFFECT_SLICE_POINTS", "EffectSlice", "effect_slice",

@@ -1,10 +1,11 @@
 """The effect of a ``TreatmentEffectForest`` along one column, the others held at the probe.
 
-``effect_slice(model, x, feature)`` evaluates, on a grid of the column's values with every
-other column at the probe: the corrected effect (``predict_effect``) with its interval
-(``effect_interval``, the method ``interval_method`` picks for the corrected row) and the
-uncorrected effect of the same trees (``corrected=False``). The effect report draws these
-numbers; a test compares them with the estimator's.
+``effect_slice(model, x, feature)`` is the side-by-side reading of ``effect_slices`` the
+effect report draws: on a grid of the column's values with every other column at the
+probe, the corrected effect (``predict_effect``) with its interval (``effect_interval``,
+the method ``interval_method`` picks for the corrected row) and the uncorrected effect of
+the same trees (``corrected=False``), one row per grid value. The numbers are
+``effect_slices``' (one path); a test compares them with the estimator's.
 
 Caution: decision support, not advice; an effect reading assumes unconfoundedness (no
 diagnostic here checks it) and overlap.
@@ -77,39 +78,29 @@ def effect_slice(model, x, feature, grid=None, *, level=0.95, method=None) -> Ef
 
     Caution: decision support, not advice; assumes unconfoundedness and overlap.
     """
-    from hedgerow._validation import checked_rows, column_names
+    from hedgerow._validation import column_names
     from hedgerow.diagnostics._checks import check_values
+    from hedgerow.diagnostics._effect_slices import effect_slices
     from hedgerow.diagnostics._slices import resolve_feature
 
     model = _require_effect_model(model)
     level = _check_level(level)
     j = resolve_feature(model, feature)
-    xq = check_probe_point(model, x)[0]
+    xq = np.asarray(check_probe_point(model, x)[0], dtype=np.float64)
     if grid is None:
         col = model.X_train_[:, j]
         grid = np.linspace(min(float(col.min()), float(xq[j])),
                            max(float(col.max()), float(xq[j])), EFFECT_SLICE_POINTS)
     else:
         grid = check_values("grid", grid)
-        if grid.size == 0:
-            raise ValueError("The 'grid' parameter must hold at least one value. Got an "
-                             "empty grid.")
-        if not np.all(np.isfinite(grid)):
-            raise ValueError("The 'grid' parameter must be finite.")
-    Q = np.repeat(np.asarray(xq, dtype=np.float64)[None, :], grid.size, axis=0)
-    Q[:, j] = grid
-    Q = checked_rows(Q, model, "grid")
-    how = _interval_method(method, True)
-    corrected = np.asarray(model.predict_effect(Q), dtype=np.float64)
-    lo, hi = model.effect_interval(Q, level, how)
-    uncorrected = np.asarray(model.predict_effect(Q, corrected=False), dtype=np.float64)
-    frame = pd.DataFrame({"value": np.asarray(grid, dtype=np.float64), "corrected": corrected,
-                          "lower": np.asarray(lo, dtype=np.float64),
-                          "upper": np.asarray(hi, dtype=np.float64),
-                          "uncorrected": uncorrected})
-    return EffectSlice(x=np.asarray(xq, dtype=np.float64).copy(),
-                       feature=str(column_names(model)[j]), feature_index=j, level=level,
-                       interval=how, frame=frame,
+    r = effect_slices(model, xq, j, grid, level=level, method=method, neighbourhood=False)
+    c, u = r.method("corrected forest"), r.method("uncorrected forest")
+    frame = pd.DataFrame({"value": c["value"].to_numpy(), "corrected": c["effect"].to_numpy(),
+                          "lower": c["lower"].to_numpy(), "upper": c["upper"].to_numpy(),
+                          "uncorrected": u["effect"].to_numpy()})
+    return EffectSlice(x=xq.copy(), feature=str(column_names(model)[j]), feature_index=j,
+                       level=level, interval=r.intervals["corrected forest"] or
+                       _interval_method(method, True), frame=frame,
                        corrected_column=bool(j in set(np.asarray(
                            model.correction_features_).tolist())),
                        caution=_caution())

@@ -7,6 +7,7 @@ explorer (``EffectExplorer`` on an ``EffectSession``), every tab with the effect
 
 from hedgerow.widgets._decision_view import DecisionView
 from hedgerow.widgets._edges_view import EdgesView
+from hedgerow.widgets._effect_more_views import EffectEdgesView, EffectSlicesView
 from hedgerow.widgets._effect_session import EffectSession
 from hedgerow.widgets._effect_views import (
     EffectExplorer,
@@ -22,7 +23,7 @@ from hedgerow.widgets._verdict_view import VerdictView
 from hedgerow.widgets._weights_view import WeightsView
 
 __all__ = ["DecisionView", "EdgesView", "EffectExplorer", "EffectProbeView", "EffectSession",
-           "EffectVerdictView", "OverlapView",
+           "EffectVerdictView", "OverlapView", "EffectSlicesView", "EffectEdgesView",
            "ExploreSession", "Explorer", "ProbeScene", "ProbeView",
            "RefitCancelled", "SAVED_OUTPUT_NOTE", "TuningView", "VerdictView", "WeightsView",
            "explore"]

@@ -2,7 +2,7 @@
 
 Plain Python (traitlets, no widgets): tests drive it without a browser. Every number it
 holds comes from ``hedgerow.diagnostics`` (``effect_probe``, ``overlap_profile``,
-``effect_verdict``) or the estimator's own methods.
+``effect_verdict``, ``effect_slices``, ``effect_edges``) or the estimator's own methods.
 """
 
 from __future__ import annotations
@@ -24,6 +24,8 @@ class EffectSession(t.HasTraits):
     ``probe`` (d,) and ``feature`` (column index) drive the probe view;
     ``verdict_status`` is ``"not run"``, ``"running"``, ``"done"``, ``"cancelled"`` or
     ``"failed"``, with ``verdict_progress`` (folds done, folds) while it runs.
+    ``truth``: a known effect function (invented data only, e.g.
+    ``hedgerow.datasets.trial_effect_truth``) drawn in the effect slices; None for none.
     """
 
     probe = t.Any()
@@ -33,7 +35,8 @@ class EffectSession(t.HasTraits):
     verdict_message = t.Unicode("")
 
     def __init__(self, X, y, treatment, *, model=None, verdict_folds=5,
-                 verdict_fold_trees=D.EFFECT_FOLD_TREES, random_state=0, **forest_params):
+                 verdict_fold_trees=D.EFFECT_FOLD_TREES, random_state=0, truth=None,
+                 **forest_params):
         super().__init__()
         from hedgerow.estimators import TreatmentEffectForest
 
@@ -56,6 +59,9 @@ class EffectSession(t.HasTraits):
             raise ValueError(f"Pass forest settings or a fitted 'model', not both. Got "
                              f"model and {sorted(forest_params)}.")
         D._effect._require_effect_model(model)
+        if truth is not None and not callable(truth):
+            raise TypeError(f"The 'truth' parameter must be None or a callable X -> effects. "
+                            f"Got {type(truth).__name__} instead.")
         from hedgerow._validation import check_predict_data
 
         Xc = np.asarray(check_predict_data(model, X), dtype=np.float64)
@@ -74,6 +80,9 @@ class EffectSession(t.HasTraits):
         self._control = None
         self._thread = None
         self._oob = None
+        self.truth = truth
+        self._slices = None  # (key, report) of the last effect slices
+        self._edges = {}  # level -> effect edges (the model never changes here)
         self.probe = D.probe_anchor(model.X_train_)
 
     # -- the probe ---------------------------------------------------------------------------
@@ -112,6 +121,22 @@ class EffectSession(t.HasTraits):
         if self._oob is None:
             self._oob = self.model.oob_effect()
         return self._oob
+
+    def slice_report(self, level=0.95):
+        """Return ``effect_slices`` along ``feature`` at the current probe (last one kept)."""
+        key = (np.asarray(self.probe, dtype=np.float64).tobytes(), int(self.feature),
+               float(level))
+        if self._slices is None or self._slices[0] != key:
+            rep = D.effect_slices(self.model, self.probe, self.feature, level=level,
+                                  truth=self.truth)
+            self._slices = (key, rep)
+        return self._slices[1]
+
+    def edge_report(self, level=0.95):
+        """Return ``effect_edges`` of the model (computed once per level)."""
+        if level not in self._edges:
+            self._edges[level] = D.effect_edges(self.model, level=level)
+        return self._edges[level]
 
     def overlap(self):
         """Return ``overlap_profile`` of the model."""

@@ -29,7 +29,8 @@ from hedgerow.widgets._style import (
 __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplorer",
            "EFFECT_TAB_TITLES", "caution_html"]
 
-EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict")
+EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict", "effect slices",
+                     "effect edges")
 EFFECT_COLOUR = EFFECT_COLOURS["corrected forest"]
 
 log = logging.getLogger("hedgerow.widgets")
@@ -368,12 +369,16 @@ class EffectExplorer(W.Tab):
     """The tabbed effect explorer ``explore(..., treatment=...)`` returns."""
 
     def __init__(self, session):
+        # here, not at the top: that module builds on this one's _EffectView
+        from hedgerow.widgets._effect_more_views import EffectEdgesView, EffectSlicesView
+
         self.session = session
         self.probe_view = EffectProbeView(session)
         self.overlap_view = OverlapView(session)
         self.verdict_view = EffectVerdictView(session)
-        super().__init__(children=[self.probe_view, self.overlap_view, self.verdict_view],
-                         titles=EFFECT_TAB_TITLES)
+        self.slices_view = EffectSlicesView(session)
+        self.edges_view = EffectEdgesView(session)
+        super().__init__(children=self.views, titles=EFFECT_TAB_TITLES)
         self.add_class("hedgerow-effect-explorer")
         self.observe(self._on_tab_opened, "selected_index")
         self._on_tab_opened()
@@ -386,7 +391,8 @@ class EffectExplorer(W.Tab):
 
     @property
     def views(self):
-        return [self.probe_view, self.overlap_view, self.verdict_view]
+        return [self.probe_view, self.overlap_view, self.verdict_view, self.slices_view,
+                self.edges_view]
 
     # -- view state (what a snapshot records besides the session) -------------------------
     def view_state(self) -> dict:

@@ -149,9 +149,10 @@ def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, ref
     """Return an ``Explorer``: probe, neighbour weights, edges, tuning and verdict views.
 
     With ``treatment`` (0/1 or a continuous dose per row) return an ``EffectExplorer``
-    instead: the effect probe, overlap and effect verdict of a ``TreatmentEffectForest``
-    (``model``: one fitted on (X, y, treatment), or None to fit one with
-    ``forest_params``; ``feature`` the effect line's column). Every effect tab carries
+    instead: the effect probe, overlap, effect verdict, effect slices and effect edges of a
+    ``TreatmentEffectForest`` (``model``: one fitted on (X, y, treatment), or None to fit
+    one with ``forest_params``; ``feature`` the effect line's column; ``truth=`` a known
+    effect function, invented data only, drawn in the slices). Every effect tab carries
     the effect caution: decision support, not advice; unconfoundedness is assumed and
     checked by nothing here; overlap is shown, not guaranteed.
 

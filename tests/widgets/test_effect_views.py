@@ -7,7 +7,7 @@ import pytest
 
 from hedgerow import TreatmentEffectForest
 from hedgerow import diagnostics as D
-from hedgerow.datasets import load_trial_demo
+from hedgerow.datasets import load_trial_demo, trial_effect_truth
 from hedgerow.estimators._effect_forest import EFFECT_CAUTION
 from hedgerow.widgets import EffectExplorer, EffectSession, explore
 
@@ -31,8 +31,10 @@ def explorer(trial):
 
 def test_explore_with_treatment_gives_the_effect_explorer_with_a_caution_per_tab(explorer):
     assert isinstance(explorer, EffectExplorer)
-    assert [explorer.get_title(i) for i in range(3)] == ["effect probe", "overlap",
-                                                          "effect verdict"]
+    assert [explorer.get_title(i) for i in range(5)] == ["effect probe", "overlap",
+                                                          "effect verdict", "effect slices",
+                                                          "effect edges"]
+    assert len(explorer.children) == len(explorer.views) == 5
     import html
 
     for view in explorer.views:
@@ -286,3 +288,100 @@ def test_the_overlap_figure_is_put_in_when_its_tab_is_first_opened(explorer):
     explorer.selected_index = 0
     explorer.selected_index = 1
     assert slot.children == (view.figure,)  # once
+
+
+# -- effect slices and effect edges ----------------------------------------------------------
+def test_the_new_tabs_show_the_caution_first(explorer):
+    import html
+
+    for view in (explorer.slices_view, explorer.edges_view):
+        assert view.children[1] is view.caution
+        assert html.escape(EFFECT_CAUTION) in view.caution.value
+        assert explorer.children[explorer.views.index(view)] is view
+
+
+def _slices_drawn(view, r):
+    c = r.method("corrected forest")
+    for name, mark in view.line_marks.items():
+        np.testing.assert_array_equal(mark.x, r.method(name)["value"])
+        np.testing.assert_array_equal(mark.y, r.method(name)["effect"])
+    np.testing.assert_array_equal(view.band_mark.y, np.vstack([c["lower"], c["upper"]]))
+    assert list(view.probe_mark.x) == [r.x[r.feature_index]] * 2
+
+
+def test_slices_view_holds_the_diagnostics_numbers_and_follows_the_probe(explorer, trial):
+    X, y, w, m = trial
+    s, view = explorer.session, explorer.slices_view
+    r0 = D.effect_slices(m, s.probe, s.feature)
+    _slices_drawn(view, r0)
+    before = np.array(view.line_marks["corrected forest"].y)
+    s.set_probe_value(1, 0.7)  # another column: the slice along x0 moves
+    r1 = D.effect_slices(m, s.probe, s.feature)
+    _slices_drawn(view, r1)
+    assert not np.array_equal(before, view.line_marks["corrected forest"].y)
+    s.set_probe_value(0, -0.6)  # the slice's own column: only the probe's rule moves
+    assert list(view.probe_mark.x) == [-0.6, -0.6]
+    from hedgerow.widgets._style import fmt
+
+    last = r1.method("uncorrected forest").iloc[-1]
+    assert fmt(last["effect"]) in view.ends_html.value
+    assert "clt" in view.settings_html.value and view.error_html.value == ""
+
+
+def test_slices_view_follows_the_column_both_ways(explorer, trial):
+    X, y, w, m = trial
+    s, view = explorer.session, explorer.slices_view
+    view.column_select.value = 2
+    assert s.feature == 2 and view.figure.axes[0].label == "x2"
+    _slices_drawn(view, D.effect_slices(m, s.probe, 2))
+    s.feature = 1  # e.g. from the probe tab's column choice
+    assert view.column_select.value == 1 and explorer.probe_view.column_select.value == 1
+
+
+def test_slices_view_draws_a_known_truth(trial):
+    from hedgerow.widgets import EffectSlicesView
+
+    X, y, w, m = trial
+    s = EffectSession(X, y, w, model=m, truth=trial_effect_truth)
+    view = EffectSlicesView(s)
+    r = s.slice_report()
+    assert "truth" in view.line_marks and "truth" in r.methods
+    np.testing.assert_array_equal(view.line_marks["truth"].y, r.method("truth")["effect"])
+    with pytest.raises(TypeError, match="'truth'"):
+        EffectSession(X, y, w, model=m, truth=1.0)
+    ex = explore(X, y, treatment=w, model=m, truth=trial_effect_truth)  # passed through
+    assert "truth" in ex.slices_view.line_marks
+    ex.close()
+
+
+def test_slices_view_shows_a_failure_instead_of_raising(explorer, monkeypatch):
+    s, view = explorer.session, explorer.slices_view
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("solver down")
+
+    monkeypatch.setattr(s, "slice_report", broken)
+    s.set_probe_value(2, 0.3)  # the observer must not raise
+    assert "solver down" in view.error_html.value
+
+
+def test_edges_view_holds_the_diagnostics_numbers(explorer, trial):
+    X, y, w, m = trial
+    view = explorer.edges_view
+    e = D.effect_edges(m)
+    p = e.paired
+    np.testing.assert_array_equal(view.point_mark.y, p["difference"])
+    np.testing.assert_array_equal(np.asarray(view.whisker_mark.y),
+                                  np.column_stack([p["lower"], p["upper"]]))
+    assert len(view.point_mark.x) == len(p) == 4
+    from hedgerow.widgets._style import fmt
+
+    for _, r in p.iterrows():
+        assert f"<td>{int(r['n'])}</td>" in view.table_html.value
+        assert fmt(r["difference"], 3) in view.table_html.value
+    assert fmt(e.overall["difference"], 3) in view.table_html.value
+    import html
+
+    assert html.escape(e.reading) in view.reading_html.value
+    # computed once by the session, not again on a probe move
+    assert explorer.session.edge_report() is explorer.session.edge_report()
