@@ -472,17 +472,27 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         cache["oob average"] = out
         return out.copy()
 
-    def _oob_in_blocks(self, return_std):
-        """Return (usable trees per row, mean or (mean, std)) over blocks of training rows."""
+    def _oob_blocks(self, rows=None):
+        """Yield (a, b, leaves, usable) of the training rows a:b, block after block.
+
+        Each block's leaf matrix and in-bag mask are made when it is reached and dropped
+        after it, so out-of-bag work never holds the n x trees matrices.
+        """
         X = self.X_train_
         n = X.shape[0]
+        rows = OOB_BLOCK_ROWS if rows is None else rows
+        for a in range(0, n, rows):
+            b = min(n, a + rows)
+            yield (a, b, self.forest_.apply(X[a:b], n_jobs=self._n_threads()),
+                   ~self.forest_.inbag(np.arange(a, b)))
+
+    def _oob_in_blocks(self, return_std):
+        """Return (usable trees per row, mean or (mean, std)) over blocks of training rows."""
+        n = self.X_train_.shape[0]
         n_used = np.empty(n, dtype=np.int64)
         mean = np.empty(n)
         std = np.empty(n) if return_std else None
-        for a in range(0, n, OOB_BLOCK_ROWS):
-            b = min(n, a + OOB_BLOCK_ROWS)
-            leaves = self.forest_.apply(X[a:b], n_jobs=self._n_threads())
-            usable = ~self.forest_.inbag(np.arange(a, b))
+        for a, b, leaves, usable in self._oob_blocks():
             n_used[a:b] = usable.sum(axis=1)
             part = self._predict_from_leaves(leaves, usable, return_std)
             if return_std:

@@ -579,8 +579,16 @@ class LocalLinearForestRegressor(_ForestBase):
         fit = self._solve(mom, lam)
         if not return_std:
             return fit.intercept
-        leaves, usable, _, _ = self._oob_state()
-        std = bag_std(self._tree_terms(leaves, usable, self._Xc, fit), self.trees_per_bag_)
+        if "oob parts" in self._fit_cache:  # another out-of-bag method made them
+            leaves, usable, _, _ = self._oob_state()
+            std = bag_std(self._tree_terms(leaves, usable, self._Xc, fit),
+                          self.trees_per_bag_)
+        else:  # in blocks of rows: the same bits (each row's terms are its own)
+            std = np.empty(fit.intercept.shape[0])
+            for a, b, leaves, usable in self._oob_blocks():
+                std[a:b] = bag_std(self._tree_terms(leaves, usable, self._Xc[a:b],
+                                                    _fit_rows(fit, a, b)),
+                                   self.trees_per_bag_)
         self._warn_missing_std(fit.intercept, std, "training rows (out-of-bag)")
         return fit.intercept, std
 
@@ -616,3 +624,12 @@ class LocalLinearForestRegressor(_ForestBase):
         psi = self._tree_terms(leaves, None, X[:, self.correction_features_], fit)
         std = bag_std(psi, self.trees_per_bag_)
         return fit, std, self._slope_std_of(leaves, X, fit)
+
+
+def _fit_rows(fit, a, b):
+    """Return the ``LocalFit`` of queries a:b of ``fit`` (its per-query arrays sliced)."""
+    import dataclasses
+
+    return dataclasses.replace(fit, intercept=fit.intercept[a:b], slopes=fit.slopes[a:b],
+                               slopes_scaled=fit.slopes_scaled[a:b],
+                               gram_inv=fit.gram_inv[a:b], fallback=fit.fallback[a:b])

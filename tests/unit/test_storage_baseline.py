@@ -77,3 +77,25 @@ def test_out_of_bag_blocks_equal_the_whole_matrix(monkeypatch):
     assert np.array_equal(std_b, std_w, equal_nan=True)
     assert np.array_equal(plain_b, whole.oob_predict(), equal_nan=True)
     assert np.isfinite(std_b).mean() > 0.9  # the comparison is not between NaNs
+
+
+def test_local_linear_out_of_bag_std_in_blocks_equals_the_whole_matrix(monkeypatch):
+    # The local linear forest's out-of-bag standard errors over row blocks (its default
+    # without cached out-of-bag leaves) equal those from the whole n x trees matrices.
+    import hedgerow.estimators._forest as F
+    from hedgerow import LocalLinearForestRegressor
+
+    rng = np.random.default_rng(43)
+    X = rng.uniform(size=(800, 3))
+    y = 2 * X[:, 0] + np.sin(3 * X[:, 1]) + rng.normal(scale=0.3, size=800)
+    monkeypatch.setattr(F, "OOB_BLOCK_ROWS", 131)
+    kw = dict(n_estimators=256, random_state=6)
+    blocked = LocalLinearForestRegressor(**kw).fit(X, y)
+    mean_b, std_b = blocked.oob_predict(return_std=True)
+    assert "oob parts" not in blocked._fit_cache
+    whole = LocalLinearForestRegressor(**kw).fit(X, y)
+    whole._oob_parts()
+    mean_w, std_w = whole.oob_predict(return_std=True)
+    assert np.array_equal(mean_b, mean_w, equal_nan=True)
+    assert np.array_equal(std_b, std_w, equal_nan=True)
+    assert np.isfinite(std_b).mean() > 0.9
