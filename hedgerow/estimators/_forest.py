@@ -486,6 +486,15 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             yield (a, b, self.forest_.apply(X[a:b], n_jobs=self._n_threads()),
                    ~self.forest_.inbag(np.arange(a, b)))
 
+    def _oob_parts_or_blocks(self):
+        """Yield (a, b, leaves, usable): the cached whole n x trees parts, else blocks."""
+        cache = self._fit_cache
+        if "oob parts" in cache:
+            leaves, usable = cache["oob parts"]
+            yield 0, leaves.shape[0], leaves, usable
+        else:
+            yield from self._oob_blocks()
+
     def _oob_in_blocks(self, return_std):
         """Return (usable trees per row, mean or (mean, std)) over blocks of training rows."""
         n = self.X_train_.shape[0]
@@ -617,26 +626,36 @@ class _ForestBase(RegressorMixin, BaseEstimator):
             centre, std = self.oob_predict(return_std=True)
             return IntervalParts(method, centre, std, np.zeros_like(centre), 0.0)
         line = self._corrected_line()
-        leaves, usable = self._oob_parts()
+        n = self.X_train_.shape[0]
         if line.get("own"):
-            _, _, n_used, mom = self._oob_state()
+            n_used, mom = self._oob_moments()
             fit = self._solve(mom, self.ridge_penalty_)
-            Qc = line["Xc"]
         else:
             cache = self._fit_cache
             if "oob corrected" not in cache:
-                R, n_used = self.forest_.weighted_sums(leaves, line["means"], usable,
-                                                       n_jobs=self._n_threads())
+                R, n_used = None, np.empty(n, dtype=np.int64)
+                for a, b, leaves, usable in self._oob_parts_or_blocks():
+                    Rb, n_used[a:b] = self.forest_.weighted_sums(
+                        leaves, line["means"], usable, n_jobs=self._n_threads())
+                    if R is None:
+                        R = np.empty((n, Rb.shape[1]))
+                    R[a:b] = Rb
                 mom = moments_from_sums(R, line["Xc"], line["centre"], line["scale"])
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore", RuntimeWarning)
                     cache["oob corrected"] = (solve_local(mom, line["penalty"]), n_used)
             fit, n_used = cache["oob corrected"]
-            Qc = line["Xc"]
+        Qc = line["Xc"]
         self._warn_unusable(n_used, "training rows (out-of-bag)")
-        psi = self._line_tree_terms(leaves, usable, Qc, line, fit)
-        lb = little_bags_variance(psi, self.trees_per_bag_)
-        parts = self._corrected_parts(fit.intercept, psi, lb)
+        centre, std, df = np.empty(n), np.empty(n), np.empty(n)
+        for a, b, leaves, usable in self._oob_parts_or_blocks():
+            sub = _fit_rows(fit, a, b)
+            psi = self._line_tree_terms(leaves, usable, Qc[a:b], line, sub)
+            part = self._corrected_parts(sub.intercept, psi,
+                                         little_bags_variance(psi, self.trees_per_bag_))
+            centre[a:b], std[a:b], df[a:b] = part.centre, part.std, part.df
+        parts = IntervalParts("bias_corrected", centre, std, np.zeros_like(centre), 0.0,
+                              df=df)
         self._warn_missing_std(parts.centre, parts.std, "training rows (out-of-bag)")
         return parts
 
@@ -977,3 +996,14 @@ class HonestForestRegressor(_ForestBase):
     def oob_predict(self, return_std=False):
         """Return out-of-bag predictions of the training rows (NaN, warned, if no tree)."""
         return self.oob_local_average(return_std=return_std)
+
+
+def _fit_rows(fit, a, b):
+    """Return the ``LocalFit`` of queries a:b of ``fit`` (its per-query arrays sliced)."""
+    import dataclasses
+
+    if a == 0 and b == fit.intercept.shape[0]:
+        return fit
+    return dataclasses.replace(fit, intercept=fit.intercept[a:b], slopes=fit.slopes[a:b],
+                               slopes_scaled=fit.slopes_scaled[a:b],
+                               gram_inv=fit.gram_inv[a:b], fallback=fit.fallback[a:b])

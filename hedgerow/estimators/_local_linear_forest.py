@@ -20,7 +20,12 @@ from hedgerow._validation import (
     preserve_fitted_state,
     validate_params,
 )
-from hedgerow.estimators._forest import _ForestBase, bag_std, resolve_trees_per_bag
+from hedgerow.estimators._forest import (
+    _fit_rows,
+    _ForestBase,
+    bag_std,
+    resolve_trees_per_bag,
+)
 from hedgerow.forest import RULE_MEAN, RULE_RIDGE_RESIDUAL, subsample_size
 from hedgerow.inference import (
     linearisation_coefficients,
@@ -625,11 +630,3 @@ class LocalLinearForestRegressor(_ForestBase):
         std = bag_std(psi, self.trees_per_bag_)
         return fit, std, self._slope_std_of(leaves, X, fit)
 
-
-def _fit_rows(fit, a, b):
-    """Return the ``LocalFit`` of queries a:b of ``fit`` (its per-query arrays sliced)."""
-    import dataclasses
-
-    return dataclasses.replace(fit, intercept=fit.intercept[a:b], slopes=fit.slopes[a:b],
-                               slopes_scaled=fit.slopes_scaled[a:b],
-                               gram_inv=fit.gram_inv[a:b], fallback=fit.fallback[a:b])

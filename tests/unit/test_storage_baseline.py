@@ -99,3 +99,28 @@ def test_local_linear_out_of_bag_std_in_blocks_equals_the_whole_matrix(monkeypat
     assert np.array_equal(mean_b, mean_w, equal_nan=True)
     assert np.array_equal(std_b, std_w, equal_nan=True)
     assert np.isfinite(std_b).mean() > 0.9
+
+
+@pytest.mark.parametrize("kind", ["honest", "local linear"])
+def test_out_of_bag_interval_parts_in_blocks_equal_the_whole_matrix(kind, monkeypatch):
+    # The bias-corrected out-of-bag interval parts (centre, std, degrees of freedom) over
+    # row blocks equal those from the whole n x trees matrices, for both forests.
+    import hedgerow.estimators._forest as F
+    from hedgerow import HonestForestRegressor, LocalLinearForestRegressor
+
+    cls = HonestForestRegressor if kind == "honest" else LocalLinearForestRegressor
+    rng = np.random.default_rng(47)
+    X = rng.uniform(size=(700, 3))
+    y = 2 * X[:, 0] + np.sin(3 * X[:, 1]) + rng.normal(scale=0.3, size=700)
+    monkeypatch.setattr(F, "OOB_BLOCK_ROWS", 113)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        blocked = cls(n_estimators=256, random_state=9).fit(X, y)
+        pb = blocked.oob_interval_parts()
+        assert "oob parts" not in blocked._fit_cache
+        whole = cls(n_estimators=256, random_state=9).fit(X, y)
+        whole._oob_parts()
+        pw = whole.oob_interval_parts()
+    for field in ("centre", "std", "df"):
+        assert np.array_equal(getattr(pb, field), getattr(pw, field), equal_nan=True), field
+    assert np.isfinite(pb.std).mean() > 0.9
