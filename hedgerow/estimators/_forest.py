@@ -495,6 +495,20 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         else:
             yield from self._oob_blocks()
 
+    def _oob_weighted_sums(self, means):
+        """Return (out-of-bag forest-weighted sums of the per-leaf ``means``, usable trees).
+
+        One row per training row, over its out-of-bag trees, gathered block by block (or
+        from the cached whole parts): every row's sums are its own, so the same bits.
+        """
+        n = self.X_train_.shape[0]
+        R = np.empty((n, means.shape[1]))
+        n_used = np.empty(n, dtype=np.int64)
+        for a, b, leaves, usable in self._oob_parts_or_blocks():
+            R[a:b], n_used[a:b] = self.forest_.weighted_sums(leaves, means, usable,
+                                                             n_jobs=self._n_threads())
+        return R, n_used
+
     def _oob_in_blocks(self, return_std):
         """Return (usable trees per row, mean or (mean, std)) over blocks of training rows."""
         n = self.X_train_.shape[0]
@@ -633,13 +647,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         else:
             cache = self._fit_cache
             if "oob corrected" not in cache:
-                R, n_used = None, np.empty(n, dtype=np.int64)
-                for a, b, leaves, usable in self._oob_parts_or_blocks():
-                    Rb, n_used[a:b] = self.forest_.weighted_sums(
-                        leaves, line["means"], usable, n_jobs=self._n_threads())
-                    if R is None:
-                        R = np.empty((n, Rb.shape[1]))
-                    R[a:b] = Rb
+                R, n_used = self._oob_weighted_sums(line["means"])
                 mom = moments_from_sums(R, line["Xc"], line["centre"], line["scale"])
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore", RuntimeWarning)
@@ -745,8 +753,7 @@ class _ForestBase(RegressorMixin, BaseEstimator):
         line.update(Xc=Xc, scale=scale, means=means, centre=centre, penalty=penalty)
         if penalty is not None:
             return line
-        leaves, usable = self._oob_parts()
-        R, n_used = self.forest_.weighted_sums(leaves, means, usable, n_jobs=self._n_threads())
+        R, n_used = self._oob_weighted_sums(means)
         mom = moments_from_sums(R, Xc, centre, scale)
         ok = n_used > 0
         errs = []

@@ -61,11 +61,6 @@ SPLIT_PENALTY_AUTO = 0.1
 
 _CACHE_SIZE = 4
 
-#: Training rows per block when the out-of-bag moments are gathered: the leaves and the
-#: in-bag mask of one block (rows x trees) are made, used and dropped, so the fit never
-#: holds the n x trees matrices (they are made again, in full, only when out-of-bag
-#: standard errors are asked for).
-_OOB_ROWS = 16_384
 
 #: Queries per block of the batched local solve: its temporaries (a few (k+2)^2 arrays
 #: per query) stay bounded whatever the number of queries; each query's solve is its own,
@@ -364,23 +359,15 @@ class LocalLinearForestRegressor(_ForestBase):
     def _oob_moments(self):
         """Return (usable trees per training row, out-of-bag moments), cached per fit.
 
-        Gathered in blocks of ``_OOB_ROWS`` training rows (each block's leaves and in-bag
-        mask made and dropped): every row's sums are its own, so the blocks give the bits
-        of one pass over the whole leaf matrix, without holding it.
+        Gathered in blocks of ``OOB_BLOCK_ROWS`` training rows (``_oob_weighted_sums``:
+        each block's leaves and in-bag mask made and dropped): every row's sums are its
+        own, so the blocks give the bits of one pass over the whole leaf matrix, without
+        holding it.
         """
         cache = self._fit_cache
         if "oob moments" not in cache:
             means, centre = self._leaf_features()
-            X, n = self.X_train_, self.X_train_.shape[0]
-            R = np.empty((n, means.shape[1]))
-            n_used = np.empty(n, dtype=np.int64)
-            for a in range(0, n, _OOB_ROWS):
-                b = min(n, a + _OOB_ROWS)
-                leaves = self.forest_.apply(X[a:b], n_jobs=self._n_threads())
-                usable = ~self.forest_.inbag(np.arange(a, b))
-                R[a:b], n_used[a:b] = self.forest_.weighted_sums(
-                    leaves, means, usable, n_jobs=self._n_threads())
-                del leaves, usable
+            R, n_used = self._oob_weighted_sums(means)
             # rows without an out-of-bag tree have zero total weight: NaN in the solve
             cache["oob moments"] = (n_used, moments_from_sums(R, self._Xc, centre,
                                                               self.correction_scale_))

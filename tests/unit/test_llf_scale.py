@@ -5,6 +5,7 @@ import warnings
 import numpy as np
 import pytest
 
+import hedgerow.estimators._forest as forest_module
 import hedgerow.estimators._local_linear_forest as llf_module
 from hedgerow import LocalLinearForestRegressor
 from hedgerow.local import (
@@ -72,7 +73,7 @@ def test_blocked_fit_equals_one_pass(data, monkeypatch):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         one = LocalLinearForestRegressor(n_estimators=40, random_state=1).fit(X, y)
-        monkeypatch.setattr(llf_module, "_OOB_ROWS", 97)
+        monkeypatch.setattr(forest_module, "OOB_BLOCK_ROWS", 97)
         monkeypatch.setattr(llf_module, "_SOLVE_ROWS", 113)
         blocked = LocalLinearForestRegressor(n_estimators=40, random_state=1).fit(X, y)
     assert blocked.ridge_penalty_ == one.ridge_penalty_
