@@ -83,7 +83,7 @@ def main():
                   f"{a['mean_sd']:>6.3f}/{a['sd_across']:.3f}"
                   f"{a['coverage_bias_removed']:>8.3f}  "
                   f"{'; '.join(x for x in g['flag'] if x)}", flush=True)
-        print(f"{'':<28}(correction columns {list(f.correction_features_)}, ridge "
+        print(f"{'':<28}(correction columns {[int(c) for c in f.correction_features_]}, ridge "
               f"{f.ridge_penalty_:g}, {time.perf_counter() - t0:.0f} s)", flush=True)
 
 
