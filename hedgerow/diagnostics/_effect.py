@@ -410,6 +410,9 @@ class EffectVerdict(ReportMixin):
     and the interior (share of the alternative's R-loss the corrected forest removes).
     ``decision`` in ``EFFECT_DECISIONS``; ``conclusion`` the sentence; ``folds``;
     ``fold_trees``; ``level``; ``complete`` (False when cancelled); ``caution``.
+    ``effects``: DataFrame of each scored row's held-out effects (columns ``corrected``,
+    ``uncorrected``, ``constant``) and its ``fold``, the same index as ``losses``: what a
+    check against a known effect compares (benchmarks/bench_effect_verdict_family.py).
     """
 
     losses: pd.DataFrame
@@ -421,6 +424,7 @@ class EffectVerdict(ReportMixin):
     level: float
     complete: bool
     caution: str
+    effects: pd.DataFrame = None
 
     _title = "effect verdict (held-out R-loss)"
 
@@ -535,6 +539,9 @@ def effect_verdict(X, y, treatment, *, model=None, folds=5, fold_trees=EFFECT_FO
     losses = pd.DataFrame({name: r_loss(yt, wt, t) for name, t in tau.items()})
     losses["edge"] = edge_depth(Xa)[0] < EDGE_BAND
     losses = losses[scored]
+    effects = pd.DataFrame(tau)
+    effects["fold"] = fold
+    effects = effects[scored]
     rows = {}
     for alt in ("uncorrected", "constant"):
         cells = {}
@@ -557,4 +564,5 @@ def effect_verdict(X, y, treatment, *, model=None, folds=5, fold_trees=EFFECT_FO
                         "not clearly lower: the data do not show the effect varying."))
     return EffectVerdict(losses=losses, comparisons=comparisons, decision=decision,
                          conclusion=sentence, folds=int(folds), fold_trees=int(trees),
-                         level=level, complete=complete, caution=_caution())
+                         level=level, complete=complete, caution=_caution(),
+                         effects=effects)

@@ -114,6 +114,14 @@ def test_verdict_pairs_rows_and_refits_nothing_it_scores(trial):
         propensity_model=m.propensity_[~k0])
     expect = D.r_loss(m.y_centred_[k0], m.w_centred_[k0], f.predict_effect(X[k0]))
     assert np.allclose(v.losses["corrected"].to_numpy()[k0], expect)
+    # the held-out effects behind those losses, row by row, with each row's fold
+    assert v.effects.index.equals(v.losses.index)
+    assert np.array_equal(v.effects["fold"].to_numpy(), fold)
+    assert np.allclose(v.effects["corrected"].to_numpy()[k0], f.predict_effect(X[k0]))
+    for k in ("corrected", "uncorrected", "constant"):
+        assert np.allclose(D.r_loss(m.y_centred_, m.w_centred_, v.effects[k]),
+                           v.losses[k])
+    assert v.effects.loc[k0, "constant"].nunique() == 1
     assert v.decision in D.EFFECT_DECISIONS and EFFECT_CAUTION in repr(v)
 
 
