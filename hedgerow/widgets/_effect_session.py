@@ -157,8 +157,8 @@ class EffectSession(t.HasTraits):
         return self._verdict
 
     def _compute_verdict(self, progress):
-        return D.effect_verdict(self.model.X_train_, self.model.y_train_,
-                                self.model.treatment_, model=self.model,
+        # the caller's X (a frame keeps its column names: no feature-name warning)
+        return D.effect_verdict(self.X, self.y, self.treatment, model=self.model,
                                 folds=self.verdict_folds, fold_trees=self.verdict_fold_trees,
                                 random_state=self.random_state, progress=progress)
 

@@ -221,6 +221,26 @@ def test_in_a_kernel_like_loop_the_verdict_traits_change_on_the_loop(trial):
     assert len(threads) >= 3 and all(t is threading.main_thread() for t in threads)
 
 
+def test_on_a_frame_the_verdict_and_a_snapshot_warn_of_nothing(trial):
+    # the session hands the diagnostics the caller's frame, not the model's bare array
+    import warnings
+
+    import pandas as pd
+
+    from hedgerow.snapshot import Snapshot
+
+    X, y, w, _ = trial
+    frame = pd.DataFrame(X, columns=["slope", "moisture", "shade"])
+    ex = explore(frame, y, treatment=w, n_estimators=64, verdict_folds=2,
+                 verdict_fold_trees=16)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        v = ex.session.run_verdict()
+        snap = Snapshot.capture(ex)
+    assert v.complete and snap.headline["verdict"] == v.conclusion
+    ex.close()
+
+
 def test_bad_input_is_named(trial):
     X, y, w, m = trial
     with pytest.raises(ValueError, match="'model'"):
