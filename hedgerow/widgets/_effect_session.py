@@ -156,10 +156,10 @@ class EffectSession(t.HasTraits):
         """The last finished ``EffectVerdict`` (None before one is run)."""
         return self._verdict
 
-    def _compute_verdict(self, progress):
+    def _compute_verdict(self, progress, folds, fold_trees):
         # the caller's X (a frame keeps its column names: no feature-name warning)
         return D.effect_verdict(self.X, self.y, self.treatment, model=self.model,
-                                folds=self.verdict_folds, fold_trees=self.verdict_fold_trees,
+                                folds=folds, fold_trees=fold_trees,
                                 random_state=self.random_state, progress=progress)
 
     def run_verdict(self, progress=None):
@@ -178,7 +178,8 @@ class EffectSession(t.HasTraits):
         self.verdict_message = ""
         self.verdict_status = "running"
         try:
-            v = self._compute_verdict(False if progress is None else progress)
+            v = self._compute_verdict(False if progress is None else progress,
+                                      self.verdict_folds, self.verdict_fold_trees)
         except Exception as exc:
             self.verdict_message = f"{type(exc).__name__}: {exc}"
             self.verdict_status = "failed"
@@ -202,7 +203,8 @@ class EffectSession(t.HasTraits):
         job = self.verdict_job
         if job is not None and job.is_alive():
             return job
-        folds = int(self.verdict_folds)
+        # the size asked for now, even if the attributes change while the job waits
+        folds, fold_trees = int(self.verdict_folds), self.verdict_fold_trees
         self.verdict_message = ""
         self.verdict_progress = (0, folds)
         self.verdict_status = "running"
@@ -210,10 +212,10 @@ class EffectSession(t.HasTraits):
         def run(job):
             control = RunControl(lambda done, total: job.report(done, total, stop=False))
             job.on_cancel(control.cancel)  # effect_verdict stops after the current fold
-            return self._compute_verdict(control)
+            return self._compute_verdict(control, folds, fold_trees)
 
-        return self._runner.submit(Job(VERDICT_JOB, run, params={"folds": folds},
-                                       stops_itself=True))
+        return self._runner.submit(Job(VERDICT_JOB, run, stops_itself=True,
+                                       params={"folds": folds, "fold_trees": fold_trees}))
 
     @property
     def verdict_job(self) -> Job | None:
