@@ -34,6 +34,7 @@ from hedgerow._validation import (
     check_fit_data,
     check_level,
     check_predict_data,
+    checked_rows,
     preserve_fitted_state,
     validate_params,
 )
@@ -607,7 +608,8 @@ class TreatmentEffectForest(BaseEstimator):
             tau = self.oob_effect()
             lost = ~np.isfinite(tau)
             if np.any(lost):  # rows every tree drew: the all-tree effect stands in
-                tau[lost] = self.predict_effect(self.X_train_[lost])
+                # the training rows, already checked: no feature-name warning
+                tau[lost] = self.predict_effect(checked_rows(self.X_train_[lost], self))
             tau = tau[sel]
             e = self.propensity_[sel]
             gamma = tau + wt / (e * (1 - e)) * (yt - wt * tau)

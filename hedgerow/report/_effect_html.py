@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from hedgerow import diagnostics as D
 from hedgerow.report._effect_figures import slice_figure_key
-from hedgerow.report._html import _e, _figure, _kv_table, _table, page
+from hedgerow.report._html import _e, _figure, _kv_table, _table, page, sections
 from hedgerow.report._numbers import number
 
 __all__ = ["render_effect"]
@@ -16,10 +16,6 @@ _HEADINGS = {
     "effect-along": "The effect along columns through the probe",
     "data": "Data", "settings": "Settings", "cautions": "Cautions",
 }
-
-
-def _section(sid, body) -> str:
-    return f'<section id="{sid}"><h2>{_e(_HEADINGS[sid])}</h2>{body}</section>'
 
 
 def _pct(level) -> str:
@@ -172,7 +168,7 @@ _BODIES = {"verdict": _verdict_html, "average": _average_html, "overlap": _overl
 
 def render_effect(r) -> str:
     """Return the :class:`EffectReport` ``r`` as one self-contained HTML document."""
-    body = "".join(_section(s, _BODIES[s](r)) for s in r.sections)
+    nav, body = sections(r, _HEADINGS, _BODIES)
     meta = (f"{_e(r.data.n_rows)} rows, {_e(r.data.n_columns)} columns, outcome "
             f"<code>{_e(r.data.target)}</code>, {_e(r.treatment)} treatment; data "
             f"fingerprint <code>{_e(r.data.fingerprint)}</code>; made {_e(r.created)} by "
@@ -184,5 +180,4 @@ def render_effect(r) -> str:
                     "for this report (verdict=False), so it has no verdict section or "
                     "figure: whether the local linear correction of the effect is worth it "
                     "was not checked on held-out rows.</p>")
-    return page(r.title, r.version, meta, caution,
-                [(s, _HEADINGS[s]) for s in r.sections], body)
+    return page(r.title, r.version, meta, caution, nav, body)

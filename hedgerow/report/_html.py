@@ -86,8 +86,24 @@ def _kv_table(pairs) -> str:
     return f'<div class="hr-wrap"><table><tbody>{rows}</tbody></table></div>'
 
 
-def _section(sid, body) -> str:
-    return f'<section id="{sid}"><h2>{_e(_HEADINGS[sid])}</h2>{body}</section>'
+def section(sid, heading, body) -> str:
+    """Return one section of a report page: its id, its heading (escaped) and ``body``.
+
+    ``body`` is HTML already; ``sid`` is the anchor the page's nav links to (ids are
+    fixed names such as ``"effect-along"``, escaped all the same).
+    """
+    return f'<section id="{_e(sid)}"><h2>{_e(heading)}</h2>{body}</section>'
+
+
+def sections(r, headings, bodies):
+    """Return ``(nav, body)`` for the sections ``r.sections`` of a report ``r``, in order.
+
+    ``headings`` maps a section id to its heading, ``bodies`` to ``body(r)`` (its HTML);
+    ``nav`` is the ``(id, heading)`` pairs :func:`page` links to. Both report pages
+    build their sections here.
+    """
+    nav = [(sid, headings[sid]) for sid in r.sections]
+    return nav, "".join(section(sid, heading, bodies[sid](r)) for sid, heading in nav)
 
 
 def _figure(svg, caption) -> str:
@@ -290,12 +306,11 @@ def page(title, version, meta, notes_html, nav, body) -> str:
 
 def render(r) -> str:
     """Return the :class:`Report` ``r`` as one self-contained HTML document."""
-    body = "".join(_section(s, _BODIES[s](r)) for s in r.sections)
+    nav, body = sections(r, _HEADINGS, _BODIES)
     meta = (f"{_e(r.data.n_rows)} rows, {_e(r.data.n_columns)} columns, target "
             f"<code>{_e(r.data.target)}</code>; data fingerprint "
             f"<code>{_e(r.data.fingerprint)}</code>; made {_e(r.settings.created)} by "
             f"hedgerow {_e(r.settings.version)}. A static page: it opens offline and "
             f"computes nothing.")
     notes = "".join(f"<p class='hr-note'>{_e(n)}</p>" for n in r.notes)
-    return page(r.title, r.settings.version, meta, notes,
-                [(s, _HEADINGS[s]) for s in r.sections], body)
+    return page(r.title, r.settings.version, meta, notes, nav, body)

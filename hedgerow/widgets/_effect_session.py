@@ -3,19 +3,23 @@
 Plain Python (traitlets, no widgets): tests drive it without a browser. Every number it
 holds comes from ``hedgerow.diagnostics`` (``effect_probe``, ``overlap_profile``,
 ``effect_verdict``, ``effect_slices``, ``effect_edges``) or the estimator's own methods.
+The effect verdict (several cross-fitted folds) runs off the UI thread on the session's
+:class:`~hedgerow.widgets._runner.BackgroundRunner`, the regression session's runner.
 """
 
 from __future__ import annotations
-
-import threading
 
 import numpy as np
 import traitlets as t
 
 from hedgerow import diagnostics as D
 from hedgerow._progress import RunControl
+from hedgerow.widgets._runner import BackgroundRunner, Job, current_loop, run_on_loop
 
 __all__ = ["EffectSession"]
+
+#: Kind of the runner's job that computes the effect verdict.
+VERDICT_JOB = "effect verdict"
 
 
 class EffectSession(t.HasTraits):
@@ -28,11 +32,14 @@ class EffectSession(t.HasTraits):
     ``hedgerow.datasets.trial_effect_truth``) drawn in the effect slices; None for none.
     """
 
-    probe = t.Any()
-    feature = t.Int(0)
-    verdict_status = t.Unicode("not run")
-    verdict_progress = t.Tuple((0, 0))
-    verdict_message = t.Unicode("")
+    probe = t.Any(help="The probe point, one value per column.")
+    feature = t.Int(0, help="Index of the column the probe and slice views draw along.")
+    verdict_status = t.Unicode("not run", help="State of the effect verdict: 'not run', "
+                               "'running', 'done', 'cancelled' or 'failed'.")
+    verdict_progress = t.Tuple((0, 0), help="(folds done, folds) of the verdict running "
+                               "or last run.")
+    verdict_message = t.Unicode("", help="Error of the last verdict run that failed ('' "
+                                "once a new run starts).")
 
     def __init__(self, X, y, treatment, *, model=None, verdict_folds=5,
                  verdict_fold_trees=D.EFFECT_FOLD_TREES, random_state=0, truth=None,
@@ -77,8 +84,9 @@ class EffectSession(t.HasTraits):
         self.verdict_fold_trees = verdict_fold_trees
         self.random_state = random_state
         self._verdict = None
-        self._control = None
-        self._thread = None
+        self._closed = False
+        self._loop = current_loop()
+        self._runner = BackgroundRunner(self._verdict_published, self._on_ui)
         self._oob = None
         self.truth = truth
         self._slices = None  # (key, report) of the last effect slices
@@ -148,15 +156,30 @@ class EffectSession(t.HasTraits):
         """The last finished ``EffectVerdict`` (None before one is run)."""
         return self._verdict
 
+    def _compute_verdict(self, progress, folds, fold_trees):
+        # the caller's X (a frame keeps its column names: no feature-name warning)
+        return D.effect_verdict(self.X, self.y, self.treatment, model=self.model,
+                                folds=folds, fold_trees=fold_trees,
+                                random_state=self.random_state, progress=progress)
+
     def run_verdict(self, progress=None):
-        """Compute the effect verdict here and now (blocking); return it."""
+        """Compute the effect verdict here and now (blocking); return it.
+
+        For tests, scripts and notebook cells; the views call :meth:`start_verdict`.
+        ``progress``: None (no bar), True (a tqdm bar) or a ``RunControl`` (cancelling it
+        returns the folds finished, marked incomplete). A failure sets ``verdict_status``
+        to "failed", keeps the earlier verdict and raises.
+        """
+        job = self.verdict_job
+        if job is not None and job.is_alive():
+            raise RuntimeError("An effect verdict is already running in the background: "
+                               "wait for its job (start_verdict's) or cancel it "
+                               "(cancel_verdict) first.")
+        self.verdict_message = ""
         self.verdict_status = "running"
         try:
-            v = D.effect_verdict(self.model.X_train_, self.model.y_train_,
-                                 self.model.treatment_, model=self.model,
-                                 folds=self.verdict_folds, fold_trees=self.verdict_fold_trees,
-                                 random_state=self.random_state,
-                                 progress=False if progress is None else progress)
+            v = self._compute_verdict(False if progress is None else progress,
+                                      self.verdict_folds, self.verdict_fold_trees)
         except Exception as exc:
             self.verdict_message = f"{type(exc).__name__}: {exc}"
             self.verdict_status = "failed"
@@ -165,31 +188,64 @@ class EffectSession(t.HasTraits):
         self.verdict_status = "done" if v.complete else "cancelled"
         return v
 
-    def start_verdict(self):
-        """Run the verdict in a background thread (progress in ``verdict_progress``)."""
-        if self.verdict_status == "running":
-            return self._thread
-        self.verdict_progress = (0, int(self.verdict_folds))
+    def start_verdict(self) -> Job | None:
+        """Run the effect verdict on the session's background runner; return its ``Job``.
 
-        def on_update(done, total):
-            self.verdict_progress = (int(done), int(total or 0))
+        A job of kind ``VERDICT_JOB`` with progress per fold (``verdict_progress``); the
+        traits change on the kernel's event loop. While one is waiting or running that
+        job is returned and no second one starts; after :meth:`close`, None. Cancelling
+        (:meth:`cancel_verdict`) lets the fold in progress finish and keeps the folds
+        done as an incomplete verdict ("cancelled"); a failure sets "failed" and
+        ``verdict_message`` and keeps the earlier verdict.
+        """
+        if self._closed:
+            return None
+        job = self.verdict_job
+        if job is not None and job.is_alive():
+            return job
+        # the size asked for now, even if the attributes change while the job waits
+        folds, fold_trees = int(self.verdict_folds), self.verdict_fold_trees
+        self.verdict_message = ""
+        self.verdict_progress = (0, folds)
+        self.verdict_status = "running"
 
-        self._control = RunControl(on_update)
+        def run(job):
+            control = RunControl(lambda done, total: job.report(done, total, stop=False))
+            job.on_cancel(control.cancel)  # effect_verdict stops after the current fold
+            return self._compute_verdict(control, folds, fold_trees)
 
-        def work():
-            try:
-                self.run_verdict(self._control)
-            except Exception:  # shown through verdict_status / verdict_message
-                pass
+        return self._runner.submit(Job(VERDICT_JOB, run, stops_itself=True,
+                                       params={"folds": folds, "fold_trees": fold_trees}))
 
-        self._thread = threading.Thread(target=work, daemon=True, name="effect-verdict")
-        self._thread.start()
-        return self._thread
+    @property
+    def verdict_job(self) -> Job | None:
+        """The newest effect verdict job of this session's runner, or None."""
+        return self._runner.latest(VERDICT_JOB)
 
     def cancel_verdict(self):
         """Ask a running verdict to stop after its current fold."""
-        if self._control is not None:
-            self._control.cancel()
+        self._runner.cancel(VERDICT_JOB)
+
+    def _verdict_published(self, job):
+        """Runner callback (event loop): the job's state into the verdict traits."""
+        if job is not self._runner.latest(job.kind):
+            return
+        folds = int(job.params["folds"])
+        if job.outcome in ("waiting", "running"):
+            self.verdict_progress = (int(round(job.progress * folds)), folds)
+            self.verdict_status = "running"
+        elif job.outcome == "failed":  # the earlier verdict stays
+            self.verdict_message = job.message
+            self.verdict_status = "failed"
+        elif job.result is None:  # ended before it computed anything
+            self.verdict_status = "cancelled"
+        else:
+            v = job.result
+            self._verdict = v  # before the status: its observers draw it
+            self.verdict_status = "done" if v.complete else "cancelled"
+
+    def _on_ui(self, fn):
+        run_on_loop(self._loop, fn)
 
     # -- snapshots ---------------------------------------------------------------------------
     def snapshot_state(self) -> dict:
@@ -227,4 +283,7 @@ class EffectSession(t.HasTraits):
             self.feature = D.resolve_feature(self.model, feature)  # a name or an index
 
     def close(self):
-        self.cancel_verdict()
+        """Cancel this session's background work (the explorer closes it); no new run
+        starts after."""
+        self._closed = True
+        self._runner.cancel()

@@ -22,12 +22,13 @@ next progress step, and ``job.on_cancel(fn)`` registers what else to tell (a
 
 from __future__ import annotations
 
+import asyncio
 import itertools
 import logging
 import threading
 import time
 
-__all__ = ["BackgroundRunner", "Job", "JobCancelled"]
+__all__ = ["BackgroundRunner", "Job", "JobCancelled", "current_loop", "run_on_loop"]
 
 log = logging.getLogger("hedgerow.widgets")
 
@@ -37,6 +38,34 @@ ENDED = ("done", "cancelled", "failed")
 IDLE_SECONDS = 2.0
 
 _counter = itertools.count()
+
+
+def current_loop():
+    """Return the event loop running in this thread (the kernel's), or None.
+
+    A session calls it when it is made, on the kernel's thread, and hands the loop to
+    :func:`run_on_loop` for every delivery from the worker.
+    """
+    try:
+        return asyncio.get_running_loop()
+    except RuntimeError:
+        return None
+
+
+def run_on_loop(loop, fn):
+    """Run ``fn`` on ``loop`` when that loop is running, else here and now.
+
+    The ``on_ui`` of a session's runner: in a kernel, trait writes and redraws happen on
+    its event loop, never on the worker; without a running loop (tests, scripts) they
+    happen in the caller's thread.
+    """
+    if loop is not None and loop.is_running() and not loop.is_closed():
+        try:
+            loop.call_soon_threadsafe(fn)
+            return
+        except RuntimeError:
+            pass
+    fn()
 
 
 class JobCancelled(Exception):

@@ -6,7 +6,6 @@ The session calls diagnostics functions and caches their reports by what they de
 
 from __future__ import annotations
 
-import asyncio
 import contextlib
 import logging
 import threading
@@ -21,7 +20,14 @@ import traitlets as t
 from hedgerow import diagnostics as D
 from hedgerow._format import format_number
 from hedgerow._validation import check_ridge_penalty, column_names
-from hedgerow.widgets._runner import ENDED, BackgroundRunner, Job, JobCancelled
+from hedgerow.widgets._runner import (
+    ENDED,
+    BackgroundRunner,
+    Job,
+    JobCancelled,
+    current_loop,
+    run_on_loop,
+)
 
 __all__ = ["ExploreSession", "ProbeScene", "RefitCancelled"]
 
@@ -101,10 +107,7 @@ class ExploreSession(t.HasTraits):
         self._surface_jobs = {}  # the same keys -> the job computing it
         self._runner = BackgroundRunner(self._publish, self._on_ui)
         self.refit_log = []  # (params, outcome) of every refit, oldest first
-        try:
-            self._loop = asyncio.get_running_loop()
-        except RuntimeError:
-            self._loop = None
+        self._loop = current_loop()
         if model is None:
             params = {**DEFAULT_FOREST, **forest_params}
             with _quiet():
@@ -686,11 +689,4 @@ class ExploreSession(t.HasTraits):
 
     def _on_ui(self, fn):
         """Run ``fn`` on the kernel's event loop when there is one, else right here."""
-        loop = self._loop
-        if loop is not None and loop.is_running() and not loop.is_closed():
-            try:
-                loop.call_soon_threadsafe(fn)
-                return
-            except RuntimeError:
-                pass
-        fn()
+        run_on_loop(self._loop, fn)

@@ -119,6 +119,25 @@ def test_confounded_design_centring_removes_bias():
     assert abs(est.estimate - truth) < 3 * est.std_error
 
 
+def test_average_effect_of_a_forest_fitted_on_a_frame_warns_of_nothing():
+    # Rows drawn into every little bag have no out-of-bag effect; the average puts the
+    # all-tree effect in their place, from the training rows, which must not set off the
+    # "X does not have valid feature names" warning of a model fitted on a DataFrame.
+    import warnings
+
+    import pandas as pd
+
+    X, y, w, _ = load_trial_demo(600, random_state=2)
+    frame = pd.DataFrame(X, columns=["slope", "moisture", "shade"])
+    f = TreatmentEffectForest(n_estimators=64, random_state=0).fit(frame, y, w)
+    assert np.isnan(f.oob_effect()).any()  # the path that fills them is taken
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        est = f.average_effect()
+    same = TreatmentEffectForest(n_estimators=64, random_state=0).fit(X, y, w)
+    assert est.estimate == same.average_effect().estimate  # the frame changes no number
+
+
 def test_continuous_treatment_robinson_average():
     # Continuous dose, constant effect 1.5: the Robinson residual-on-residual slope with
     # its sandwich standard error (Robinson 1988).

@@ -192,6 +192,24 @@ def test_figures_are_inline_svg_in_their_sections(report):
     assert 'id="fig-overlap-zone-high"' in report.figures["overlap"]
 
 
+def test_sections_carry_their_ids_headings_and_nav_links_in_order(report, plain):
+    # the page's sections come from the helper the regression page uses (_html.sections)
+    import html
+
+    from hedgerow.report._effect_html import _HEADINGS
+
+    for rep in (report, plain):
+        page = rep.to_html()
+        nav = page[page.index("<nav"):page.index("</nav>")]
+        heads = [page.index(f'<section id="{sid}"><h2>{html.escape(_HEADINGS[sid])}</h2>')
+                 for sid in rep.sections]
+        links = [nav.index(f'<a href="#{sid}">{html.escape(_HEADINGS[sid])}</a>')
+                 for sid in rep.sections]
+        assert heads == sorted(heads) and links == sorted(links)
+        assert page.count("<section id=") == len(rep.sections)
+    assert "verdict" in report.sections and "verdict" not in plain.sections
+
+
 def test_the_effect_along_a_column_is_the_estimators(trial, report):
     X, y, w, model = trial
     cols = [int(c) for c in model.correction_features_][:3] or [0]

@@ -114,6 +114,37 @@ def test_every_section_is_present_in_order(report, page):
     assert report.coverage is None
 
 
+def test_the_page_is_the_one_it_was_before_the_shared_section_helper(report, page):
+    # Both report pages now build their sections with _html.sections. This is the
+    # regression page's former rendering, kept here verbatim as the reference: the
+    # shared helper must give the same bytes.
+    import html
+
+    from hedgerow.report import _html as H
+
+    def former_section(sid, body):
+        return f'<section id="{sid}"><h2>{html.escape(H._HEADINGS[sid], quote=True)}</h2>' \
+               f"{body}</section>"
+
+    body = "".join(former_section(s, H._BODIES[s](report)) for s in report.sections)
+    meta = (f"{H._e(report.data.n_rows)} rows, {H._e(report.data.n_columns)} columns, "
+            f"target <code>{H._e(report.data.target)}</code>; data fingerprint "
+            f"<code>{H._e(report.data.fingerprint)}</code>; made "
+            f"{H._e(report.settings.created)} by hedgerow {H._e(report.settings.version)}. "
+            f"A static page: it opens offline and computes nothing.")
+    notes = "".join(f"<p class='hr-note'>{H._e(n)}</p>" for n in report.notes)
+    former = H.page(report.title, report.settings.version, meta, notes,
+                    [(s, H._HEADINGS[s]) for s in report.sections], body)
+    assert page == former
+
+
+def test_a_section_escapes_its_heading_and_id():
+    from hedgerow.report._html import section
+
+    assert section("a&b", 'x < "y"', "<p>kept</p>") == \
+        '<section id="a&amp;b"><h2>x &lt; &quot;y&quot;</h2><p>kept</p></section>'
+
+
 def test_data_summary_and_settings(report, page, data, model):
     X, y = data
     d = report.data

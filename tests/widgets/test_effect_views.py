@@ -109,6 +109,138 @@ def test_a_cancelled_verdict_says_incomplete(trial):
     assert s.verdict_status == "cancelled" and not v.complete
 
 
+def _hold_after_first_fold(session):
+    """Hold the verdict's worker once the first fold is reported, until released.
+
+    Returns (reached, release, seen): ``seen`` records the two buttons' state at that
+    moment. The main thread then acts (cancel, close) while the run is mid-way.
+    """
+    import threading
+
+    reached, release, seen = threading.Event(), threading.Event(), {}
+
+    def on_progress(change):
+        if change["new"][0] == 1 and not reached.is_set():
+            seen["running"] = session.verdict_status
+            reached.set()
+            assert release.wait(60)
+
+    session.observe(on_progress, names="verdict_progress")
+    return reached, release, seen
+
+
+def test_cancelling_a_background_verdict_keeps_the_folds_done(explorer, trial):
+    X, y, w, m = trial
+    s, view = explorer.session, explorer.verdict_view
+    reached, release, seen = _hold_after_first_fold(s)
+    view.run_button.click()
+    job = s.verdict_job
+    assert reached.wait(60) and seen["running"] == "running"
+    assert view.run_button.disabled and not view.cancel_button.disabled
+    assert s.start_verdict() is job  # a second click starts no second run
+    with pytest.raises(RuntimeError, match="already running"):
+        s.run_verdict()
+    view.cancel_button.click()
+    release.set()
+    assert job.join(60) and job.outcome == "cancelled"
+    assert s.verdict_status == "cancelled" and s.verdict_progress == (1, 3)
+    v = s.verdict
+    assert v is job.result and not v.complete
+    # the rows scored are those of the first fold, no more
+    from hedgerow.diagnostics._heldout import fold_assignment
+
+    assert len(v.losses) == int((fold_assignment(len(y), 3, s.random_state) == 0).sum())
+    assert "Incomplete" in view.conclusion_html.value
+    assert not view.run_button.disabled and view.cancel_button.disabled
+
+
+def test_a_failed_verdict_is_shown_and_the_earlier_one_kept(explorer, monkeypatch):
+    import html
+
+    s, view = explorer.session, explorer.verdict_view
+    before = s.run_verdict()
+    assert s.verdict_status == "done"
+
+    def broken(*args, **kwargs):
+        raise ValueError("no rows left in a fold")
+
+    monkeypatch.setattr(D, "effect_verdict", broken)
+    job = s.start_verdict()
+    assert job.join(60) and job.outcome == "failed"
+    assert s.verdict_status == "failed"
+    assert s.verdict_message == "ValueError: no rows left in a fold"
+    assert s.verdict is before
+    assert "the effect verdict failed: ValueError: no rows left in a fold" in \
+        view.error_html.value
+    assert html.escape(before.conclusion) in view.conclusion_html.value
+    # a run after the failure clears the error and draws the new verdict
+    monkeypatch.undo()
+    job = s.start_verdict()
+    assert job.join(60) and job.outcome == "done" and s.verdict is job.result
+    assert s.verdict_message == "" and view.error_html.value == ""
+
+
+def test_closing_the_explorer_stops_a_running_verdict(trial):
+    X, y, w, m = trial
+    ex = explore(X, y, treatment=w, model=m, verdict_folds=4, verdict_fold_trees=32)
+    s = ex.session
+    reached, release, _ = _hold_after_first_fold(s)
+    job = s.start_verdict()
+    assert reached.wait(60)
+    ex.close()
+    release.set()
+    assert job.join(60) and job.outcome == "cancelled"
+    assert s.verdict_status == "cancelled" and s.verdict_progress == (1, 4)
+    assert not s.verdict.complete
+    assert s.start_verdict() is None and s.verdict_job is job  # nothing new after close
+
+
+def test_in_a_kernel_like_loop_the_verdict_traits_change_on_the_loop(trial):
+    # as in a Jupyter kernel: the session is made inside a running event loop, and the
+    # runner's worker hands every state change to that loop (the views redraw there)
+    import asyncio
+    import threading
+
+    X, y, w, m = trial
+
+    async def run():
+        s = EffectSession(X, y, w, model=m, verdict_folds=2, verdict_fold_trees=16)
+        threads = []
+        s.observe(lambda change: threads.append(threading.current_thread()),
+                  names=["verdict_status", "verdict_progress"])
+        job = s.start_verdict()
+        for _ in range(3000):
+            if not job.is_alive():
+                break
+            await asyncio.sleep(0.02)
+        return s, job, threads
+
+    s, job, threads = asyncio.run(run())
+    assert job.outcome == "done" and s.verdict_status == "done" and s.verdict.complete
+    assert s.verdict_progress == (2, 2)
+    assert len(threads) >= 3 and all(t is threading.main_thread() for t in threads)
+
+
+def test_on_a_frame_the_verdict_and_a_snapshot_warn_of_nothing(trial):
+    # the session hands the diagnostics the caller's frame, not the model's bare array
+    import warnings
+
+    import pandas as pd
+
+    from hedgerow.snapshot import Snapshot
+
+    X, y, w, _ = trial
+    frame = pd.DataFrame(X, columns=["slope", "moisture", "shade"])
+    ex = explore(frame, y, treatment=w, n_estimators=64, verdict_folds=2,
+                 verdict_fold_trees=16)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        v = ex.session.run_verdict()
+        snap = Snapshot.capture(ex)
+    assert v.complete and snap.headline["verdict"] == v.conclusion
+    ex.close()
+
+
 def test_bad_input_is_named(trial):
     X, y, w, m = trial
     with pytest.raises(ValueError, match="'model'"):

@@ -183,3 +183,30 @@ def test_views_start_no_thread(monkeypatch):
     assert from_widgets, "the patch saw no thread: the runner's own should be there"
     assert {m.name for m in from_widgets} == {"_runner.py"}
     assert all(v.error == "" for v in app.views)
+
+
+def test_the_effect_explorer_starts_no_thread(monkeypatch):
+    """The effect verdict runs on the runner too: no thread of the effect session's own."""
+    from hedgerow.datasets import load_trial_demo
+
+    widgets = pathlib.Path(__file__).resolve().parents[2] / "hedgerow" / "widgets"
+    real = threading.Thread
+    makers = []
+
+    class Recorded(real):
+        def __init__(self, *args, **kwargs):
+            frame = inspect.currentframe().f_back
+            makers.append(pathlib.Path(frame.f_code.co_filename).resolve())
+            super().__init__(*args, **kwargs)
+
+    monkeypatch.setattr(threading, "Thread", Recorded)
+    X, y, w, _ = load_trial_demo(300, random_state=3)
+    app = explore(X, y, treatment=w, n_estimators=64, verdict_folds=2,
+                  verdict_fold_trees=16)
+    app.verdict_view.run_button.click()
+    job = app.session.verdict_job
+    assert job.join(60) and job.outcome == "done"
+    assert app.session.verdict_status == "done"
+    from_widgets = [m for m in makers if m.parent == widgets]
+    assert {m.name for m in from_widgets} == {"_runner.py"}
+    app.close()
