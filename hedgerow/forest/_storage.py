@@ -106,6 +106,89 @@ def _apply_chunk_adjacent(X, feature, threshold, left, node_start, leaf_start, d
     dest[:, :] = out.T
 
 
+#: A chunk of queries gathers its weights by sorting (no accumulator over the training
+#: rows) when every query's leaf rows, counted with repeats, number under 1/16 of n.
+SPARSE_GATHER_SHARE = 16
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _weights_chunk_auto(leaves, queries, usable, leaf_ptr, leaf_rows, n):
+    """``_weights_chunk``'s pieces, by gather-and-sort when the queries touch few rows.
+
+    A probe of a million-row forest touches a few thousand rows; an accumulator over all
+    n rows (8 MB, page faults on first touch) then costs more than the weights. The sorted
+    gather adds each row's weights in the same order (trees in turn, a leaf's rows in
+    turn: a stable sort keeps it), so it gives the same bits.
+    """
+    m = queries.shape[0]
+    B = leaves.shape[1]
+    all_usable = usable.shape[0] == 0
+    most = 0
+    for i in range(m):
+        row = queries[i]
+        k = 0
+        for t in range(B):
+            if not all_usable and not usable[row, t]:
+                continue
+            leaf = leaves[row, t]
+            k += leaf_ptr[leaf + 1] - leaf_ptr[leaf]
+        most = max(most, k)
+    if most * SPARSE_GATHER_SHARE >= n:
+        return _weights_chunk(leaves, queries, usable, leaf_ptr, leaf_rows, n)
+    return _weights_chunk_sorted(leaves, queries, usable, leaf_ptr, leaf_rows, most)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _weights_chunk_sorted(leaves, queries, usable, leaf_ptr, leaf_rows, most):
+    """``_weights_chunk``'s pieces by gathering each query's (row, weight) pairs and
+    sorting them by row (stable: the additions keep tree order)."""
+    m = queries.shape[0]
+    B = leaves.shape[1]
+    all_usable = usable.shape[0] == 0
+    cap = max(16, m * most)
+    indices = np.empty(cap, dtype=np.int32)
+    data = np.empty(cap)
+    indptr = np.zeros(m + 1, dtype=np.int64)
+    n_used = np.zeros(m, dtype=np.int64)
+    rs = np.empty(most, dtype=np.int64)
+    ws = np.empty(most)
+    nnz = 0
+    for i in range(m):
+        row = queries[i]
+        k = 0
+        used = 0
+        for t in range(B):
+            if not all_usable and not usable[row, t]:
+                continue
+            leaf = leaves[row, t]
+            a = leaf_ptr[leaf]
+            b = leaf_ptr[leaf + 1]
+            if b <= a:
+                continue
+            used += 1
+            w = 1.0 / (b - a)
+            for p in range(a, b):
+                rs[k] = leaf_rows[p]
+                ws[k] = w
+                k += 1
+        n_used[i] = used
+        order = np.argsort(rs[:k], kind="mergesort")
+        j = 0
+        q = nnz
+        while j < k:
+            r = rs[order[j]]
+            acc = 0.0
+            while j < k and rs[order[j]] == r:
+                acc += ws[order[j]]
+                j += 1
+            indices[q] = r
+            data[q] = acc / used
+            q += 1
+        nnz = q
+        indptr[i + 1] = nnz
+    return indptr, indices[:nnz], data[:nnz], n_used
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
 def _weights_chunk(leaves, queries, usable, leaf_ptr, leaf_rows, n):
     """CSR pieces (indptr, indices, data, n_used) of the forest weights of the queries
@@ -518,8 +601,8 @@ class ForestArrays:
 
         def run(ab):
             a, b = ab
-            return _weights_chunk(leaves, dest[a:b], u, self.leaf_ptr, self.leaf_rows,
-                                  self.n_train)
+            return _weights_chunk_auto(leaves, dest[a:b], u, self.leaf_ptr,
+                                       self.leaf_rows, self.n_train)
 
         parts = _map(run, pieces, n_jobs)
         if not parts:

@@ -578,3 +578,44 @@ def test_unknown_storage_layout_is_refused_by_name(bagged):
     blank = object.__new__(type(bagged.forest_))
     with pytest.raises(ValueError, match="storage layout 99.*reads layouts 1 and 2"):
         blank.__setstate__(state)
+
+
+@pytest.mark.parametrize("oob", [False, True])
+def test_sorted_gather_weights_equal_the_accumulator(oob):
+    # The probe's weights by gather-and-sort (chosen when the queries touch few training
+    # rows) are the same bits as the accumulator over every row: the same additions in
+    # the same order.
+    from hedgerow import HonestForestRegressor
+    from hedgerow.forest._storage import (
+        _weights_chunk,
+        _weights_chunk_auto,
+        _weights_chunk_sorted,
+    )
+
+    rng = np.random.default_rng(53)
+    X = rng.uniform(size=(20000, 4))
+    y = X[:, 0] + rng.normal(scale=0.2, size=20000)
+    f = HonestForestRegressor(n_estimators=32, random_state=1).fit(X, y).forest_
+    rows = np.arange(0, 20000, 211)
+    leaves = f.apply(X[rows])
+    usable = ~f.inbag(rows) if oob else np.zeros((0, 0), dtype=np.bool_)
+    queries = np.arange(rows.size)
+    most = int(max((f.leaf_ptr[leaves[i] + 1] - f.leaf_ptr[leaves[i]])[
+        usable[i] if oob else slice(None)].sum() for i in queries))
+    dense = _weights_chunk(leaves, queries, usable, f.leaf_ptr, f.leaf_rows, f.n_train)
+    sparse = _weights_chunk_sorted(leaves, queries, usable, f.leaf_ptr, f.leaf_rows, most)
+    for a, b in zip(dense, sparse, strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert most * 16 < f.n_train  # this case takes the sorted path in weights()
+    auto = _weights_chunk_auto(leaves, queries, usable, f.leaf_ptr, f.leaf_rows, f.n_train)
+    for a, b in zip(dense, auto, strict=True):
+        np.testing.assert_array_equal(a, b)
+    # a small forest, whose queries touch many of its rows, keeps the accumulator
+    g = HonestForestRegressor(n_estimators=64, random_state=1).fit(X[:1500], y[:1500]).forest_
+    lv = g.apply(X[:40])
+    u = ~g.inbag(np.arange(40)) if oob else usable
+    q = np.arange(40)
+    small = _weights_chunk_auto(lv, q, u, g.leaf_ptr, g.leaf_rows, g.n_train)
+    for a, b in zip(_weights_chunk(lv, q, u, g.leaf_ptr, g.leaf_rows, g.n_train), small,
+                    strict=True):
+        np.testing.assert_array_equal(a, b)
