@@ -251,6 +251,22 @@ _FIELDS = (
 )
 
 
+def _check_fields(d, fields, source):
+    """Raise ``SnapshotError`` naming the first of ``fields`` missing or malformed in ``d``."""
+    for section, name, kind, nullable in fields:
+        where = f"{section}.{name}" if section else name
+        holder = d[section] if section else d
+        if name not in holder:
+            raise SnapshotError(f"{source} lacks the field {where!r}.")
+        value = holder[name]
+        if value is None and nullable:
+            continue
+        ok, expected = _KINDS[kind]
+        if not ok(value):
+            raise SnapshotError(f"The field {where!r} of {source} must be {expected}"
+                                f"{' or null' if nullable else ''}. Got {value!r} instead.")
+
+
 def _validate(d, source):
     """Raise ``SnapshotError`` naming the first missing or malformed field of ``d``."""
     if not isinstance(d, dict):
@@ -265,18 +281,7 @@ def _validate(d, source):
             f"{source} has snapshot format version {version!r}; this hedgerow reads "
             f"version {FORMAT_VERSION}. Save it again with a matching hedgerow version."
         )
-    for section, name, kind, nullable in _FIELDS:
-        where = f"{section}.{name}" if section else name
-        holder = d[section] if section else d
-        if name not in holder:
-            raise SnapshotError(f"{source} lacks the field {where!r}.")
-        value = holder[name]
-        if value is None and nullable:
-            continue
-        ok, expected = _KINDS[kind]
-        if not ok(value):
-            raise SnapshotError(f"The field {where!r} of {source} must be {expected}"
-                                f"{' or null' if nullable else ''}. Got {value!r} instead.")
+    _check_fields(d, _FIELDS, source)
     est = d["settings"]["estimator"]
     if est not in ESTIMATORS:
         raise SnapshotError(f"The field 'settings.estimator' of {source} must be one of "
@@ -326,19 +331,8 @@ def _validate_effect_sections(d, source, est):
         if present and not isinstance(d[section], dict):
             raise SnapshotError(f"The field {section!r} of {source} must be an object. Got "
                                 f"{d[section]!r} instead.")
-    if not effect:
-        return
-    for section, name, kind, nullable in _EFFECT_FIELDS:
-        where = f"{section}.{name}"
-        if name not in d[section]:
-            raise SnapshotError(f"{source} lacks the field {where!r}.")
-        value = d[section][name]
-        if value is None and nullable:
-            continue
-        ok, expected = _KINDS[kind]
-        if not ok(value):
-            raise SnapshotError(f"The field {where!r} of {source} must be {expected}"
-                                f"{' or null' if nullable else ''}. Got {value!r} instead.")
+    if effect:
+        _check_fields(d, _EFFECT_FIELDS, source)
 
 
 def _check_path(path, what="path"):

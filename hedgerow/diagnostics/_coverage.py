@@ -229,6 +229,36 @@ def _summarise(results, done, templates, target, edge, level):
     return pd.DataFrame(rows, columns=COLUMNS)
 
 
+def run_replications(fn, tasks, shared, *, client, progress, what, desc) -> dict:
+    """Return ``{r: fn(tasks[r], *shared)}`` for the replications that finished.
+
+    In this process in order, or one task per replication on the dask cluster of
+    ``client``; ``progress`` as in ``progress_bar`` (a bar, none, or a ``RunControl``). A
+    ``KeyboardInterrupt`` or a cancel stops the run (outstanding cluster tasks are
+    cancelled) and the finished replications are returned.
+    """
+    from hedgerow._distributed import run_tasks
+
+    results = {}
+    bar = progress_bar(len(tasks), desc, progress)
+
+    def finished(r, value):
+        results[r] = value
+        bar.update(1)
+
+    try:
+        if client is None:
+            for r, task in enumerate(tasks):
+                finished(r, fn(task, *shared))
+        else:
+            run_tasks(client, fn, tasks, shared=shared, what=what, on_result=finished)
+    except KeyboardInterrupt:
+        pass
+    finally:
+        bar.close()
+    return results
+
+
 def coverage_readout(model, X=None, y=None, *, truth=None, reps=20, level=0.95,
                      n_eval=200, progress=True, random_state=0, client=None,
                      surrogate="model") -> CoverageReport:
@@ -266,7 +296,7 @@ def coverage_readout(model, X=None, y=None, *, truth=None, reps=20, level=0.95,
     A ``KeyboardInterrupt`` returns the counts of the completed replications (and cancels
     the outstanding tasks on a cluster).
     """
-    from hedgerow._distributed import check_client, run_tasks
+    from hedgerow._distributed import check_client
     from hedgerow.diagnostics._checks import check_count, check_model
     from hedgerow.estimators import HonestForestRegressor, LocalLinearForestRegressor
 
@@ -308,24 +338,9 @@ def coverage_readout(model, X=None, y=None, *, truth=None, reps=20, level=0.95,
         "honest forest": HonestForestRegressor(**{k: params[k] for k in forest_keys}),
     }
     tasks = [(seq, truth is not None, templates, level, names) for seq in seqs[1:]]
-    results = {}
-    bar = progress_bar(reps, "coverage readout", progress)
-
-    def finished(r, value):
-        results[r] = value
-        bar.update(1)
-
-    try:
-        if client is None:
-            for r, task in enumerate(tasks):
-                finished(r, _replication(task, X, mean, resid, eval_idx))
-        else:
-            run_tasks(client, _replication, tasks, shared=(X, mean, resid, eval_idx),
-                      what="replication", on_result=finished)
-    except KeyboardInterrupt:
-        pass
-    finally:
-        bar.close()
+    results = run_replications(_replication, tasks, (X, mean, resid, eval_idx),
+                               client=client, progress=progress, what="replication",
+                               desc="coverage readout")
     done = sorted(results)  # replication order, whatever order they finished in
     if done:
         frame = _summarise(results, done, templates, mean[eval_idx], edge, level)

@@ -17,8 +17,7 @@ import pandas as pd
 from scipy.stats import binomtest
 from sklearn.base import clone
 
-from hedgerow._progress import progress_bar
-from hedgerow.diagnostics._coverage import FLAG_OFF_CENTRE, FLAG_TOO_NARROW
+from hedgerow.diagnostics._coverage import FLAG_OFF_CENTRE, FLAG_TOO_NARROW, run_replications
 from hedgerow.diagnostics._heldout import edge_depth
 from hedgerow.diagnostics._report import ReportMixin
 from hedgerow.diagnostics._verdict import EDGE_BAND
@@ -193,7 +192,7 @@ def effect_coverage_readout(model, X, y, treatment, *, truth=None, reps=20, leve
     Caution: decision support, not advice; the effect reading assumes unconfoundedness
     (not checked here) and overlap; defer to the study design and to domain review.
     """
-    from hedgerow._distributed import check_client, run_tasks
+    from hedgerow._distributed import check_client
     from hedgerow._validation import check_level
     from hedgerow.estimators._effect_forest import (
         DEFAULT_EFFECT_INTERVAL,
@@ -244,25 +243,9 @@ def effect_coverage_readout(model, X, y, treatment, *, truth=None, reps=20, leve
     methods = [DEFAULT_EFFECT_INTERVAL] + [m for m in EFFECT_INTERVAL_METHODS
                                            if m != DEFAULT_EFFECT_INTERVAL]
     tasks = [(seq, truth is not None, clone(model), methods, level) for seq in seqs[1:]]
-    results = {}
-    bar = progress_bar(reps, "effect coverage readout", progress)
-
-    def finished(r, value):
-        results[r] = value
-        bar.update(1)
-
-    try:
-        if client is None:
-            for r, task in enumerate(tasks):
-                finished(r, _effect_replication(task, X, w, mean, resid, eval_idx))
-        else:
-            run_tasks(client, _effect_replication, tasks,
-                      shared=(X, w, mean, resid, eval_idx), what="effect replication",
-                      on_result=finished)
-    except KeyboardInterrupt:
-        pass
-    finally:
-        bar.close()
+    results = run_replications(_effect_replication, tasks, (X, w, mean, resid, eval_idx),
+                               client=client, progress=progress, what="effect replication",
+                               desc="effect coverage readout")
     done = sorted(results)  # replication order, whatever order they finished in
     rows = []
     if len(done) >= 2:
