@@ -6,7 +6,6 @@ The treatment-effect analogue of ``slices``. Every report carries ``EFFECT_CAUTI
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -22,7 +21,12 @@ from hedgerow.diagnostics._effect import (
     interval_method,
     neighbourhood_difference,
 )
-from hedgerow.diagnostics._report import ReportMixin, check_probe_point, has_little_bags
+from hedgerow.diagnostics._report import (
+    MethodRows,
+    ReportMixin,
+    check_probe_point,
+    has_little_bags,
+)
 
 __all__ = ["EffectSliceReport", "effect_slices", "EFFECT_SLICE_GRID"]
 
@@ -31,7 +35,7 @@ EFFECT_SLICE_GRID = 40
 
 
 @dataclass(frozen=True)
-class EffectSliceReport(ReportMixin):
+class EffectSliceReport(MethodRows, ReportMixin):
     """Effects along one column for several methods (long format in ``frame``).
 
     Attributes
@@ -69,17 +73,7 @@ class EffectSliceReport(ReportMixin):
         """The methods of ``frame``, in the order drawn."""
         return tuple(self._by_method)
 
-    def method(self, name: str) -> pd.DataFrame:
-        """Return the rows of one method (empty when it is not in the report)."""
-        part = self._by_method.get(name)
-        if part is None:
-            return self.frame.iloc[:0].reset_index(drop=True)
-        return part.copy(deep=False)
 
-    @cached_property
-    def _by_method(self) -> dict:
-        return {str(name): part.reset_index(drop=True)
-                for name, part in self.frame.groupby("method", sort=False)}
 
     @property
     def note(self) -> str:

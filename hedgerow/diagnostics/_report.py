@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import html
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -10,7 +11,7 @@ import pandas as pd
 from hedgerow._format import format_number
 from hedgerow._validation import CheckedRows, checked_rows, fitted_columns
 
-__all__ = ["ReportMixin", "check_probe_point", "has_little_bags", "kish_ess"]
+__all__ = ["MethodRows", "ReportMixin", "check_probe_point", "has_little_bags", "kish_ess"]
 
 
 class ReportMixin:
@@ -78,3 +79,20 @@ def check_probe_point(model, x) -> np.ndarray:
     if not np.all(np.isfinite(arr)):
         raise ValueError(f"The probe point 'x' must be finite. Got {arr.tolist()!r} instead.")
     return checked_rows(arr.reshape(1, -1), model, "x")
+
+
+class MethodRows:
+    """Mixin for reports with a long ``frame`` that has a ``method`` column."""
+
+    def method(self, name: str) -> pd.DataFrame:
+        """Return the rows of one method (empty when it is not in the report)."""
+        part = self._by_method.get(name)
+        if part is None:
+            return self.frame.iloc[:0].reset_index(drop=True)
+        return part.copy(deep=False)
+
+    @cached_property
+    def _by_method(self) -> dict:
+        # grouped once: views ask for every method at every probe move
+        return {str(name): part.reset_index(drop=True)
+                for name, part in self.frame.groupby("method", sort=False)}

@@ -3,13 +3,17 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cached_property
 
 import numpy as np
 import pandas as pd
 
 from hedgerow._validation import checked_rows, column_names
-from hedgerow.diagnostics._report import ReportMixin, check_probe_point, has_little_bags
+from hedgerow.diagnostics._report import (
+    MethodRows,
+    ReportMixin,
+    check_probe_point,
+    has_little_bags,
+)
 from hedgerow.inference import normal_interval
 
 __all__ = ["SliceReport", "slices", "method_label", "resolve_feature"]
@@ -53,7 +57,7 @@ def resolve_feature(model, feature) -> int:
 
 
 @dataclass(frozen=True)
-class SliceReport(ReportMixin):
+class SliceReport(MethodRows, ReportMixin):
     """Predictions along one column for several methods (long format in ``frame``).
 
     ``frame`` columns: method, value (the grid), prediction, lower, upper. In the
@@ -73,18 +77,7 @@ class SliceReport(ReportMixin):
     def to_frame(self) -> pd.DataFrame:
         return self.frame.copy()
 
-    def method(self, name: str) -> pd.DataFrame:
-        """Return the rows of one method."""
-        part = self._by_method.get(name)
-        if part is None:
-            return self.frame.iloc[:0].reset_index(drop=True)
-        return part.copy(deep=False)
 
-    @cached_property
-    def _by_method(self) -> dict:
-        # grouped once: views ask for every method at every probe move
-        return {str(name): part.reset_index(drop=True)
-                for name, part in self.frame.groupby("method", sort=False)}
 
 
 def slices(models, x, feature, grid, *, average=False, background=None, level=0.95,

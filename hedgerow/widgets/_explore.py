@@ -186,12 +186,7 @@ def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, ref
         session = ExploreSession(X, y, model=model, compare=compare, refit_delay=refit_delay,
                                  **forest_params)
         return Explorer(session, feature=feature)
-    clash = [k for k, v in (("model", model), ("feature", feature)) if v is not None]
-    clash += sorted(forest_params)
-    if clash:
-        raise ValueError(f"The 'snapshot' parameter fixes the model, its settings and the "
-                         f"view; pass none of {clash} with it. Got snapshot={snapshot!r}.")
-    snap = snapshot if isinstance(snapshot, Snapshot) else Snapshot.load(snapshot)
+    snap = _load_snapshot(snapshot, model, feature, forest_params)
     if snap.estimator == "TreatmentEffectForest":
         raise ValueError("The 'snapshot' parameter holds a TreatmentEffectForest: pass its "
                          "'treatment' to open the effect explorer.")
@@ -220,6 +215,16 @@ def explore(X, y, *, treatment=None, model=None, feature=None, compare=True, ref
     return explorer
 
 
+def _load_snapshot(snapshot, model, feature, forest_params) -> Snapshot:
+    """Return the snapshot (loaded from a path if need be), refusing what it fixes itself."""
+    clash = [k for k, v in (("model", model), ("feature", feature)) if v is not None]
+    clash += sorted(forest_params)
+    if clash:
+        raise ValueError(f"The 'snapshot' parameter fixes the model, its settings and the "
+                         f"view; pass none of {clash} with it. Got snapshot={snapshot!r}.")
+    return snapshot if isinstance(snapshot, Snapshot) else Snapshot.load(snapshot)
+
+
 def _effect_explorer(X, y, treatment, *, model, feature, snapshot, compare,
                      allow_data_mismatch=False, **forest_params):
     from hedgerow.snapshot import EFFECT_ESTIMATOR
@@ -234,12 +239,7 @@ def _effect_explorer(X, y, treatment, *, model, feature, snapshot, compare,
         if feature is not None:
             session.feature = feature
         return EffectExplorer(session)
-    clash = [k for k, v in (("model", model), ("feature", feature)) if v is not None]
-    clash += sorted(forest_params)
-    if clash:
-        raise ValueError(f"The 'snapshot' parameter fixes the model, its settings and the "
-                         f"view; pass none of {clash} with it. Got snapshot={snapshot!r}.")
-    snap = snapshot if isinstance(snapshot, Snapshot) else Snapshot.load(snapshot)
+    snap = _load_snapshot(snapshot, model, feature, forest_params)
     if snap.estimator != EFFECT_ESTIMATOR:
         raise ValueError(f"The 'snapshot' parameter must hold a {EFFECT_ESTIMATOR} to open "
                          f"with 'treatment'. Got {snap.estimator} instead; open it without "
