@@ -88,7 +88,7 @@ class EffectSlicesView(_EffectView):
         self.children = [
             W.HTML("<b>effect slices</b> <small>each method's effect along one column, the "
                    "other columns held at the probe</small>"),
-            self.caution, self.error_html, self.column_select, self.figure,
+            self.caution, self.error_html, self.column_select, self.figure_slot(self.figure),
             self.legend_html, self.ends_html, self.settings_html]
         s.observe(self._on_session, names=["probe", "feature"])
         self.redraw()
@@ -193,7 +193,8 @@ class EffectEdgesView(_EffectView):
                    "minus that of the same trees uncorrected, paired row by row, per "
                    "edge-depth band (below the dashed line: the correction fits those rows "
                    "better); diamonds: band means, bars: their intervals</small>"),
-            self.caution, self.error_html, self.figure, self.reading_html, self.table_html]
+            self.caution, self.error_html, self.figure_slot(self.figure), self.reading_html,
+            self.table_html]
         self.redraw()
 
     def redraw(self):

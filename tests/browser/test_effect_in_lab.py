@@ -110,6 +110,18 @@ def test_the_effect_explorer_moves_its_probe_and_runs_its_verdict(lab, page):
         _no_error_and_the_caution(page, "overlap")
         page.screenshot(path=str(ARTIFACTS / "effect-overlap.png"))
 
+        # the slices and edges tabs: lines and points of real size, drawn once opened
+        sized = """els => els.filter(e => {
+          const b = e.getBoundingClientRect(); return b.height > 0.5 || b.width > 0.5;
+        }).length"""
+        for title, marks in (("effect slices", "path.line"), ("effect edges", "path.dot")):
+            _tab(page, title)
+            shown = page.locator(f".hedgerow-effect-explorer .bqplot:visible {marks}")
+            wait_until(lambda shown=shown: shown.count() > 0 and shown.evaluate_all(sized) > 0,
+                       20, f"marks in the {title} figure")
+            _no_error_and_the_caution(page, title)
+            page.screenshot(path=str(ARTIFACTS / f"effect-{title.split()[-1]}.png"))
+
         # the verdict, from its button (2 folds of at most 24 trees: see the notebook)
         _tab(page, "effect verdict")
         explorer = page.locator(".hedgerow-effect-explorer")
