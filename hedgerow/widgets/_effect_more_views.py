@@ -1,8 +1,9 @@
-"""The effect explorer's slices and edges views.
+"""The effect explorer's slices, edges and coverage views.
 
 Each renders what its ``EffectSession`` returns (``slice_report`` from
-``diagnostics.effect_slices``, ``edge_report`` from ``diagnostics.effect_edges``); neither
-computes a statistic. Both show the effect caution at their top.
+``diagnostics.effect_slices``, ``edge_report`` from ``diagnostics.effect_edges``,
+``coverage`` from ``diagnostics.effect_coverage_readout``); none computes a statistic.
+Each shows the effect caution at its top.
 """
 
 from __future__ import annotations
@@ -17,7 +18,8 @@ from hedgerow.widgets._base import held, plain_figure
 from hedgerow.widgets._effect_views import _EffectView
 from hedgerow.widgets._style import PROBE_COLOUR, colour_of, fmt
 
-__all__ = ["EffectSlicesView", "EffectEdgesView", "EFFECT_METHOD_COLOURS"]
+__all__ = ["EffectSlicesView", "EffectEdgesView", "EffectCoverageView",
+           "EFFECT_METHOD_COLOURS"]
 
 #: One colour per effect method: the corrected and uncorrected forests take the colours of
 #: their regression counterparts (local linear forest, honest forest), the difference in
@@ -249,3 +251,75 @@ class EffectEdgesView(_EffectView):
             f"both methods on a row, so the paired difference compares their errors. Not "
             f"held out as the effect verdict is: the correction was chosen on every "
             f"row.</small>")
+
+
+class EffectCoverageView(_EffectView):
+    """Run the effect coverage readout on request; show per interval method and part
+    whether the intervals cover and, where they miss, why (too narrow or off centre)."""
+
+    def __init__(self, session, **kwargs):
+        super().__init__(session, **kwargs)
+        s = session
+        self.add_class("hedgerow-effect-coverage")
+        self.run_button = W.Button(description="run the coverage readout", icon="play")
+        self.cancel_button = W.Button(description="cancel", disabled=True)
+        self.progress = W.IntProgress(value=0, min=0, max=max(1, s.coverage_reps),
+                                      description="refits")
+        against = ("the known effect (truth)" if s.truth is not None
+                   else "the model's own out-of-bag effect as a stand-in")
+        self.status_html = W.HTML(
+            f"<p><i>Not run yet: {s.coverage_reps} refits on outcomes redrawn around "
+            f"{html.escape(against)}, coverage counted at {s.coverage_rows} rows.</i></p>")
+        self.notes_html = W.HTML()
+        self.table_html = W.HTML()
+        self.run_button.on_click(lambda _: self._session.start_coverage())
+        self.cancel_button.on_click(lambda _: self._session.cancel_coverage())
+        self.children = [
+            W.HTML("<b>effect coverage</b> <small>how often each effect interval holds the "
+                   "effect it was simulated around, overall, in the edge band and inside; "
+                   "where it misses, whether it is too narrow or off centre</small>"),
+            self.caution, self.error_html,
+            W.HBox([self.run_button, self.cancel_button, self.progress]),
+            self.status_html, self.notes_html, self.table_html]
+        s.observe(self._on_status, names=["coverage_status", "coverage_progress"])
+
+    def _on_status(self, change=None):
+        s = self._session
+        running = s.coverage_status == "running"
+        self.run_button.disabled = running
+        self.cancel_button.disabled = not running
+        done, total = s.coverage_progress
+        self.progress.max = max(1, total)
+        self.progress.value = min(done, self.progress.max)
+        if s.coverage_status == "failed":
+            self.error_html.value = (f"<div style='color:#8b1a1a'>the coverage readout "
+                                     f"failed: {html.escape(s.coverage_message)}</div>")
+        elif s.coverage_status in ("done", "cancelled") and s.coverage is not None:
+            self.draw(s.coverage)
+
+    def draw(self, report):
+        """Show an ``EffectCoverageReport`` (also called by tests)."""
+        self.error_html.value = ""
+        done = report.reps if report.reps_done is None else report.reps_done
+        self.status_html.value = (f"<p><b>{html.escape(report.mode)}</b>: {done} of "
+                                  f"{report.reps} refits, nominal "
+                                  f"{100 * report.level:g}%</p>")
+        notes = [n for n in report._notes()[1:] if not n.startswith("Caution")]
+        self.notes_html.value = "".join(f"<p><small>{html.escape(n)}</small></p>"
+                                        for n in notes)
+        fr = report.to_frame()
+        if fr.empty:
+            self.table_html.value = ""
+            return
+        head = ("<tr><th>interval</th><th>part</th><th>coverage (95% CI)</th><th>mean "
+                "width</th><th>rms bias</th><th>mean sd / sd across</th><th>with bias "
+                "removed</th><th>reading</th></tr>")
+        rows = "".join(
+            f"<tr><td>{html.escape(r.interval.replace('_', ' '))}</td>"
+            f"<td>{html.escape(r.part)}</td><td>{fmt(r.coverage, 3)} <small>("
+            f"{fmt(r.lower, 3)} to {fmt(r.upper, 3)})</small></td><td>{fmt(r.mean_width)}"
+            f"</td><td>{fmt(r.rms_bias)}</td><td>{fmt(r.mean_sd)} / {fmt(r.sd_across)}</td>"
+            f"<td>{fmt(r.coverage_bias_removed, 3)}</td><td>{html.escape(r.flag or 'covers')}"
+            f"</td></tr>" for r in fr.itertuples())
+        self.table_html.value = (f"<table class='hedgerow-effect-coverage-table'>{head}"
+                                 f"{rows}</table>")

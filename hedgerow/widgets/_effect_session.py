@@ -20,6 +20,8 @@ __all__ = ["EffectSession"]
 
 #: Kind of the runner's job that computes the effect verdict.
 VERDICT_JOB = "effect verdict"
+#: Kind of the runner's job that computes the effect coverage readout.
+COVERAGE_JOB = "effect coverage"
 
 
 class EffectSession(t.HasTraits):
@@ -40,22 +42,31 @@ class EffectSession(t.HasTraits):
                                "or last run.")
     verdict_message = t.Unicode("", help="Error of the last verdict run that failed ('' "
                                 "once a new run starts).")
+    coverage_status = t.Unicode("not run", help="State of the effect coverage readout, as "
+                                "verdict_status.")
+    coverage_progress = t.Tuple((0, 0), help="(replications done, replications) of the "
+                                "coverage readout running or last run.")
+    coverage_message = t.Unicode("", help="Error of the last coverage run that failed.")
 
     def __init__(self, X, y, treatment, *, model=None, verdict_folds=5,
                  verdict_fold_trees=D.EFFECT_FOLD_TREES, random_state=0, truth=None,
-                 **forest_params):
+                 coverage_reps=12, coverage_rows=100, **forest_params):
         super().__init__()
         from hedgerow.estimators import TreatmentEffectForest
 
         # checked before any fit: a bad value would otherwise only show when
         # the verdict is asked for, under the diagnostics function's own parameter name
-        for name, value, none_ok in (("verdict_folds", verdict_folds, False),
-                                     ("verdict_fold_trees", verdict_fold_trees, True)):
+        for name, value, none_ok, low in (
+                ("verdict_folds", verdict_folds, False, 2),
+                ("verdict_fold_trees", verdict_fold_trees, True, 2),
+                ("coverage_reps", coverage_reps, False, 2),
+                ("coverage_rows", coverage_rows, False, 1)):
             if value is None and none_ok:
                 continue
             if isinstance(value, bool) or not isinstance(value, int | np.integer) or \
-                    value < 2:
-                allowed = "None or an integer >= 2" if none_ok else "an integer >= 2"
+                    value < low:
+                allowed = (f"None or an integer >= {low}" if none_ok
+                           else f"an integer >= {low}")
                 raise ValueError(f"The '{name}' parameter must be {allowed}. Got {value!r} "
                                  f"instead.")
 
@@ -82,11 +93,14 @@ class EffectSession(t.HasTraits):
         self.columns = tuple(D._effect._column_names(model))
         self.verdict_folds = verdict_folds
         self.verdict_fold_trees = verdict_fold_trees
+        self.coverage_reps = coverage_reps
+        self.coverage_rows = coverage_rows
         self.random_state = random_state
         self._verdict = None
+        self._coverage = None
         self._closed = False
         self._loop = current_loop()
-        self._runner = BackgroundRunner(self._verdict_published, self._on_ui)
+        self._runner = BackgroundRunner(self._published, self._on_ui)
         self._oob = None
         self.truth = truth
         self._slices = None  # (key, report) of the last effect slices
@@ -227,9 +241,7 @@ class EffectSession(t.HasTraits):
         self._runner.cancel(VERDICT_JOB)
 
     def _verdict_published(self, job):
-        """Runner callback (event loop): the job's state into the verdict traits."""
-        if job is not self._runner.latest(job.kind):
-            return
+        """The verdict job's state into the verdict traits (see ``_published``)."""
         folds = int(job.params["folds"])
         if job.outcome in ("waiting", "running"):
             self.verdict_progress = (int(round(job.progress * folds)), folds)
@@ -243,6 +255,102 @@ class EffectSession(t.HasTraits):
             v = job.result
             self._verdict = v  # before the status: its observers draw it
             self.verdict_status = "done" if v.complete else "cancelled"
+
+    # -- the coverage readout ----------------------------------------------------------------
+    @property
+    def coverage(self):
+        """The last finished ``EffectCoverageReport`` (None before one is run)."""
+        return self._coverage
+
+    def _compute_coverage(self, progress, reps, n_eval):
+        m = self.model
+        return D.effect_coverage_readout(m, m.X_train_, m.y_train_, m.treatment_,
+                                         truth=self.truth, reps=reps, n_eval=n_eval,
+                                         random_state=self.random_state, progress=progress)
+
+    def run_coverage(self, progress=None):
+        """Compute the effect coverage readout here and now (blocking); return it.
+
+        ``coverage_reps`` refits of the model's settings on redrawn outcomes around the
+        known effect (``truth``) or, without one, the model's own out-of-bag effect (the
+        readout's notes say what that stand-in can and cannot show). ``progress`` as for
+        :meth:`run_verdict`; a failure sets "failed" and keeps the earlier readout.
+        """
+        job = self.coverage_job
+        if job is not None and job.is_alive():
+            raise RuntimeError("An effect coverage readout is already running in the "
+                               "background: wait for it or cancel it (cancel_coverage).")
+        self.coverage_message = ""
+        self.coverage_status = "running"
+        try:
+            r = self._compute_coverage(False if progress is None else progress,
+                                       int(self.coverage_reps), int(self.coverage_rows))
+        except Exception as exc:
+            self.coverage_message = f"{type(exc).__name__}: {exc}"
+            self.coverage_status = "failed"
+            raise
+        self._coverage = r
+        self.coverage_status = "done" if r.reps_done == r.reps else "cancelled"
+        return r
+
+    def start_coverage(self) -> Job | None:
+        """Run the coverage readout on the background runner; return its ``Job``.
+
+        Progress per replication in ``coverage_progress``; cancelling
+        (:meth:`cancel_coverage`) keeps the finished replications (none are read below
+        two); after :meth:`close`, None.
+        """
+        if self._closed:
+            return None
+        job = self.coverage_job
+        if job is not None and job.is_alive():
+            return job
+        reps, rows = int(self.coverage_reps), int(self.coverage_rows)
+        self.coverage_message = ""
+        self.coverage_progress = (0, reps)
+        self.coverage_status = "running"
+
+        def run(job):
+            control = RunControl(lambda done, total: job.report(done, total, stop=False))
+            job.on_cancel(control.cancel)  # the readout stops after the current refit
+            return self._compute_coverage(control, reps, rows)
+
+        return self._runner.submit(Job(COVERAGE_JOB, run, stops_itself=True,
+                                       params={"reps": reps, "rows": rows}))
+
+    @property
+    def coverage_job(self) -> Job | None:
+        """The newest coverage readout job of this session's runner, or None."""
+        return self._runner.latest(COVERAGE_JOB)
+
+    def cancel_coverage(self):
+        """Ask a running coverage readout to stop after its current replication."""
+        self._runner.cancel(COVERAGE_JOB)
+
+    def _coverage_published(self, job):
+        """Runner callback (event loop): the job's state into the coverage traits."""
+        reps = int(job.params["reps"])
+        if job.outcome in ("waiting", "running"):
+            self.coverage_progress = (int(round(job.progress * reps)), reps)
+            self.coverage_status = "running"
+        elif job.outcome == "failed":  # the earlier readout stays
+            self.coverage_message = job.message
+            self.coverage_status = "failed"
+        elif job.result is None:
+            self.coverage_status = "cancelled"
+        else:
+            r = job.result
+            self._coverage = r  # before the status: its observers draw it
+            self.coverage_status = "done" if r.reps_done == r.reps else "cancelled"
+
+    def _published(self, job):
+        """Runner callback (event loop): the newest job of each kind into its traits."""
+        if job is not self._runner.latest(job.kind):
+            return
+        if job.kind == COVERAGE_JOB:
+            self._coverage_published(job)
+        else:
+            self._verdict_published(job)
 
     def _on_ui(self, fn):
         run_on_loop(self._loop, fn)

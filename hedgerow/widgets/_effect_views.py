@@ -30,7 +30,7 @@ __all__ = ["EffectProbeView", "OverlapView", "EffectVerdictView", "EffectExplore
            "EFFECT_TAB_TITLES", "caution_html"]
 
 EFFECT_TAB_TITLES = ("effect probe", "overlap", "effect verdict", "effect slices",
-                     "effect edges")
+                     "effect edges", "effect coverage")
 EFFECT_COLOUR = EFFECT_COLOURS["corrected forest"]
 
 log = logging.getLogger("hedgerow.widgets")
@@ -370,7 +370,11 @@ class EffectExplorer(W.Tab):
 
     def __init__(self, session):
         # here, not at the top: that module builds on this one's _EffectView
-        from hedgerow.widgets._effect_more_views import EffectEdgesView, EffectSlicesView
+        from hedgerow.widgets._effect_more_views import (
+            EffectCoverageView,
+            EffectEdgesView,
+            EffectSlicesView,
+        )
 
         self.session = session
         self.probe_view = EffectProbeView(session)
@@ -378,6 +382,7 @@ class EffectExplorer(W.Tab):
         self.verdict_view = EffectVerdictView(session)
         self.slices_view = EffectSlicesView(session)
         self.edges_view = EffectEdgesView(session)
+        self.coverage_view = EffectCoverageView(session)
         super().__init__(children=self.views, titles=EFFECT_TAB_TITLES)
         self.add_class("hedgerow-effect-explorer")
         self.observe(self._on_tab_opened, "selected_index")
@@ -392,7 +397,7 @@ class EffectExplorer(W.Tab):
     @property
     def views(self):
         return [self.probe_view, self.overlap_view, self.verdict_view, self.slices_view,
-                self.edges_view]
+                self.edges_view, self.coverage_view]
 
     # -- view state (what a snapshot records besides the session) -------------------------
     def view_state(self) -> dict:

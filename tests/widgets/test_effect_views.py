@@ -31,10 +31,10 @@ def explorer(trial):
 
 def test_explore_with_treatment_gives_the_effect_explorer_with_a_caution_per_tab(explorer):
     assert isinstance(explorer, EffectExplorer)
-    assert [explorer.get_title(i) for i in range(5)] == ["effect probe", "overlap",
+    assert [explorer.get_title(i) for i in range(6)] == ["effect probe", "overlap",
                                                           "effect verdict", "effect slices",
-                                                          "effect edges"]
-    assert len(explorer.children) == len(explorer.views) == 5
+                                                          "effect edges", "effect coverage"]
+    assert len(explorer.children) == len(explorer.views) == 6
     import html
 
     for view in explorer.views:
@@ -517,3 +517,51 @@ def test_edges_view_holds_the_diagnostics_numbers(explorer, trial):
     assert html.escape(e.reading) in view.reading_html.value
     # computed once by the session, not again on a probe move
     assert explorer.session.edge_report() is explorer.session.edge_report()
+
+
+
+def test_the_coverage_tab_runs_the_readout_and_shows_why_it_misses(explorer, trial):
+    # The tab renders what EffectSession.coverage holds (diagnostics.effect_coverage_
+    # readout), row by row; the surrogate's limits are said when there is no truth.
+    import html
+
+    s, view = explorer.session, explorer.coverage_view
+    s.coverage_reps, s.coverage_rows = 2, 15
+    assert "Not run yet" in view.status_html.value and "stand-in" in view.status_html.value
+    job = s.start_coverage()
+    assert s.start_coverage() is job  # one run at a time
+    assert job.join(120) and job.outcome == "done"
+    rep = s.coverage
+    assert rep is job.result and s.coverage_status == "done"
+    assert s.coverage_progress == (2, 2)
+    fr = rep.to_frame()
+    assert not fr.empty and rep.mode.startswith("surrogate")
+    first = fr.iloc[0]
+    assert f"{first['coverage']:.3g}"[:4] in view.table_html.value
+    assert view.table_html.value.count("<tr>") == len(fr) + 1
+    assert "stand-in" in view.notes_html.value  # what the surrogate cannot show
+    assert html.escape(EFFECT_CAUTION) in view.caution.value
+    assert not view.run_button.disabled and view.cancel_button.disabled
+
+
+def test_a_failed_coverage_readout_keeps_the_earlier_one(explorer, monkeypatch):
+    s, view = explorer.session, explorer.coverage_view
+    s.coverage_reps, s.coverage_rows = 2, 10
+    before = s.run_coverage()
+
+    def broken(*args, **kwargs):
+        raise ValueError("the refit failed")
+
+    monkeypatch.setattr(D, "effect_coverage_readout", broken)
+    job = s.start_coverage()
+    assert job.join(60) and job.outcome == "failed"
+    assert s.coverage_status == "failed" and s.coverage is before
+    assert "the coverage readout failed: ValueError: the refit failed" in \
+        view.error_html.value
+    with pytest.raises(ValueError, match="'coverage_reps'.*>= 2"):
+        EffectSession(*trial_args(explorer), coverage_reps=1)
+
+
+def trial_args(explorer):
+    s = explorer.session
+    return s.X, s.y, s.treatment
