@@ -15,7 +15,7 @@ import ipywidgets as W
 import numpy as np
 
 from hedgerow.widgets._base import held, plain_figure
-from hedgerow.widgets._effect_views import _EffectView
+from hedgerow.widgets._effect_views import _EffectView, _RunView
 from hedgerow.widgets._style import PROBE_COLOUR, colour_of, fmt
 
 __all__ = ["EffectSlicesView", "EffectEdgesView", "EffectCoverageView",
@@ -253,18 +253,17 @@ class EffectEdgesView(_EffectView):
             f"row.</small>")
 
 
-class EffectCoverageView(_EffectView):
+class EffectCoverageView(_RunView):
     """Run the effect coverage readout on request; show per interval method and part
     whether the intervals cover and, where they miss, why (too narrow or off centre)."""
+
+    _job, _what = "coverage", "the coverage readout"
 
     def __init__(self, session, **kwargs):
         super().__init__(session, **kwargs)
         s = session
         self.add_class("hedgerow-effect-coverage")
-        self.run_button = W.Button(description="run the coverage readout", icon="play")
-        self.cancel_button = W.Button(description="cancel", disabled=True)
-        self.progress = W.IntProgress(value=0, min=0, max=max(1, s.coverage_reps),
-                                      description="refits")
+        controls = self._run_controls("run the coverage readout", s.coverage_reps, "refits")
         against = ("the known effect (truth)" if s.truth is not None
                    else "the model's own out-of-bag effect as a stand-in")
         self.status_html = W.HTML(
@@ -272,30 +271,12 @@ class EffectCoverageView(_EffectView):
             f"{html.escape(against)}, coverage counted at {s.coverage_rows} rows.</i></p>")
         self.notes_html = W.HTML()
         self.table_html = W.HTML()
-        self.run_button.on_click(lambda _: self._session.start_coverage())
-        self.cancel_button.on_click(lambda _: self._session.cancel_coverage())
         self.children = [
             W.HTML("<b>effect coverage</b> <small>how often each effect interval holds the "
                    "effect it was simulated around, overall, in the edge band and inside; "
                    "where it misses, whether it is too narrow or off centre</small>"),
-            self.caution, self.error_html,
-            W.HBox([self.run_button, self.cancel_button, self.progress]),
+            self.caution, self.error_html, controls,
             self.status_html, self.notes_html, self.table_html]
-        s.observe(self._on_status, names=["coverage_status", "coverage_progress"])
-
-    def _on_status(self, change=None):
-        s = self._session
-        running = s.coverage_status == "running"
-        self.run_button.disabled = running
-        self.cancel_button.disabled = not running
-        done, total = s.coverage_progress
-        self.progress.max = max(1, total)
-        self.progress.value = min(done, self.progress.max)
-        if s.coverage_status == "failed":
-            self.error_html.value = (f"<div style='color:#8b1a1a'>the coverage readout "
-                                     f"failed: {html.escape(s.coverage_message)}</div>")
-        elif s.coverage_status in ("done", "cancelled") and s.coverage is not None:
-            self.draw(s.coverage)
 
     def draw(self, report):
         """Show an ``EffectCoverageReport`` (also called by tests)."""

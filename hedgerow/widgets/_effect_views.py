@@ -310,42 +310,68 @@ class OverlapView(_EffectView):
         return o
 
 
-class EffectVerdictView(_EffectView):
+class _RunView(_EffectView):
+    """An effect view that runs one background job of its session on request and draws
+    its result: a run button, a cancel button and a progress bar.
+
+    ``_job`` names the session's members: traits ``{job}_status``, ``{job}_progress``,
+    ``{job}_message``, methods ``start_{job}`` / ``cancel_{job}`` and the result
+    ``{job}``; ``_what`` names the job in a failure message. Subclasses draw the result
+    (``draw``).
+    """
+
+    _job = ""
+    _what = ""
+
+    def _run_controls(self, label, total, unit):
+        """Return the run / cancel / progress row, wired to the session's job."""
+        s, job = self._session, self._job
+        self.run_button = W.Button(description=label, icon="play")
+        self.cancel_button = W.Button(description="cancel", disabled=True)
+        self.progress = W.IntProgress(value=0, min=0, max=max(1, total), description=unit)
+        self.run_button.on_click(lambda _: getattr(self._session, f"start_{job}")())
+        self.cancel_button.on_click(lambda _: getattr(self._session, f"cancel_{job}")())
+        s.observe(self._on_status, names=[f"{job}_status", f"{job}_progress"])
+        return W.HBox([self.run_button, self.cancel_button, self.progress])
+
+    def _on_status(self, change=None):
+        s, job = self._session, self._job
+        status = getattr(s, f"{job}_status")
+        running = status == "running"
+        self.run_button.disabled = running
+        self.cancel_button.disabled = not running
+        done, total = getattr(s, f"{job}_progress")
+        self.progress.max = max(1, total)
+        self.progress.value = min(done, self.progress.max)
+        if status == "failed":
+            self.error_html.value = (f"<div style='color:#8b1a1a'>{html.escape(self._what)} "
+                                     f"failed: {html.escape(getattr(s, f'{job}_message'))}"
+                                     f"</div>")
+        elif status in ("done", "cancelled") and getattr(s, job) is not None:
+            self.draw(getattr(s, job))
+
+    def draw(self, result):  # pragma: no cover - every subclass draws its own
+        raise NotImplementedError
+
+
+class EffectVerdictView(_RunView):
     """Run the cross-fitted R-loss verdict on request; show its sentence and table."""
+
+    _job, _what = "verdict", "the effect verdict"
 
     def __init__(self, session, **kwargs):
         super().__init__(session, **kwargs)
-        self.run_button = W.Button(description="run the effect verdict", icon="play")
-        self.cancel_button = W.Button(description="cancel", disabled=True)
-        self.progress = W.IntProgress(value=0, min=0, max=max(1, session.verdict_folds),
-                                      description="folds")
+        controls = self._run_controls("run the effect verdict", session.verdict_folds,
+                                      "folds")
         self.conclusion_html = W.HTML(
             f"<p><i>Not run yet: {session.verdict_folds} cross-fitted folds, each with at "
             f"most {session.verdict_fold_trees} trees.</i></p>")
         self.table_html = W.HTML()
-        self.run_button.on_click(lambda _: self._session.start_verdict())
-        self.cancel_button.on_click(lambda _: self._session.cancel_verdict())
         self.children = [W.HTML("<b>effect verdict</b> <small>held-out R-loss, paired row "
                                 "by row: the corrected forest against the same trees "
                                 "uncorrected and against a constant effect</small>"),
-                         self.caution, self.error_html,
-                         W.HBox([self.run_button, self.cancel_button, self.progress]),
+                         self.caution, self.error_html, controls,
                          self.conclusion_html, self.table_html]
-        session.observe(self._on_status, names=["verdict_status", "verdict_progress"])
-
-    def _on_status(self, change=None):
-        s = self._session
-        running = s.verdict_status == "running"
-        self.run_button.disabled = running
-        self.cancel_button.disabled = not running
-        done, total = s.verdict_progress
-        self.progress.max = max(1, total)
-        self.progress.value = min(done, self.progress.max)
-        if s.verdict_status == "failed":
-            self.error_html.value = (f"<div style='color:#8b1a1a'>the effect verdict failed: "
-                                     f"{html.escape(s.verdict_message)}</div>")
-        elif s.verdict_status in ("done", "cancelled") and s.verdict is not None:
-            self.draw(s.verdict)
 
     def draw(self, v):
         """Show an ``EffectVerdict`` (also called by tests)."""
